@@ -222,6 +222,14 @@ class TreeEnsemble:
         left_a = node_array(left, np.int64, "left", -1)
         right_a = node_array(right, np.int64, "right", -1)
         if local_children:
+            local_size = sizes[tree_a]
+            bad = (left_a >= local_size) | (right_a >= local_size)
+            if np.any(bad):
+                i = int(np.flatnonzero(bad)[0])
+                raise ModelFormatError(
+                    f"{src}: tree {tree_a[i]}, node {i - offsets[tree_a[i]]} has a child index out of range "
+                    f"({max(left_a[i], right_a[i])} >= {local_size[i]} nodes)"
+                )
             base = offsets[:-1][tree_a]
             left_a = np.where(left_a >= 0, left_a + base, -1)
             right_a = np.where(right_a >= 0, right_a + base, -1)
