@@ -9,7 +9,8 @@ from __future__ import annotations
 import argparse
 import sys
 import traceback
-from typing import Any, Sequence
+from collections.abc import Sequence
+from typing import Any
 
 import pandas as pd
 

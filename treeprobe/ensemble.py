@@ -52,8 +52,9 @@ training row count where the library stores it (NaN otherwise).
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -182,7 +183,7 @@ class TreeEnsemble:
         source: str = "<arrays>",
         metadata: dict | None = None,
         local_children: bool = False,
-    ) -> "TreeEnsemble":
+    ) -> TreeEnsemble:
         """Build and validate an ensemble from per-node sequences.
 
         Children are global node indices, or indices local to each tree when
@@ -446,7 +447,7 @@ class TreeEnsemble:
         return self.cat_values[self.cat_offsets[node]:self.cat_offsets[node + 1]]
 
     # -------------------------------------------------------------- subsets
-    def select_trees(self, trees: Sequence[int] | np.ndarray | slice) -> "TreeEnsemble":
+    def select_trees(self, trees: Sequence[int] | np.ndarray | slice) -> TreeEnsemble:
         """Return a new ensemble holding only the given trees (in the given order).
 
         The base score and links are kept, so predictions of the subset are the
@@ -459,7 +460,7 @@ class TreeEnsemble:
             raise DataError(f"{self.source}: tree indices must lie in 0..{self.n_trees - 1}")
         starts, ends = self.tree_offsets[idx], self.tree_offsets[idx + 1]
         sizes = ends - starts
-        nodes = np.concatenate([np.arange(s, e) for s, e in zip(starts, ends)])
+        nodes = np.concatenate([np.arange(s, e) for s, e in zip(starts, ends, strict=False)])
         new_offsets = np.concatenate([[0], np.cumsum(sizes)])
         remap = np.full(self.n_nodes, -1, dtype=np.int64)
         remap[nodes] = np.arange(nodes.size)
@@ -534,9 +535,16 @@ class TreeEnsemble:
             else:
                 frame = X
             out = np.empty((len(frame), len(frame.columns)), dtype=np.float64)
+            levels_by_name = self.metadata.get("category_levels") or {}
             for j, col in enumerate(frame.columns):
                 series = frame[col]
-                if isinstance(series.dtype, pd.CategoricalDtype):
+                levels = levels_by_name.get(self.feature_names[j]) if j < self.n_features else None
+                if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or series.dtype == object):
+                    # The model numbers categories by its own fitted levels, not by this frame's codes.
+                    codes = pd.Categorical(series, categories=list(levels)).codes.astype(np.float64)
+                    codes[codes < 0] = np.nan
+                    out[:, j] = codes
+                elif isinstance(series.dtype, pd.CategoricalDtype):
                     codes = series.cat.codes.to_numpy().astype(np.float64)
                     codes[codes < 0] = np.nan
                     out[:, j] = codes

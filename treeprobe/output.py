@@ -12,8 +12,9 @@ import math
 import os
 import sys
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable, TextIO
+from typing import Any, TextIO
 
 import numpy as np
 import pandas as pd
@@ -115,7 +116,7 @@ def format_table(frame: pd.DataFrame, *, precision: int = 4, max_rows: int | Non
     widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
 
     def line(values: list[str]) -> str:
-        return "  ".join(v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric)).rstrip()
+        return "  ".join(v.rjust(w) if num else v.ljust(w) for v, w, num in zip(values, widths, numeric, strict=False)).rstrip()
 
     out = []
     if title:
@@ -144,7 +145,7 @@ class Progress:
         self.stream = stream or sys.stderr
         self.enabled = (self.stream.isatty() if hasattr(self.stream, "isatty") else False) if enabled is None else enabled
 
-    def __enter__(self) -> "Progress":
+    def __enter__(self) -> Progress:
         self._draw()
         return self
 

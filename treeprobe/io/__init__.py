@@ -9,8 +9,9 @@ files are parsed directly, so reading them needs neither library installed.
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any
 
 from ..ensemble import TreeEnsemble
 from ..errors import ModelFormatError, UnsafeModelError, UnsupportedModelError
