@@ -658,7 +658,8 @@ class TreeEnsemble:
         """Prediction on the link's scale (probabilities for logit/softmax, exp for log links)."""
         raw = self.predict_raw(X)
         if self.link == "logit":
-            return 1.0 / (1.0 + np.exp(-raw))
+            # link_scale: LightGBM's binary objective uses 1 / (1 + exp(-sigmoid * raw)).
+            return 1.0 / (1.0 + np.exp(-float(self.metadata.get("link_scale", 1.0)) * raw))
         if self.link == "softmax":
             z = raw - raw.max(axis=1, keepdims=True)
             e = np.exp(z)
