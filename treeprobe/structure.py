@@ -1,0 +1,793 @@
+"""Interaction structure of a fitted tree ensemble, read from its trees alone.
+
+Every root-to-leaf path of a regression tree is a conjunction of conditions on
+the features it splits on, so the leaf's value can depend jointly on those
+features and on no others: a path that splits on ``k`` distinct features can
+express at most a ``k``-way interaction ([1]_, section 5; [2]_, section 8).
+Counting, over all paths of all trees, which feature sets occur together, and
+weighting them by the training mass the paths route (cover) and by the loss
+reduction of the splits made inside regions the other members already cut
+(nested gain), shows which interactions the fitted model *can* use and how
+much of its fit happened inside them. No data are needed: gain and cover
+are stored in the model ([3]_, [4]_).
+
+This is a structural reading. A pair that co-occurs on many paths is a pair
+the model is able to combine, not proof that the prediction varies jointly in
+it (a later split may leave the function additive); the data-based
+H-statistics of :mod:`treeprobe` measure that. Neither says anything about the
+world: a model's interactions are not the data-generating process's, and
+structure is not causation.
+
+References
+----------
+.. [1] J. H. Friedman and B. E. Popescu, "Predictive learning via rule
+   ensembles", The Annals of Applied Statistics 2(3), 916-954, 2008.
+.. [2] J. H. Friedman, "Greedy function approximation: a gradient boosting
+   machine", The Annals of Statistics 29(5), 1189-1232, 2001.
+.. [3] T. Chen and C. Guestrin, "XGBoost: a scalable tree boosting system",
+   KDD 2016 (gain, equation 7; cover as the hessian sum).
+.. [4] G. Ke et al., "LightGBM: a highly efficient gradient boosting decision
+   tree", NeurIPS 2017.
+"""
+
+from __future__ import annotations
+
+import string
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from functools import lru_cache
+from itertools import combinations
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .ensemble import TreeEnsemble
+from .errors import DataError
+
+__all__ = ["StructureResult", "structure", "structure_by_round", "MAX_ORDER", "LIMITS"]
+
+MAX_ORDER = 8
+_MEMBER_COLUMNS = tuple(f"feature_{letter}" for letter in string.ascii_lowercase[:MAX_ORDER])
+_SET_COLUMNS = ("paths", "trees", "leaf_cover", "cover_share", "nested_gain", "min_depth", "first_tree")
+_FEATURE_COLUMNS = ("feature", "splits", "gain", "cover", "root_splits", "mean_depth", "leaf_paths", "first_tree")
+# Nodes per walked chunk: bounds the (nodes x words) path masks and the subset
+# expansion (at most C(depth, k) rows per distinct path) to tens of megabytes.
+_CHUNK_NODES = 1 << 15
+_SCHEMA = "treeprobe.structure/1"
+LIMITS = (
+    "Path co-occurrence shows which feature sets the trees can combine, not that the prediction varies jointly "
+    "in them (check with the H-statistic); it describes the model, not the world, and is not causation."
+)
+
+
+# --------------------------------------------------------------------- validation
+def _as_ensemble(ensemble: Any) -> TreeEnsemble:
+    if isinstance(ensemble, TreeEnsemble):
+        return ensemble
+    from .io import load_model
+
+    return load_model(ensemble)
+
+
+def _check_order(value: Any, name: str) -> int:
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
+        raise DataError(f"{name} must be an integer in 2..{MAX_ORDER}, got {value!r}")
+    if not 2 <= value <= MAX_ORDER:
+        raise DataError(f"{name} must lie in 2..{MAX_ORDER}, got {value}")
+    return int(value)
+
+
+def _selected_trees(ensemble: TreeEnsemble, trees: Any, output: Any) -> np.ndarray:
+    """Original indices of the walked trees, ascending."""
+    n_trees = ensemble.n_trees
+    if trees is None:
+        chosen = np.arange(n_trees)
+    elif isinstance(trees, (slice, range)):
+        chosen = np.arange(n_trees)[trees]
+    else:
+        raw = np.asarray(trees)
+        if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
+            raise DataError(f"trees must be a slice, a range or a 1-D sequence of tree indices, got {trees!r}")
+        chosen = raw.astype(np.int64)
+        bad = (chosen < 0) | (chosen >= n_trees)
+        if bad.any():
+            raise DataError(f"trees holds index {int(chosen[bad][0])}; the model has trees 0..{n_trees - 1}")
+        if np.unique(chosen).size != chosen.size:
+            raise DataError("trees lists a tree more than once; each tree can be walked once")
+    if output is not None:
+        if isinstance(output, (bool, np.bool_)) or not isinstance(output, (int, np.integer)):
+            raise DataError(f"output must be an integer output index or None, got {output!r}")
+        if not 0 <= output < ensemble.n_outputs:
+            raise DataError(f"output must lie in 0..{ensemble.n_outputs - 1}, got {output}")
+        chosen = np.intersect1d(chosen, ensemble.trees_of_output(int(output)))
+    chosen = np.sort(chosen)
+    if chosen.size == 0:
+        raise DataError(f"the selection trees={trees!r}, output={output!r} holds no tree of the model's {n_trees}")
+    return chosen
+
+
+# --------------------------------------------------------------------- helpers
+def _parents(ensemble: TreeEnsemble) -> np.ndarray:
+    parent = np.full(ensemble.n_nodes, -1, dtype=np.int64)
+    inner = np.flatnonzero(ensemble.feature >= 0)
+    parent[ensemble.left[inner]] = inner
+    parent[ensemble.right[inner]] = inner
+    return parent
+
+
+def _node_range(starts: np.ndarray, sizes: np.ndarray) -> np.ndarray:
+    """Concatenation of ``arange(start, start + size)`` for every pair, without a Python loop."""
+    ends = np.cumsum(sizes)
+    return np.repeat(starts - (ends - sizes), sizes) + np.arange(ends[-1] if ends.size else 0)
+
+
+@lru_cache(maxsize=256)
+def _combination_table(n_items: int, size: int) -> np.ndarray:
+    table = np.array(list(combinations(range(n_items), size)), dtype=np.int64)
+    return table.reshape(-1, size)
+
+
+def _group_sorted(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sort rows of a 2-D unsigned array; return the order and the start of every group of equal rows."""
+    order = np.lexsort(columns.T[::-1])
+    ordered = columns[order]
+    new = np.ones(len(order), dtype=bool)
+    new[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
+    return order, np.flatnonzero(new)
+
+
+def _mask_bits(masks: np.ndarray, n_bits: int) -> np.ndarray:
+    """Boolean (rows x n_bits) matrix of the bits set in uint64 masks, bit b of word w = item 64 w + b."""
+    as_bytes = np.ascontiguousarray(masks.astype("<u8", copy=False)).view(np.uint8)
+    return np.unpackbits(as_bytes, axis=1, bitorder="little")[:, :n_bits].astype(bool)
+
+
+def _subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``size``-subset of the set items of every row.
+
+    Returns the owning row of each subset and its members (ascending), shape (n, size).
+    Rows are grouped by their item count so that each group is one fancy-indexing step
+    through a table of index combinations.
+    """
+    counts = bits.sum(axis=1)
+    rows, items = np.nonzero(bits)
+    starts = np.cumsum(counts) - counts
+    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
+    for n_items in np.unique(counts[counts >= size]):
+        owners = np.flatnonzero(counts == n_items)
+        members = items[starts[owners][:, None] + np.arange(n_items)]
+        table = _combination_table(int(n_items), size)
+        owner_parts.append(np.repeat(owners, table.shape[0]))
+        member_parts.append(members[:, table].reshape(-1, size))
+    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
+
+
+def _encode(members: np.ndarray, radix: int) -> np.ndarray:
+    key = np.zeros(members.shape[0], dtype=np.int64)
+    for column in members.T:
+        key = key * radix + column
+    return key
+
+
+def _decode(key: np.ndarray, radix: int, size: int) -> np.ndarray:
+    members = np.empty((key.size, size), dtype=np.int64)
+    rest = key.copy()
+    for position in range(size - 1, -1, -1):
+        members[:, position] = rest % radix
+        rest //= radix
+    return members
+
+
+@dataclass
+class _SetRecords:
+    """Partial sums for feature sets of one order, keyed by (set key, bucket)."""
+
+    key: np.ndarray
+    bucket: np.ndarray
+    paths: np.ndarray
+    leaf_cover: np.ndarray
+    nested_gain: np.ndarray
+    min_depth: np.ndarray
+    trees: np.ndarray
+    first_position: np.ndarray
+
+    @classmethod
+    def concat(cls, parts: list[_SetRecords]) -> _SetRecords:
+        if not parts:
+            empty_i, empty_f = np.zeros(0, np.int64), np.zeros(0)
+            return cls(empty_i, empty_i, empty_i, empty_f, empty_f, empty_i, empty_i, empty_i)
+        return cls(*(np.concatenate([getattr(p, name) for p in parts]) for name in cls.__dataclass_fields__))
+
+    def combined(self) -> _SetRecords:
+        """Merge rows with equal (key, bucket); tree counts add because chunks hold disjoint trees."""
+        if self.key.size == 0:
+            return self
+        order, starts = _group_sorted(np.column_stack([self.key, self.bucket]).astype(np.uint64))
+        return _SetRecords(
+            key=self.key[order][starts],
+            bucket=self.bucket[order][starts],
+            paths=np.add.reduceat(self.paths[order], starts),
+            leaf_cover=np.add.reduceat(self.leaf_cover[order], starts),
+            nested_gain=np.add.reduceat(self.nested_gain[order], starts),
+            min_depth=np.minimum.reduceat(self.min_depth[order], starts),
+            trees=np.add.reduceat(self.trees[order], starts),
+            first_position=np.minimum.reduceat(self.first_position[order], starts),
+        )
+
+
+def _aggregate_chunk(key, bucket_of_position, position, paths, leaf_cover, nested_gain, depth) -> _SetRecords:
+    """Sum per (set, bucket) and count the distinct trees behind each.
+
+    Rows are sorted once on ``key * n_positions + position``; since buckets never
+    decrease with the position, runs of one set are also runs of its buckets.
+    """
+    if key.size == 0:
+        return _SetRecords.concat([])
+    first = int(position.min())
+    span = int(position.max()) - first + 1
+    combined = key * span + (position - first)
+    order = np.argsort(combined)
+    combined = combined[order]
+    tree_start = np.flatnonzero(np.diff(combined, prepend=-1))
+    tree_key = combined[tree_start] // span
+    tree_position = combined[tree_start] % span + first
+    tree_bucket = bucket_of_position[tree_position]
+    group = np.ones(tree_start.size, dtype=bool)
+    group[1:] = (tree_key[1:] != tree_key[:-1]) | (tree_bucket[1:] != tree_bucket[:-1])
+    group_start = np.flatnonzero(group)
+    starts = tree_start[group_start]
+    return _SetRecords(
+        key=tree_key[group_start],
+        bucket=tree_bucket[group_start],
+        paths=np.add.reduceat(paths[order], starts),
+        leaf_cover=np.add.reduceat(leaf_cover[order], starts),
+        nested_gain=np.add.reduceat(nested_gain[order], starts),
+        min_depth=np.minimum.reduceat(depth[order], starts),
+        trees=np.diff(np.append(group_start, tree_start.size)),
+        first_position=tree_position[group_start],
+    )
+
+
+def _leaf_weights(ensemble: TreeEnsemble, leaves: np.ndarray) -> tuple[np.ndarray, str]:
+    cover = ensemble.cover[leaves]
+    if np.all(np.isfinite(cover)):
+        return cover, "cover"
+    samples = ensemble.n_samples[leaves]
+    if np.all(np.isfinite(samples)):
+        return samples, "n_samples"
+    return np.full(leaves.size, np.nan), "unknown"
+
+
+def _walk(
+    ensemble: TreeEnsemble,
+    walked: np.ndarray,
+    bucket_of_position: np.ndarray,
+    max_order: int,
+    feature_rank: np.ndarray,
+    n_used: int,
+) -> tuple[dict[int, _SetRecords], np.ndarray]:
+    """Walk the trees ``walked`` (original indices) in chunks and collect set records per order.
+
+    Every set is counted from the split nodes alone. A split node ``s`` on ``j``
+    with ancestor features ``A(s)`` adds its gain to every set ``{j} + T``,
+    ``T`` a subset of ``A(s) - {j}``; when ``j`` is not in ``A(s)`` it is the
+    node where those sets first complete on the paths through it, so it also
+    adds the leaf count and leaf weight of its subtree (each leaf has exactly
+    one such completing ancestor per set).
+
+    Returns the records of every order 2..max_order and, per used feature (by rank),
+    the number of leaves whose path splits on it.
+    """
+    n_words = max(1, -(-n_used // 64))
+    parent = _parents(ensemble)
+    depth = ensemble.depth
+    sizes = (ensemble.tree_offsets[walked + 1] - ensemble.tree_offsets[walked]).astype(np.int64)
+    chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
+    boundaries = np.append(np.flatnonzero(np.diff(chunk_of_tree, prepend=-1)), walked.size)
+    parts: dict[int, list[_SetRecords]] = {k: [] for k in range(2, max_order + 1)}
+    leaf_paths = np.zeros(n_used, dtype=np.int64)
+    one = np.uint64(1)
+    for first, stop in zip(boundaries[:-1], boundaries[1:], strict=True):
+        positions = np.arange(first, stop)
+        nodes = _node_range(ensemble.tree_offsets[walked[positions]], sizes[positions])
+        node_position = np.repeat(positions, sizes[positions])
+        rank = np.where(ensemble.feature[nodes] >= 0, feature_rank[np.maximum(ensemble.feature[nodes], 0)], -1)
+        node_depth = depth[nodes].astype(np.int64)
+        local_parent = np.searchsorted(nodes, parent[nodes])
+        is_leaf = rank < 0
+        by_depth = np.argsort(node_depth, kind="stable")
+        level_start = np.searchsorted(node_depth[by_depth], np.arange(node_depth.max() + 2))
+        levels = [by_depth[level_start[d]:level_start[d + 1]] for d in range(node_depth.max() + 1)]
+
+        # Path masks top-down: a node's mask is its parent's plus the parent's feature.
+        masks = np.zeros((nodes.size, n_words), dtype=np.uint64)
+        for members in levels[1:]:
+            up = local_parent[members]
+            masks[members] = masks[up]
+            masks[members, rank[up] >> 6] |= one << (rank[up] & 63).astype(np.uint64)
+
+        # Leaf count and leaf weight of every subtree, bottom-up.
+        below_leaves = is_leaf.astype(np.int64)
+        below_weight = np.zeros(nodes.size)
+        below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
+        local_left = np.searchsorted(nodes, ensemble.left[nodes])
+        local_right = np.searchsorted(nodes, ensemble.right[nodes])
+        for members in levels[-2::-1]:
+            inner = members[~is_leaf[members]]
+            below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
+            below_weight[inner] = below_weight[local_left[inner]] + below_weight[local_right[inner]]
+
+        split_nodes = np.flatnonzero(~is_leaf)
+        split_rank = rank[split_nodes]
+        word, bit = split_rank >> 6, one << (split_rank & 63).astype(np.uint64)
+        ancestors = masks[split_nodes]
+        row = np.arange(split_nodes.size)
+        completes = (ancestors[row, word] & bit) == 0
+        ancestors[row, word] &= ~bit
+        leaf_paths += np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
+                                  minlength=n_used).astype(np.int64)
+
+        split_rows = np.column_stack(
+            [node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors]
+        )
+        order, starts = _group_sorted(split_rows)
+        if starts.size == 0:
+            continue
+        group_position = node_position[split_nodes][order][starts]
+        group_feature = split_rank[order][starts]
+        group_gain = np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts)
+        group_leaves = np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts)
+        group_weight = np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts)
+        group_depth = np.minimum.reduceat(node_depth[split_nodes][order], starts) + 1
+        ancestor_bits = _mask_bits(ancestors[order][starts], n_used)
+
+        for size in range(2, max_order + 1):
+            owner, others = _subsets(ancestor_bits, size - 1)
+            members = np.sort(np.column_stack([others, group_feature[owner]]), axis=1)
+            parts[size].append(
+                _aggregate_chunk(
+                    key=_encode(members, n_used),
+                    bucket_of_position=bucket_of_position,
+                    position=group_position[owner],
+                    paths=group_leaves[owner],
+                    leaf_cover=group_weight[owner],
+                    nested_gain=group_gain[owner],
+                    depth=group_depth[owner],
+                )
+            )
+    records = {size: _SetRecords.concat(chunks).combined() for size, chunks in parts.items()}
+    return records, leaf_paths
+
+
+def _prepare(ensemble: TreeEnsemble, walked: np.ndarray, max_order: int) -> tuple[np.ndarray, np.ndarray, int]:
+    """Dense ranks of the features the walked trees split on, so masks and keys stay small."""
+    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    used = np.unique(ensemble.feature[nodes][ensemble.feature[nodes] >= 0])
+    rank = np.full(ensemble.n_features, -1, dtype=np.int64)
+    rank[used] = np.arange(used.size)
+    if used.size and float(used.size) ** max_order >= 2.0**62:
+        raise DataError(
+            f"max_order={max_order} is too high for {used.size} used features (set keys would overflow); lower it"
+        )
+    return used, rank, int(used.size)
+
+
+def _set_frame(
+    ensemble: TreeEnsemble,
+    records: _SetRecords,
+    used: np.ndarray,
+    size: int,
+    walked: np.ndarray,
+    total_cover: float,
+) -> pd.DataFrame:
+    members = used[_decode(records.key, max(used.size, 1), size)] if records.key.size else np.zeros((0, size), np.int64)
+    names = np.asarray(ensemble.feature_names, dtype=object)
+    order = np.lexsort((records.key, -records.paths, -records.nested_gain))
+    frame = {_MEMBER_COLUMNS[i]: names[members[order, i]] for i in range(size)}
+    frame.update(
+        paths=records.paths[order].astype(np.int64),
+        trees=records.trees[order].astype(np.int64),
+        leaf_cover=records.leaf_cover[order],
+        cover_share=records.leaf_cover[order] / total_cover if total_cover > 0 else np.full(order.size, np.nan),
+        nested_gain=records.nested_gain[order],
+        min_depth=records.min_depth[order].astype(np.int64),
+        first_tree=walked[records.first_position[order]].astype(np.int64),
+    )
+    return pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
+
+
+def _feature_frame(ensemble: TreeEnsemble, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:
+    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    position = np.repeat(np.arange(walked.size), np.diff(ensemble.tree_offsets)[walked])
+    inner = ensemble.feature[nodes] >= 0
+    split_nodes = nodes[inner]
+    feature = ensemble.feature[split_nodes]
+    k = ensemble.n_features
+    splits = np.bincount(feature, minlength=k).astype(np.int64)
+    depth_sum = np.bincount(feature, weights=ensemble.depth[split_nodes] + 1.0, minlength=k)
+    roots = ensemble.feature[ensemble.tree_offsets[walked]]
+    first_position = np.full(k, walked.size, dtype=np.int64)
+    np.minimum.at(first_position, feature, position[inner])
+    all_leaf_paths = np.zeros(k, dtype=np.int64)
+    all_leaf_paths[used] = leaf_paths
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_depth = np.where(splits > 0, depth_sum / np.maximum(splits, 1), np.nan)
+    return pd.DataFrame(
+        {
+            "feature": list(ensemble.feature_names),
+            "splits": splits,
+            "gain": np.bincount(feature, weights=np.nan_to_num(ensemble.gain[split_nodes]), minlength=k),
+            "cover": np.bincount(feature, weights=np.nan_to_num(ensemble.cover[split_nodes]), minlength=k),
+            "root_splits": np.bincount(roots[roots >= 0], minlength=k).astype(np.int64),
+            "mean_depth": mean_depth,
+            "leaf_paths": all_leaf_paths,
+            "first_tree": np.where(splits > 0, np.append(walked, -1)[np.minimum(first_position, walked.size)], -1),
+        },
+        columns=list(_FEATURE_COLUMNS),
+    )
+
+
+def _total_leaf_cover(ensemble: TreeEnsemble, walked: np.ndarray) -> tuple[float, str, np.ndarray]:
+    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    leaves = nodes[ensemble.feature[nodes] < 0]
+    weight, basis = _leaf_weights(ensemble, leaves)
+    per_position = np.bincount(
+        np.searchsorted(ensemble.tree_offsets[walked], leaves, side="right") - 1, weights=weight, minlength=walked.size
+    )
+    return float(weight.sum()), basis, per_position
+
+
+def _json_records(frame: pd.DataFrame) -> list[dict]:
+    out = []
+    for row in frame.to_dict(orient="records"):
+        clean = {}
+        for name, value in row.items():
+            if isinstance(value, (float, np.floating)):
+                clean[name] = None if not np.isfinite(value) else float(value)
+            elif isinstance(value, (np.integer, int)) and not isinstance(value, bool):
+                clean[name] = int(value)
+            else:
+                clean[name] = value
+        out.append(clean)
+    return out
+
+
+# --------------------------------------------------------------------- results
+@dataclass(frozen=True, eq=False)
+class StructureResult:
+    """Path structure of the walked trees; see :func:`structure` for every column.
+
+    Attributes
+    ----------
+    features : DataFrame
+        One row per model feature.
+    pairs, triples : DataFrame
+        One row per feature set of order 2 (3) that occurs on a root-to-leaf
+        path; ``triples`` is empty when ``max_order`` is 2.
+    sets : dict of int to DataFrame
+        Tables of orders 4..``max_order`` (empty dict when ``max_order <= 3``).
+    ensemble_summary : dict
+        ``TreeEnsemble.summary()`` of the whole model.
+    n_trees_walked : int
+        Number of trees walked.
+    tree_indices : ndarray of int64
+        Original indices of the walked trees, ascending.
+    total_leaf_cover : float
+        Sum of the leaf weights (see ``cover_basis``) over all walked leaves.
+    cover_basis : {"cover", "n_samples", "unknown"}
+        Leaf weight used for ``leaf_cover`` and ``cover_share``: the model's
+        cover (hessian sum), the training row count when cover is not stored,
+        or "unknown" (``leaf_cover`` and shares are NaN) when neither is.
+    max_order : int
+        Largest set order computed.
+    """
+
+    features: pd.DataFrame
+    pairs: pd.DataFrame
+    triples: pd.DataFrame
+    sets: dict = field(default_factory=dict)
+    ensemble_summary: dict = field(default_factory=dict)
+    n_trees_walked: int = 0
+    tree_indices: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    total_leaf_cover: float = float("nan")
+    cover_basis: str = "unknown"
+    max_order: int = 2
+
+    def table(self, order: int) -> pd.DataFrame:
+        """The set table of one order (1 gives ``features``)."""
+        if order == 1:
+            return self.features
+        if order == 2:
+            return self.pairs
+        if order == 3 and self.max_order >= 3:
+            return self.triples
+        if order in self.sets:
+            return self.sets[order]
+        raise DataError(f"order must lie in 1..{self.max_order} for this result, got {order!r}")
+
+    def to_dict(self) -> dict:
+        """A JSON-ready dict; see the schema in :func:`structure`."""
+        total = self.total_leaf_cover
+        return {
+            "schema": _SCHEMA,
+            "limits": LIMITS,
+            "model": {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.ensemble_summary.items()},
+            "max_order": self.max_order,
+            "n_trees_walked": self.n_trees_walked,
+            "tree_indices": [int(t) for t in self.tree_indices],
+            "total_leaf_cover": float(total) if np.isfinite(total) else None,
+            "cover_basis": self.cover_basis,
+            "features": _json_records(self.features),
+            "pairs": _json_records(self.pairs),
+            "triples": _json_records(self.triples),
+            "sets": {str(order): _json_records(frame) for order, frame in sorted(self.sets.items())},
+        }
+
+
+# --------------------------------------------------------------------- public API
+def structure(
+    ensemble: Any,
+    *,
+    max_order: int = 3,
+    trees: slice | range | Sequence[int] | np.ndarray | None = None,
+    output: int | None = None,
+) -> StructureResult:
+    """Which feature sets the trees combine on their root-to-leaf paths, and how much.
+
+    Parameters
+    ----------
+    ensemble : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+        The fitted model (a file path is parsed; no data are needed).
+    max_order : int, default 3
+        Largest feature-set size to count, 2..``MAX_ORDER``. The work grows as
+        ``C(d, max_order)`` per distinct path, ``d`` = distinct features on it.
+    trees : slice, range or sequence of int, optional
+        Original indices of the trees to walk (e.g. ``slice(500, None)`` for
+        the late rounds). Default: all trees.
+    output : int, optional
+        Walk only the trees that add to this raw output (one class of a
+        multiclass model); combined with ``trees`` by intersection.
+
+    Returns
+    -------
+    StructureResult
+        With the tables below. Depths count splits: the root split has depth 1,
+        so a node's depth is ``TreeEnsemble.depth + 1``. Gains that the model
+        does not store (NaN) count as 0. Trees are walked in ascending index
+        order; ``first_tree`` is always an original tree index.
+
+        ``features`` (one row per model feature ``j``, model order):
+
+        - ``feature``: name; ``splits``: number of split nodes on ``j``;
+        - ``gain`` = sum of ``gain`` over those nodes, ``cover`` = sum of their
+          ``cover``: equal to ``TreeEnsemble.feature_totals()`` on the walked
+          trees (XGBoost ``get_score`` weight/total_gain/total_cover, LightGBM
+          ``feature_importance`` split/gain);
+        - ``root_splits``: number of walked trees whose root splits on ``j``;
+        - ``mean_depth``: mean depth of the split nodes on ``j`` (NaN if unused);
+        - ``leaf_paths``: number of leaves whose root path splits on ``j``;
+        - ``first_tree``: smallest tree index with a split on ``j`` (-1 if unused).
+
+        ``pairs``, ``triples`` and ``sets[k]`` (one row per feature set ``S``
+        of that size occurring on at least one root-to-leaf path; members in
+        columns ``feature_a``, ``feature_b``, ... in model feature order):
+
+        - ``paths`` = #{leaves ``l`` : ``S`` is a subset of ``F(l)``}, where
+          ``F(l)`` is the set of features split on between the root and ``l``;
+        - ``trees`` = number of trees holding such a leaf;
+        - ``leaf_cover`` = sum of ``w(l)`` over those leaves, ``w`` = leaf
+          cover (``cover_basis``);
+        - ``cover_share`` = ``leaf_cover / total_leaf_cover``: the share of the
+          training mass routed through splits on every member of ``S``;
+        - ``nested_gain`` = sum of ``gain(s)`` over split nodes ``s`` with
+          feature ``j(s)`` in ``S`` and ``S - {j(s)}`` a subset of ``A(s)``, the
+          features of the strict ancestors of ``s``: the loss reduction earned
+          inside regions the other members already cut (each node counted
+          once per set);
+        - ``min_depth``: smallest depth of such a node ``s``, i.e. the depth at
+          which ``S`` first completes on a path (always >= ``len(S)``);
+        - ``first_tree``: smallest tree index holding a path through ``S``.
+
+        Rows are sorted by ``nested_gain`` descending, then ``paths``
+        descending.
+
+    Raises
+    ------
+    DataError
+        For an invalid ``max_order``, ``trees`` or ``output``.
+    ModelFormatError
+        When ``ensemble`` is a model file or object that cannot be read.
+
+    Notes
+    -----
+    A leaf's value is a function of the features in ``F(l)`` only, so the
+    tree's prediction is a sum of indicator products over these sets: a set
+    that never occurs on a path is an interaction the model cannot express
+    ([1]_, eq. 34-35 for the rule form of a path). The counts are a reading of
+    the fitted structure, not an effect size: a set can co-occur on a path
+    while the fitted function stays additive in it, so confirm with the
+    H-statistic, and remember that a model's interactions are not the
+    world's.
+
+    The walk is vectorised and reads every set from the split nodes alone:
+    per chunk of trees, every node's ancestor feature set is propagated level
+    by level as a uint64 bitmask and every subtree's leaf count and leaf
+    weight bottom-up; split nodes with equal (tree, feature, ancestor mask)
+    are merged and expanded into their sets once. A node whose feature is not
+    yet on its path is the unique place where each of its sets completes for
+    the leaves below it, which gives ``paths`` and ``leaf_cover`` without
+    expanding leaves. Memory stays bounded by walking ``_CHUNK_NODES`` nodes
+    at a time.
+
+    ``to_dict()`` returns ``{"schema": "treeprobe.structure/1", "limits":
+    LIMITS (one-sentence caveat for readers), "model":
+    summary dict, "max_order": int, "n_trees_walked": int, "tree_indices":
+    [int], "total_leaf_cover": float or null, "cover_basis": str, "features":
+    [row], "pairs": [row], "triples": [row], "sets": {"4": [row], ...}}``,
+    each ``row`` a dict of the table's columns, NaN written as null.
+
+    References
+    ----------
+    .. [1] J. H. Friedman and B. E. Popescu, "Predictive learning via rule
+       ensembles", The Annals of Applied Statistics 2(3), 916-954, 2008.
+
+    Examples
+    --------
+    One tree: the root splits on ``fuel_price``, its left child on
+    ``shift_length``; leaves 2, 3 and 4 carry cover 30, 20 and 50.
+
+    >>> from treeprobe.ensemble import TreeEnsemble
+    >>> ens = TreeEnsemble.from_arrays(
+    ...     feature=[0, 1, -1, -1, -1], threshold=[0.5, 2.0, 0, 0, 0],
+    ...     left=[1, 2, -1, -1, -1], right=[4, 3, -1, -1, -1],
+    ...     value=[0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 5],
+    ...     gain=[10.0, 4.0, 0, 0, 0], cover=[100.0, 50.0, 30.0, 20.0, 50.0],
+    ...     feature_names=["fuel_price", "shift_length"])
+    >>> result = structure(ens, max_order=2)
+    >>> result.pairs[["feature_a", "feature_b", "paths", "cover_share", "nested_gain", "min_depth"]]
+        feature_a     feature_b  paths  cover_share  nested_gain  min_depth
+    0  fuel_price  shift_length      2          0.5          4.0          2
+    """
+    ensemble = _as_ensemble(ensemble)
+    max_order = _check_order(max_order, "max_order")
+    walked = _selected_trees(ensemble, trees, output)
+    used, rank, n_used = _prepare(ensemble, walked, max_order)
+    total_cover, basis, _ = _total_leaf_cover(ensemble, walked)
+    records, leaf_paths = _walk(ensemble, walked, np.zeros(walked.size, np.int64), max_order, rank, n_used)
+    share_total = total_cover if basis != "unknown" else float("nan")
+    tables = {size: _set_frame(ensemble, records[size], used, size, walked, share_total) for size in records}
+    empty_triples = pd.DataFrame({name: pd.Series(dtype=object) for name in _MEMBER_COLUMNS[:3]} | {
+        name: pd.Series(dtype=np.float64 if name in ("leaf_cover", "cover_share", "nested_gain") else np.int64)
+        for name in _SET_COLUMNS
+    })
+    return StructureResult(
+        features=_feature_frame(ensemble, walked, leaf_paths, used),
+        pairs=tables[2],
+        triples=tables.get(3, empty_triples),
+        sets={size: frame for size, frame in tables.items() if size > 3},
+        ensemble_summary=ensemble.summary(),
+        n_trees_walked=int(walked.size),
+        tree_indices=walked,
+        total_leaf_cover=share_total,
+        cover_basis=basis,
+        max_order=max_order,
+    )
+
+
+def _trees_per_round(ensemble: TreeEnsemble) -> int:
+    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.tree_output >= 0))
+    parallel = int(ensemble.metadata.get("num_parallel_tree", 1) or 1)
+    return (ensemble.n_outputs if per_class else 1) * max(parallel, 1)
+
+
+def structure_by_round(
+    ensemble: Any,
+    *,
+    step: int | None = None,
+    max_order: int = 2,
+    output: int | None = None,
+) -> pd.DataFrame:
+    """Set metrics accumulated over boosting rounds, to see when a set entered the model.
+
+    Parameters
+    ----------
+    ensemble : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+        The fitted model.
+    step : int, optional
+        Report every ``step`` rounds (and always the last round). Default: the
+        smallest step giving at most 100 checkpoints.
+    max_order : int, default 2
+        Largest set order reported (2..``MAX_ORDER``); rows of every order
+        2..``max_order`` are returned, told apart by the ``order`` column.
+    output : int, optional
+        Only the trees of this raw output (one class of a multiclass model).
+
+    Returns
+    -------
+    DataFrame
+        Long format, one row per (checkpoint, set present by then), sorted by
+        ``round``, ``order`` and ``nested_gain`` descending. Columns:
+        ``round`` (0-based index of the last round included), ``order``,
+        ``feature_a`` .. (members; None beyond the row's order), ``paths``,
+        ``trees``, ``leaf_cover``, ``nested_gain`` (sums over the trees of
+        rounds ``0..round``), ``cover_share`` (``leaf_cover`` over the total
+        leaf cover of those same trees) and ``first_round`` (round in which
+        the set first occurs). At the last round these equal the columns of
+        :func:`structure` with the same ``output``.
+
+    Notes
+    -----
+    A round is one boosting iteration: ``n_outputs`` trees for models that
+    grow one tree per class, times ``num_parallel_tree`` when the loader
+    records it in ``metadata``; tree ``t`` belongs to round
+    ``t // trees_per_round``. The trees are walked once; each (set, round)
+    partial sum is then accumulated with a cumulative sum over rounds.
+
+    Examples
+    --------
+    >>> from treeprobe.ensemble import TreeEnsemble
+    >>> ens = TreeEnsemble.from_arrays(
+    ...     feature=[0, -1, -1, 0, 1, -1, -1, -1], threshold=[0.5, 0, 0, 0.5, 2.0, 0, 0, 0],
+    ...     left=[1, -1, -1, 1, 2, -1, -1, -1], right=[2, -1, -1, 4, 3, -1, -1, -1],
+    ...     value=[0, 1.0, 2.0, 0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 3, 8], local_children=True,
+    ...     gain=[5.0, 0, 0, 10.0, 4.0, 0, 0, 0], cover=[100.0, 60, 40, 100.0, 50.0, 30.0, 20.0, 50.0],
+    ...     feature_names=["fuel_price", "shift_length"])
+    >>> structure_by_round(ens, step=1)[["round", "feature_a", "feature_b", "paths", "first_round"]]
+       round   feature_a     feature_b  paths  first_round
+    0      1  fuel_price  shift_length      2            1
+    """
+    ensemble = _as_ensemble(ensemble)
+    max_order = _check_order(max_order, "max_order")
+    walked = _selected_trees(ensemble, None, output)
+    tree_round = walked // _trees_per_round(ensemble)
+    rounds, round_of_position = np.unique(tree_round, return_inverse=True)
+    n_rounds = rounds.size
+    if step is None:
+        step = max(1, -(-n_rounds // 100))
+    elif isinstance(step, (bool, np.bool_)) or not isinstance(step, (int, np.integer)) or step < 1:
+        raise DataError(f"step must be a positive integer, got {step!r}")
+    checkpoints = np.unique(np.append(np.arange(step - 1, n_rounds, step), n_rounds - 1))
+    checkpoint_of_round = np.searchsorted(checkpoints, np.arange(n_rounds))
+    used, rank, n_used = _prepare(ensemble, walked, max_order)
+    _, basis, cover_per_position = _total_leaf_cover(ensemble, walked)
+    bucket = checkpoint_of_round[round_of_position]
+    records, _ = _walk(ensemble, walked, bucket, max_order, rank, n_used)
+    total_by_checkpoint = np.cumsum(np.bincount(bucket, weights=cover_per_position, minlength=checkpoints.size))
+    names = np.asarray(ensemble.feature_names, dtype=object)
+    frames = []
+    for size, rec in records.items():
+        if rec.key.size == 0:
+            continue
+        set_ids, set_of_row = np.unique(rec.key, return_inverse=True)
+        n_sets, n_checks = set_ids.size, checkpoints.size
+        dense = {}
+        for name in ("paths", "trees", "leaf_cover", "nested_gain"):
+            grid = np.zeros((n_sets, n_checks))
+            grid[set_of_row, rec.bucket] = getattr(rec, name)
+            dense[name] = np.cumsum(grid, axis=1)
+        first_position = np.full(n_sets, walked.size, dtype=np.int64)
+        np.minimum.at(first_position, set_of_row, rec.first_position)
+        present_set, present_check = np.nonzero(dense["paths"] > 0)
+        members = used[_decode(set_ids, max(n_used, 1), size)][present_set]
+        frame = {"round": rounds[checkpoints[present_check]], "order": np.full(present_set.size, size)}
+        for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
+            frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
+        frame["paths"] = dense["paths"][present_set, present_check].astype(np.int64)
+        frame["trees"] = dense["trees"][present_set, present_check].astype(np.int64)
+        frame["leaf_cover"] = dense["leaf_cover"][present_set, present_check]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frame["cover_share"] = (
+                frame["leaf_cover"] / total_by_checkpoint[present_check]
+                if basis != "unknown" else np.full(present_set.size, np.nan)
+            )
+        frame["nested_gain"] = dense["nested_gain"][present_set, present_check]
+        frame["first_round"] = tree_round[first_position[present_set]]
+        frames.append(pd.DataFrame(frame))
+    columns = ["round", "order", *_MEMBER_COLUMNS[:max_order], "paths", "trees", "leaf_cover", "cover_share",
+               "nested_gain", "first_round"]
+    if not frames:
+        return pd.DataFrame(columns=columns)
+    out = pd.concat(frames, ignore_index=True)
+    out = out.sort_values(["round", "order", "nested_gain", "paths"], ascending=[True, True, False, False], kind="stable")
+    return out.reset_index(drop=True)[columns]
