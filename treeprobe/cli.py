@@ -89,7 +89,7 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
         raise _UsageError(f"--order must be at least 1, got {args.order}")
     ens = _load(args)
     trees = _parse_tree_range(args.trees)
-    result = structure(ens, max_order=max(args.order, 1), trees=trees, output=args.output)
+    result = structure(ens, max_order=max(args.order, 2), trees=trees, output=args.output)
     tables = {"features": result.features, "pairs": result.pairs, "triples": result.triples}
     for k, frame in getattr(result, "sets", {}).items():
         tables[f"order{k}"] = frame

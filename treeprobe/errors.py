@@ -13,6 +13,7 @@ __all__ = [
     "UnsafeModelError",
     "DataError",
     "UnsupportedModelError",
+    "MissingLibraryError",
 ]
 
 
@@ -37,3 +38,7 @@ class UnsupportedModelError(TreeprobeError):
 
 class DataError(TreeprobeError):
     """Input data does not fit the model: wrong columns, too few rows, bad values."""
+
+
+class MissingLibraryError(TreeprobeError):
+    """An optional library needed for this step (xgboost or lightgbm, to retrain) is not installed."""
