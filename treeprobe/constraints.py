@@ -65,7 +65,6 @@ References
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from collections.abc import Sequence
@@ -81,6 +80,19 @@ import pandas as pd
 from .ensemble import TreeEnsemble
 from .errors import DataError, MissingLibraryError, UnsupportedModelError
 from .output import Progress, atomic_write, dumps_json, to_jsonable
+from .refit import (
+    BINARY,
+    LIBRARIES,
+    MULTICLASS,
+    REGRESSION,
+    design_matrix,
+    fit_model,
+    import_library,
+    predict_model,
+    task_of,
+    training_setup,
+    xgboost_constraint_text,
+)
 
 __all__ = [
     "VERDICTS",
@@ -104,8 +116,6 @@ _TRIPLE_COLUMNS = ("feature_a", "feature_b", "feature_c", "verdict", "strength")
 _FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_overall", "used")
 _SCHEMA = "treeprobe.constraints/1"
 _VALIDATION_SCHEMA = "treeprobe.constraints.validation/1"
-_LIBRARIES = ("xgboost", "lightgbm")
-
 
 
 # --------------------------------------------------------------------- reading the triage result
@@ -294,10 +304,6 @@ def _pairs_outside(groups: list[list[int]], edges: set[tuple[int, int]]) -> list
     return sorted(allowed - edges)
 
 
-def _xgboost_text(groups: list[list[int]]) -> str:
-    return "[" + ", ".join("[" + ", ".join(str(j) for j in group) + "]" for group in groups) + "]"
-
-
 def _named(pairs: Sequence[tuple[int, int]], names: Sequence[str]) -> str:
     return ", ".join(f"({names[a]}, {names[b]})" for a, b in pairs)
 
@@ -362,8 +368,8 @@ class ConstraintSuggestion:
 
     def python_snippet(self, library: str) -> str:
         """Python lines to paste into a training script of ``library`` ("xgboost" or "lightgbm")."""
-        if library not in _LIBRARIES:
-            raise DataError(f"library must be one of {_LIBRARIES}, got {library!r}")
+        if library not in LIBRARIES:
+            raise DataError(f"library must be one of {LIBRARIES}, got {library!r}")
         legend = [f"#   group {i}: {', '.join(group)}" for i, group in enumerate(self.groups)]
         if self.unused:
             legend.append(f"#   unused, kept alone: {', '.join(self.unused)}")
@@ -527,7 +533,7 @@ def suggest_constraints(
         unused=[names[j] for j in unused],
         overlapping=overlapping,
         notes=notes,
-        xgboost_param=_xgboost_text(export),
+        xgboost_param=xgboost_constraint_text(export),
         xgboost_param_by_name=[[names[j] for j in group] for group in export],
         lightgbm_param=[list(group) for group in export],
         alternative=alternative,
@@ -536,168 +542,6 @@ def suggest_constraints(
 
 
 # --------------------------------------------------------------------- validation by retraining
-# LightGBM training parameters carried over from the model text: those that
-# shape trees, the objective and sampling. Bookkeeping (files, threads, seeds,
-# devices, metrics, iteration counts) is left to this run.
-_LIGHTGBM_KEYS = (
-    "boosting", "objective", "num_class", "learning_rate", "num_leaves", "max_depth", "min_data_in_leaf",
-    "min_sum_hessian_in_leaf", "bagging_fraction", "pos_bagging_fraction", "neg_bagging_fraction", "bagging_freq",
-    "feature_fraction", "feature_fraction_bynode", "extra_trees", "max_delta_step", "lambda_l1", "lambda_l2",
-    "linear_lambda", "min_gain_to_split", "drop_rate", "max_drop", "skip_drop", "xgboost_dart_mode", "uniform_drop",
-    "top_rate", "other_rate", "path_smooth", "max_bin", "min_data_in_bin", "use_missing", "zero_as_missing",
-    "monotone_constraints", "monotone_constraints_method", "monotone_penalty", "is_unbalance", "scale_pos_weight",
-    "sigmoid", "boost_from_average", "reg_sqrt", "alpha", "fair_c", "poisson_max_delta_step",
-    "tweedie_variance_power", "linear_tree", "data_sample_strategy",
-)
-# LightGBM writes booleans as 0/1 in the model text but reads only true/false back.
-_LIGHTGBM_BOOLEANS = frozenset({
-    "extra_trees", "xgboost_dart_mode", "uniform_drop", "use_missing", "zero_as_missing", "is_unbalance",
-    "boost_from_average", "reg_sqrt", "linear_tree",
-})
-# XGBoost training parameters read from a live booster's configuration.
-_XGBOOST_TREE_KEYS = (
-    "eta", "max_depth", "min_child_weight", "lambda", "alpha", "gamma", "subsample", "colsample_bytree",
-    "colsample_bylevel", "colsample_bynode", "max_bin", "grow_policy", "max_leaves", "max_delta_step",
-    "sampling_method", "monotone_constraints", "max_cat_to_onehot", "max_cat_threshold",
-)
-_REGRESSION = "regression"
-_BINARY = "binary"
-_MULTICLASS = "multiclass"
-
-
-def _import_library(library: str) -> Any:
-    try:
-        if library == "xgboost":
-            import xgboost as module
-        else:
-            import lightgbm as module
-    except ImportError:
-        raise MissingLibraryError(
-            f"validating constraints of a {library} model retrains it and needs the {library} package "
-            f"(pip install {'xgboost-cpu' if library == 'xgboost' else 'lightgbm'})"
-        ) from None
-    return module
-
-
-def _xgboost_live_params(model: Any) -> dict:
-    """Training parameters a live XGBoost booster reports in its configuration (the saved JSON lacks them)."""
-    booster = model.get_booster() if hasattr(model, "get_booster") else model
-    try:
-        config = json.loads(booster.save_config())["learner"]
-    except Exception:  # noqa: BLE001 - a booster without a readable configuration gives no extra parameters
-        return {}
-    tree = config.get("gradient_booster", {}).get("tree_train_param", {})
-    params = {key: tree[key] for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
-    method = config.get("gradient_booster", {}).get("gbtree_train_param", {}).get("tree_method")
-    if method and method != "auto":
-        params["tree_method"] = method
-    return params
-
-
-def _task(library: str, objective: str) -> str:
-    if library == "xgboost":
-        if objective.startswith("binary:"):
-            return _BINARY
-        if objective.startswith("multi:"):
-            return _MULTICLASS
-        if objective.startswith(("rank:", "survival:")):
-            raise UnsupportedModelError(f"validate_constraints does not score the {library} objective {objective!r}")
-        return _REGRESSION
-    if objective in ("binary", "cross_entropy", "xentropy"):
-        return _BINARY
-    if objective in ("multiclass", "softmax", "multiclassova", "multiclass_ova", "ova", "ovr"):
-        return _MULTICLASS
-    if objective.startswith(("lambdarank", "rank_xendcg", "cross_entropy_lambda", "xentlambda")):
-        raise UnsupportedModelError(f"validate_constraints does not score the {library} objective {objective!r}")
-    return _REGRESSION
-
-
-def _rounds_of(ensemble: TreeEnsemble) -> int:
-    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.tree_output >= 0))
-    parallel = max(int(ensemble.metadata.get("num_parallel_tree", 1) or 1), 1)
-    return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
-
-
-def _training_setup(model_or_params: Any, library: str | None, params: dict | None,
-                    num_boost_round: int | None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
-    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes."""
-    notes: list[str] = []
-    if isinstance(model_or_params, dict):
-        if library not in _LIBRARIES:
-            raise DataError(f"library must be one of {_LIBRARIES} when model_or_params is a parameter dict, got {library!r}")
-        if num_boost_round is None:
-            raise DataError("num_boost_round is required when model_or_params is a parameter dict")
-        base = {str(k): v for k, v in model_or_params.items()}
-        return library, {**base, **(params or {})}, num_boost_round, None, notes
-    from .io import load_model
-
-    ensemble = load_model(model_or_params)
-    if ensemble.library not in _LIBRARIES:
-        raise UnsupportedModelError(
-            f"{ensemble.source}: validate_constraints retrains XGBoost and LightGBM models, this one is from "
-            f"{ensemble.library}"
-        )
-    if library is not None and library != ensemble.library:
-        raise DataError(f"library={library!r} contradicts the model, which is from {ensemble.library}")
-    if "categorical" in ensemble.feature_types:
-        raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
-    library = ensemble.library
-    if library == "lightgbm":
-        stored = ensemble.metadata.get("parameters", {}) or {}
-        base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
-        base.update({key: base[key] not in ("0", "false") for key in _LIGHTGBM_BOOLEANS & base.keys()})
-        if not stored:
-            notes.append("The LightGBM model stores no training parameters; LightGBM's defaults were used.")
-    else:
-        base = {"objective": ensemble.objective}
-        if ensemble.metadata.get("num_class"):
-            base["num_class"] = int(ensemble.metadata["num_class"])
-        if int(ensemble.metadata.get("num_parallel_tree", 1) or 1) > 1:
-            base["num_parallel_tree"] = int(ensemble.metadata["num_parallel_tree"])
-        live = _xgboost_live_params(model_or_params) if type(model_or_params).__module__.startswith("xgboost") else {}
-        base.update(live)
-        if not live:
-            depth = int(ensemble.depth[ensemble.is_leaf].max()) if ensemble.n_nodes else 1
-            base["max_depth"] = max(depth, 1)
-            notes.append(
-                "A saved XGBoost model does not store its training parameters: max_depth was set to the deepest "
-                f"leaf found ({depth}) and the rest (eta, subsample, ...) are XGBoost's defaults unless given in params."
-            )
-    rounds = num_boost_round if num_boost_round is not None else _rounds_of(ensemble)
-    return library, {**base, **(params or {})}, rounds, ensemble.feature_names, notes
-
-
-def _design(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
-    if isinstance(X, pd.DataFrame):
-        columns = tuple(str(c) for c in X.columns)
-        if names is not None:
-            missing = [n for n in names if n not in columns]
-            if missing:
-                raise DataError(f"X lacks the model's column(s) {', '.join(missing)}; it has {', '.join(columns)}")
-            X = X.set_axis(list(columns), axis=1)[list(names)]
-            columns = names
-        try:
-            matrix = X.to_numpy(dtype=np.float64)
-        except (TypeError, ValueError):
-            bad = next(c for c in X.columns if not pd.api.types.is_numeric_dtype(X[c]))
-            raise DataError(f"X column {bad!r} is not numeric") from None
-    else:
-        matrix = np.asarray(X, dtype=np.float64) if not isinstance(X, np.ndarray) else X.astype(np.float64)
-        if matrix.ndim != 2:
-            raise DataError(f"X must be 2-D (rows x features), got shape {matrix.shape}")
-        columns = names if names is not None else tuple(f"x{j}" for j in range(matrix.shape[1]))
-    if names is not None and matrix.shape[1] != len(names):
-        raise DataError(f"X has {matrix.shape[1]} columns; the model has {len(names)} features")
-    target = np.asarray(y, dtype=np.float64).ravel()
-    if target.size != matrix.shape[0]:
-        raise DataError(f"y has {target.size} values for {matrix.shape[0]} rows of X")
-    if not np.all(np.isfinite(target)):
-        raise DataError(f"y holds {int((~np.isfinite(target)).sum())} NaN or infinite value(s); the first at row "
-                        f"{int(np.flatnonzero(~np.isfinite(target))[0])}")
-    if np.isinf(matrix).any():
-        row, column = np.argwhere(np.isinf(matrix))[0]
-        raise DataError(f"X holds an infinite value at row {row}, column {columns[column]!r}")
-    return matrix, target, columns
 
 
 def _index_groups(groups: Any, columns: tuple[str, ...]) -> list[list[int]]:
@@ -728,35 +572,12 @@ def _index_groups(groups: Any, columns: tuple[str, ...]) -> list[list[int]]:
     return out + [[j] for j in range(len(columns)) if j not in listed]
 
 
-def _fit(library: str, module: Any, params: dict, X: np.ndarray, y: np.ndarray, rounds: int,
-         groups: list[list[int]] | None, columns: tuple[str, ...]) -> Any:
-    if library == "xgboost":
-        run = dict(params)
-        if groups is not None:
-            run["interaction_constraints"] = _xgboost_text(groups)
-        return module.train(run, module.DMatrix(X, y, feature_names=list(columns)), num_boost_round=rounds)
-    run = {**params, "verbosity": -1}
-    if groups is not None:
-        run["interaction_constraints"] = groups
-    data = module.Dataset(X, y, feature_name=list(columns), params={"verbosity": -1})
-    return module.train(run, data, num_boost_round=rounds)
-
-
-def _predict(library: str, module: Any, model: Any, X: np.ndarray, columns: tuple[str, ...],
-             objective: str) -> np.ndarray:
-    if library == "xgboost":
-        predicted = model.predict(module.DMatrix(X, feature_names=list(columns)))
-        # logitraw predicts the margin; the scores need probabilities.
-        return 1.0 / (1.0 + np.exp(-predicted)) if objective == "binary:logitraw" else predicted
-    return model.predict(X)
-
-
 def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> dict[str, float]:
     from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 
-    if task == _REGRESSION:
+    if task == REGRESSION:
         return {"rmse": float(np.sqrt(mean_squared_error(y, predicted)))}
-    if task == _BINARY:
+    if task == BINARY:
         probability = np.clip(predicted.ravel(), 1e-15, 1 - 1e-15)
         scores = {"log_loss": float(log_loss(y, probability, labels=[0, 1]))}
         scores["auc"] = float(roc_auc_score(y, probability)) if np.unique(y).size == 2 else math.nan
@@ -941,18 +762,18 @@ def validate_constraints(
         num_boost_round = _check_positive_int(num_boost_round, "num_boost_round", 1)
     if isinstance(random_state, (bool, np.bool_)) or not isinstance(random_state, (int, np.integer)):
         raise DataError(f"random_state must be an integer, got {random_state!r}")
-    if library is not None and library not in _LIBRARIES:
-        raise DataError(f"library must be one of {_LIBRARIES} or None, got {library!r}")
+    if library is not None and library not in LIBRARIES:
+        raise DataError(f"library must be one of {LIBRARIES} or None, got {library!r}")
     if params is not None and not isinstance(params, dict):
         raise DataError(f"params must be a dict of training parameters, got {type(params).__name__}")
     if params and "interaction_constraints" in params:
         raise DataError("params must not hold interaction_constraints; pass the groups as groups=")
-    library, run_params, rounds, names, notes = _training_setup(model_or_params, library, params, num_boost_round)
-    matrix, target, columns = _design(X, y, names)
+    library, run_params, rounds, names, notes = training_setup(model_or_params, library, params, num_boost_round)
+    matrix, target, columns = design_matrix(X, y, names)
     index_groups = _index_groups(groups, columns)
-    module = _import_library(library)
+    module = import_library(library)
     objective = str(run_params.get("objective", "reg:squarederror" if library == "xgboost" else "regression"))
-    task = _task(library, objective)
+    task = task_of(library, objective)
     if objective == "multi:softmax":
         # Same loss; softprob predicts class probabilities, which log-loss needs.
         objective = run_params["objective"] = "multi:softprob"
@@ -962,11 +783,11 @@ def validate_constraints(
     run_params = {**run_params, **threads}
 
     n_classes = 2
-    if task != _REGRESSION:
+    if task != REGRESSION:
         if not np.all(target == np.round(target)) or target.min() < 0:
             raise DataError("y must hold class codes 0, 1, ... for a classification objective")
-        n_classes = int(target.max()) + 1 if task == _MULTICLASS else 2
-        if task == _MULTICLASS:
+        n_classes = int(target.max()) + 1 if task == MULTICLASS else 2
+        if task == MULTICLASS:
             run_params.setdefault("num_class", n_classes)
             n_classes = int(run_params["num_class"])
     if matrix.shape[0] < 2 * folds:
@@ -974,14 +795,14 @@ def validate_constraints(
 
     from sklearn.model_selection import KFold, StratifiedKFold
 
-    splitter = (StratifiedKFold if task != _REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
+    splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
     rows = []
     with Progress(folds, "constraint folds") as bar:
-        for fold, (train, test) in enumerate(splitter.split(matrix, target.astype(int) if task != _REGRESSION else None)):
+        for fold, (train, test) in enumerate(splitter.split(matrix, target.astype(int) if task != REGRESSION else None)):
             scores = {}
             for label, chosen in (("unconstrained", None), ("constrained", index_groups)):
-                fitted = _fit(library, module, run_params, matrix[train], target[train], rounds, chosen, columns)
-                scores[label] = _scores(task, target[test], _predict(library, module, fitted, matrix[test], columns, objective), n_classes)
+                fitted = fit_model(library, module, run_params, matrix[train], target[train], rounds, chosen, columns)
+                scores[label] = _scores(task, target[test], predict_model(library, module, fitted, matrix[test], columns, objective), n_classes)
             for metric in scores["unconstrained"]:
                 free, bound = scores["unconstrained"][metric], scores["constrained"][metric]
                 rows.append({"fold": fold, "metric": metric, "unconstrained": free, "constrained": bound,
@@ -991,7 +812,7 @@ def validate_constraints(
 
     from .io import load_model
 
-    refit = load_model(_fit(library, module, run_params, matrix, target, rounds, index_groups, columns))
+    refit = load_model(fit_model(library, module, run_params, matrix, target, rounds, index_groups, columns))
     crossing, stray = _cross_group(refit, index_groups, columns)
     summary: dict[str, Any] = {}
     for metric, part in table.groupby("metric", sort=False):
