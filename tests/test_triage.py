@@ -1,0 +1,158 @@
+"""Tests of the triage verdicts against functions whose interactions are known.
+
+References: the Friedman benchmark functions shipped in scikit-learn
+(Friedman 1991, "Multivariate adaptive regression splines", Annals of
+Statistics 19(1): ``make_friedman1``; Breiman 1996 / Friedman 1991
+``make_friedman2`` and ``make_friedman3``), whose formulas say which inputs
+interact; models trained under XGBoost's own ``interaction_constraints``
+(the library's enforcement is the ground truth for "absent"); and the noise
+floor of Friedman and Popescu (2008, section 8.3).
+"""
+
+import json
+from itertools import combinations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from treeprobe import DataError
+from treeprobe.triage import VERDICTS, triage
+
+xgb = pytest.importorskip("xgboost")
+
+
+def _frame(X):
+    return pd.DataFrame(X, columns=[f"x{i}" for i in range(X.shape[1])])
+
+
+def _fit(X, y, **params):
+    settings = dict(n_estimators=120, max_depth=4, learning_rate=0.1, n_jobs=1, random_state=0)
+    settings.update(params)
+    return xgb.XGBRegressor(**settings).fit(X, y)
+
+
+def _verdicts(result):
+    return {frozenset((a, b)): v for a, b, v in result.pairs[["feature_a", "feature_b", "verdict"]].itertuples(index=False)}
+
+
+@pytest.fixture(scope="module")
+def friedman1():
+    from sklearn.datasets import make_friedman1
+
+    # y = 10 sin(pi x0 x1) + 20 (x2 - 0.5)^2 + 10 x3 + 5 x4 + noise; x5, x6 are pure noise.
+    X, y = make_friedman1(n_samples=800, n_features=7, noise=0.5, random_state=0)
+    X = _frame(X)
+    model = _fit(X, y)
+    return model, X, y, triage(model, X, y, sample=400, resamples=6, null_refits=3)
+
+
+def test_friedman1_only_x0_x1_interact(friedman1):
+    _, _, _, result = friedman1
+    verdicts = _verdicts(result)
+    assert verdicts[frozenset(("x0", "x1"))] == "interaction"
+    assert result.pairs.iloc[0][["feature_a", "feature_b"]].tolist() == ["x0", "x1"]
+    # The additive terms x2, x3, x4 share paths but do not interact: co-split.
+    for pair in combinations(("x2", "x3", "x4"), 2):
+        row = result.pairs.set_index(["feature_a", "feature_b"]).loc[pair]
+        assert row["paths"] > 0
+        assert row["verdict"] == "co-split"
+    # Pairs with the noise features are never interaction.
+    for key, verdict in verdicts.items():
+        if key & {"x5", "x6"}:
+            assert verdict != "interaction"
+    assert set(result.pairs["verdict"]) <= set(VERDICTS)
+
+
+def test_friedman1_columns_and_floor(friedman1):
+    _, _, _, result = friedman1
+    pairs = result.pairs
+    sharing = pairs["paths"] > 0
+    # The floor never drops below min_h2 and comes from the refits when y is given.
+    assert (pairs["floor"] >= result.thresholds["min_h2"]).all()
+    assert pairs.loc[sharing, "null_h2"].notna().all()
+    assert (pairs.loc[sharing, "h2_low"] <= pairs.loc[sharing, "h2_high"] + 1e-12).all()
+    assert result.facts["null_refits"] == 3 and result.facts["n_rows"] == 400
+    assert np.allclose(pairs["strength"], np.where(sharing, pairs["h"] / result.facts["prediction_sd"], 0.0))
+    json.dumps(result.to_dict())
+    assert set(result.rules) == set(VERDICTS)
+
+
+@pytest.mark.parametrize("maker_name", ["make_friedman2", "make_friedman3"])
+def test_friedman2_and_3_verdicts_follow_the_formulas(maker_name):
+    # make_friedman2: y = sqrt(x0^2 + (x1 x2 - 1/(x1 x3))^2); make_friedman3:
+    # y = arctan((x1 x2 - 1/(x1 x3)) / x0). On scikit-learn's ranges 1/(x1 x3) < 0.01,
+    # so x3 is all but inert; the interactions are among x0, x1, x2. Two appended
+    # uniform columns x4, x5 are pure noise.
+    import sklearn.datasets
+
+    X, y = getattr(sklearn.datasets, maker_name)(n_samples=700, noise=0.0, random_state=1)
+    X = _frame(np.hstack([X, np.random.default_rng(1).uniform(size=(700, 2))]))
+    result = triage(_fit(X, y), X, y, sample=350, resamples=5, null_refits=3)
+    found = [frozenset(k) for k, v in _verdicts(result).items() if v == "interaction"]
+    assert found, "the formula's interaction among x0, x1, x2 was not found"
+    assert all(k <= {"x0", "x1", "x2"} for k in found)
+    top = result.pairs.iloc[0]
+    assert {top["feature_a"], top["feature_b"]} <= {"x0", "x1", "x2"}
+    if maker_name == "make_friedman2":
+        # x1 x2 dominates the root: the pair is the interaction.
+        assert frozenset(("x1", "x2")) in found
+
+
+def test_correlated_additive_pair_is_never_interaction():
+    # y = a + b + c with corr(a, b) ~ 0.97: a and b stand in for each other on paths.
+    rng = np.random.default_rng(3)
+    a = rng.normal(size=800)
+    b = a + 0.25 * rng.normal(size=800)
+    c = rng.normal(size=800)
+    X = pd.DataFrame({"a": a, "b": b, "c": c})
+    y = a + b + c + 0.1 * rng.normal(size=800)
+    result = triage(_fit(X, y), X, y, sample=400, resamples=5, null_refits=3)
+    row = result.pairs.set_index(["feature_a", "feature_b"]).loc[("a", "b")]
+    assert row["verdict"] in ("confounded", "co-split")
+    assert row["verdict"] != "interaction"
+    assert row["dependence"] > 0.9
+    assert row["verdict"] == "confounded" and row["leans"] in ("interaction", "co-split")
+
+
+def test_constrained_model_pairs_across_groups_are_absent():
+    # Ground truth: XGBoost's own interaction_constraints enforcement.
+    rng = np.random.default_rng(4)
+    X = _frame(rng.uniform(-1, 1, size=(600, 4)))
+    y = X["x0"] * X["x1"] + X["x2"] * X["x3"] + 0.05 * rng.normal(size=600)
+    model = _fit(X, y, interaction_constraints="[[0, 1], [2, 3]]")
+    result = triage(model, X, sample=300, resamples=0)
+    verdicts = _verdicts(result)
+    for a, b in [("x0", "x2"), ("x0", "x3"), ("x1", "x2"), ("x1", "x3")]:
+        assert verdicts[frozenset((a, b))] == "absent"
+        row = result.pairs.set_index(["feature_a", "feature_b"]).loc[(a, b)]
+        assert row["h2"] == 0.0 and row["paths"] == 0
+    assert verdicts[frozenset(("x0", "x1"))] == "interaction"
+    assert verdicts[frozenset(("x2", "x3"))] == "interaction"
+    # Without y there are no refits: the floor is min_h2 and the rule says so.
+    assert result.facts["null_refits"] == 0 and result.pairs["null_h2"].isna().all()
+    assert "no refits" in result.rules["interaction"]
+
+
+def test_target_by_column_name_and_triples(friedman1):
+    model, X, y, _ = friedman1
+    frame = X.assign(target=y)
+    result = triage(model, frame, "target", sample=200, resamples=0, null_refits=0, triples=True)
+    assert "target" not in set(result.pairs["feature_a"]) | set(result.pairs["feature_b"])
+    assert {"feature_a", "feature_b", "feature_c", "verdict", "h2"} <= set(result.triples.columns)
+    assert len(result.triples) > 0
+    assert set(result.triples["verdict"]) <= set(VERDICTS)
+
+
+def test_bad_input_is_reported(friedman1):
+    model, X, y, _ = friedman1
+    with pytest.raises(DataError, match="target column 'nope'"):
+        triage(model, X, "nope")
+    with pytest.raises(DataError, match="one value per row"):
+        triage(model, X, y[:10])
+    with pytest.raises(DataError, match="min_h2"):
+        triage(model, X, min_h2=2.0)
+    with pytest.raises(DataError, match="resamples"):
+        triage(model, X, resamples=-1)
+    with pytest.raises(DataError, match="x3"):
+        triage(model, X.drop(columns=["x3"]))
