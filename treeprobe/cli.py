@@ -10,6 +10,7 @@ import argparse
 import sys
 import traceback
 from collections.abc import Sequence
+from dataclasses import replace
 from typing import Any
 
 import pandas as pd
@@ -63,9 +64,14 @@ def _csv_text(frame: pd.DataFrame) -> str:
 
 
 def _load(args: argparse.Namespace):
-    from .io import load_model
+    from .ensemble import TreeEnsemble
+    from .io import load_model, read_model_file
 
-    return load_model(args.model, trust_pickle=args.trust_pickle)
+    loaded = read_model_file(args.model, trust_pickle=args.trust_pickle)
+    # A trusted pickle keeps the live model object: it knows its full training set-up for refits.
+    args.model_object = None if isinstance(loaded, TreeEnsemble) else loaded
+    ensemble = loaded if isinstance(loaded, TreeEnsemble) else load_model(loaded)
+    return replace(ensemble, source=str(args.model)) if ensemble.source != str(args.model) else ensemble
 
 
 def _model_lines(summary: dict[str, Any]) -> list[str]:
@@ -206,6 +212,163 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
     return 0
 
 
+# ------------------------------------------------------------------- triage
+_TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "strength", "h2", "h2_low", "h2_high", "floor", "h",
+                   "dependence", "paths", "cover_share"]
+
+
+def _verdict_legend(rules: dict[str, str]) -> str:
+    import textwrap
+
+    lines = ["Verdicts:"]
+    for verdict, rule in rules.items():
+        lines += textwrap.wrap(rule, width=100, initial_indent=f"  {verdict:<12} ", subsequent_indent=" " * 15)
+    return "\n".join(lines)
+
+
+def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
+    from .triage import triage
+
+    if args.target is not None and args.target not in data.columns:
+        raise TreeprobeError(f"{args.data}: no target column {args.target!r}; columns are {', '.join(map(str, data.columns))}")
+    return triage(
+        getattr(args, "model_object", None) or ens,
+        data,
+        args.target,
+        triples=getattr(args, "triples", False),
+        sample=None if args.sample == 0 else args.sample,
+        resamples=args.resamples,
+        null_refits=args.null_refits,
+        min_h2=args.min_h2,
+        min_effect=args.min_effect,
+        max_dependence=args.max_dependence,
+        output=args.output,
+        random_state=args.seed,
+        n_jobs=args.jobs,
+        progress=False if args.quiet else None,
+    )
+
+
+def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
+    facts = result.facts
+    counts = result.pairs["verdict"].value_counts()
+    tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in result.rules)
+    floor = (f"noise floor from {facts['null_refits']} refits" if facts["null_refits"]
+             else "no noise-floor refits (give --target)")
+    lines = [
+        f"model      {result.ensemble.source} ({result.ensemble.library}, {result.ensemble.n_trees:,} trees)",
+        f"data       {args.data}: {facts['n_rows']:,} of {facts['n_rows_available']:,} rows, "
+        f"{facts['resamples']} resamples, {floor}, {facts['seconds']:.1f} s",
+        f"pairs      {tally}",
+        "",
+        format_table(result.pairs[[c for c in _TRIAGE_COLUMNS if c in result.pairs.columns]], max_rows=args.top,
+                     title="Pairs, strongest evidence first"),
+    ]
+    if len(result.triples):
+        cols = ["feature_a", "feature_b", "feature_c", "verdict", "strength", "h2", "h", "dependence", "paths"]
+        lines += ["", format_table(result.triples[cols], max_rows=args.top, title="Triples sharing a path")]
+    lines += ["", _verdict_legend(result.rules)]
+    for note in facts.get("refit_notes", []):
+        lines += [_wrap(note)]
+    lines += ["", _wrap(result.limits)]
+    return lines
+
+
+def _cmd_triage(args: argparse.Namespace) -> int:
+    ens = _load(args)
+    result = _run_triage(args, ens, _read_data(args.data))
+    if args.format == "json":
+        _emit(dumps_json(result.to_dict()), args.out)
+        return 0
+    if args.format == "csv":
+        tables = {"pairs": result.pairs, "triples": result.triples, "features": result.features}
+        if args.table not in tables:
+            raise _UsageError(f"--table {args.table!r} is not available; choose from {list(tables)}")
+        _emit(_csv_text(tables[args.table]), args.out)
+        return 0
+    _emit("\n".join(_triage_text(result, args)), args.out)
+    return 0
+
+
+# ---------------------------------------------------------------- constrain
+def _cmd_constrain(args: argparse.Namespace) -> int:
+    from .constraints import interaction_graph, suggest_constraints, validate_constraints, write_graphml
+
+    if args.validate and args.target is None:
+        raise _UsageError("--validate retrains the model and needs --target")
+    ens = _load(args)
+    data = _read_data(args.data)
+    result = _run_triage(args, ens, data)
+    suggestion = suggest_constraints(result, min_strength=args.min_strength)
+    library = args.library or (ens.library if ens.library in ("xgboost", "lightgbm") else "xgboost")
+    validation = None
+    if args.validate:
+        features = data.drop(columns=[args.target])
+        groups = suggestion.alternative if (suggestion.overlapping and args.non_overlapping) else suggestion.groups
+        validation = validate_constraints(
+            ens if ens.library in ("xgboost", "lightgbm") else None, features, data[args.target].to_numpy(), groups,
+            folds=args.folds, random_state=args.seed, n_jobs=args.jobs,
+        )
+    if args.graph:
+        write_graphml(interaction_graph(result), args.graph)
+        print(f"wrote {args.graph}", file=sys.stderr)
+    if args.format == "json":
+        payload = {"suggestion": suggestion.to_dict(), "triage": result.to_dict()}
+        if validation is not None:
+            payload["validation"] = validation.to_dict()
+        _emit(dumps_json(payload), args.out)
+        return 0
+    if args.format == "csv":
+        rows = [{"group": i, "feature": name} for i, group in enumerate(suggestion.groups) for name in group]
+        _emit(_csv_text(pd.DataFrame(rows, columns=["group", "feature"])), args.out)
+        return 0
+    lines = [f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)", "", "Suggested groups (features "
+             "allowed to interact; every other used feature stands alone):"]
+    lines += [f"  {i}: {', '.join(group)}" for i, group in enumerate(suggestion.groups)]
+    if suggestion.unused:
+        lines += [f"  unused (kept alone): {', '.join(suggestion.unused)}"]
+    if suggestion.alternative is not None:
+        lines += ["", "Non-overlapping alternative:"] + [f"  {i}: {', '.join(g)}" for i, g in enumerate(suggestion.alternative)]
+    lines += ["", f"XGBoost   interaction_constraints = {suggestion.xgboost_param}",
+              f"LightGBM  interaction_constraints = {suggestion.lightgbm_param}", "",
+              "Python (" + library + "):", suggestion.python_snippet(library).rstrip()]
+    lines += [_wrap(n) for n in suggestion.notes]
+    if validation is not None:
+        lines += ["", format_table(validation.folds, title=f"Cross-validation, {args.folds} folds (held-out scores)")]
+        for metric, values in validation.summary.items():
+            if isinstance(values, dict) and "difference_mean" in values:
+                lines.append(
+                    f"  {metric}: constrained - unconstrained = {values['difference_mean']:+.4g} "
+                    f"(95% interval {values['difference_low']:+.4g} to {values['difference_high']:+.4g}; "
+                    f"relative {values['relative_change']:+.2%})"
+                )
+        lines += [_wrap(n) for n in validation.summary.get("notes", [])]
+        stray = validation.cross_group_pairs
+        lines.append("  constrained refit: " + ("no path crosses the groups" if not stray else
+                                                 f"{len(stray)} pair(s) cross the groups: {stray[:5]}"))
+    lines += ["", _wrap(result.limits)]
+    _emit("\n".join(lines), args.out)
+    return 0
+
+
+def _add_triage_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--data", required=True, metavar="FILE", help="CSV (or Parquet) with the model's feature columns")
+    p.add_argument("--target", metavar="COL", help="target column in the data; enables the noise-floor refits")
+    p.add_argument("--null-refits", type=int, default=10, metavar="R",
+                   help="refits on targets without interaction for the noise floor (default 10; each costs about "
+                        "one training of the model)")
+    p.add_argument("--resamples", type=int, default=20, metavar="B", help="row bootstraps for the H² interval (default 20)")
+    p.add_argument("--sample", type=int, default=1000, metavar="N", help="rows used for H and dependence (default 1000; 0 = all)")
+    p.add_argument("--min-h2", type=float, default=0.05, help="smallest H² counted as interaction (default 0.05)")
+    p.add_argument("--min-effect", type=float, default=0.05,
+                   help="smallest interaction size h as a share of the prediction spread (default 0.05)")
+    p.add_argument("--max-dependence", type=float, default=0.7,
+                   help="dependence from which a pair is 'confounded' (default 0.7)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers for refits (default 1; -1 = all cores)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
 # ------------------------------------------------------------------- parser
 def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
@@ -259,6 +422,31 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, overall, triples; default pairs)")
     p.set_defaults(handler=_cmd_hstat)
+
+    p = sub.add_parser("triage", help="verdict per feature pair: interaction, co-split, confounded or absent",
+                       description="Tell real interactions from structural co-splits and dependence artefacts: path "
+                                   "structure, H-statistics with a resampling interval and a refit noise floor, and "
+                                   "the dependence of each pair in the data.")
+    _add_common(p)
+    _add_triage_options(p)
+    p.add_argument("--triples", action="store_true", help="also give verdicts to triples sharing a path")
+    p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, triples, features)")
+    p.set_defaults(handler=_cmd_triage)
+
+    p = sub.add_parser("constrain", help="suggest interaction-constraint groups, export them, validate by retraining",
+                       description="Suggest groups of features allowed to interact (from the triage), print them as "
+                                   "XGBoost and LightGBM interaction_constraints, and optionally cross-validate the "
+                                   "constrained model against the unconstrained one.")
+    _add_common(p)
+    _add_triage_options(p)
+    p.add_argument("--library", choices=("xgboost", "lightgbm"), help="library of the Python snippet (default: the model's)")
+    p.add_argument("--min-strength", type=float, default=0.0, help="weakest interaction strength to allow (default 0)")
+    p.add_argument("--validate", action="store_true", help="cross-validate with and without the groups (needs --target)")
+    p.add_argument("--non-overlapping", action="store_true",
+                   help="validate the non-overlapping alternative when the groups overlap")
+    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
+    p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
+    p.set_defaults(handler=_cmd_constrain, triples=True)
     return parser
 
 

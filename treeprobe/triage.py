@@ -75,7 +75,7 @@ __all__ = ["TriageResult", "triage", "VERDICTS", "VERDICT_RULES", "LIMITS"]
 
 VERDICTS = ("interaction", "co-split", "confounded", "absent")
 LIMITS = (
-    "Verdicts rest on conventions (thresholds below) and on H-statistics, which extrapolate when features are "
+    "Verdicts rest on conventions (the thresholds in the verdict rules) and on H-statistics, which extrapolate when features are "
     "dependent. They describe this model, not the world: structure is not causation, and a model's interactions "
     "are not the data-generating process's. Where the model decides about people (credit, health, hiring), this "
     "supports, and does not replace, the model-risk review that local rules require."

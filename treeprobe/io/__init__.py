@@ -16,7 +16,7 @@ from typing import Any
 from ..ensemble import TreeEnsemble
 from ..errors import ModelFormatError, UnsafeModelError, UnsupportedModelError
 
-__all__ = ["load_model", "MAX_FILE_BYTES"]
+__all__ = ["load_model", "read_model_file", "MAX_FILE_BYTES"]
 
 MAX_FILE_BYTES = 4 * 1024**3
 _PICKLE_SUFFIXES = {".pkl", ".pickle", ".joblib", ".sav", ".pck"}
@@ -53,7 +53,9 @@ def _load_pickle(path: Path, data: bytes) -> Any:
         raise ModelFormatError(f"{path}: cannot unpickle the file: {type(exc).__name__}: {exc}") from None
 
 
-def _load_file(path: Path, trust_pickle: bool) -> TreeEnsemble | Any:
+def read_model_file(path: Path, trust_pickle: bool = False) -> TreeEnsemble | Any:
+    """Read a model file: a parsed :class:`TreeEnsemble`, or the unpickled object (only with ``trust_pickle``)."""
+    path = Path(path)
     data = _read_file(path)
     if not data.strip():
         raise ModelFormatError(f"{path}: file is empty")
@@ -144,7 +146,7 @@ def load_model(
         ens = source
     elif isinstance(source, (str, os.PathLike)):
         path = Path(source)
-        loaded = _load_file(path, trust_pickle)
+        loaded = read_model_file(path, trust_pickle)
         ens = loaded if isinstance(loaded, TreeEnsemble) else _from_object(loaded, source=str(path))
     else:
         ens = _from_object(source, source=f"<{type(source).__name__} object>")
