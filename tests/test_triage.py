@@ -68,10 +68,15 @@ def test_friedman1_columns_and_floor(friedman1):
     _, _, _, result = friedman1
     pairs = result.pairs
     sharing = pairs["paths"] > 0
-    # The floor never drops below min_h2 and comes from the refits when y is given.
-    assert (pairs["floor"] >= result.thresholds["min_h2"]).all()
-    assert pairs.loc[sharing, "null_h2"].notna().all()
+    # The noise floor (on h) comes from the refits when y is given; intervals are ordered.
+    assert pairs.loc[sharing, ["null_h", "null_h2"]].notna().all().all()
     assert (pairs.loc[sharing, "h2_low"] <= pairs.loc[sharing, "h2_high"] + 1e-12).all()
+    assert (pairs.loc[sharing, "h_low"] <= pairs.loc[sharing, "h_high"] + 1e-12).all()
+    # Every interaction clears all three parts of its rule.
+    inter = pairs[pairs["verdict"] == "interaction"]
+    assert (inter["h2_low"] > result.thresholds["min_h2"]).all()
+    assert (inter["h_low"] > inter["null_h"]).all()
+    assert (inter["effect"] >= result.thresholds["min_effect"]).all()
     assert result.facts["null_refits"] == 3 and result.facts["n_rows"] == 400
     assert np.allclose(pairs["strength"], np.where(sharing, pairs["h"] / result.facts["prediction_sd"], 0.0))
     json.dumps(result.to_dict())
@@ -129,9 +134,9 @@ def test_constrained_model_pairs_across_groups_are_absent():
         assert row["h2"] == 0.0 and row["paths"] == 0
     assert verdicts[frozenset(("x0", "x1"))] == "interaction"
     assert verdicts[frozenset(("x2", "x3"))] == "interaction"
-    # Without y there are no refits: the floor is min_h2 and the rule says so.
-    assert result.facts["null_refits"] == 0 and result.pairs["null_h2"].isna().all()
-    assert "no refits" in result.rules["interaction"]
+    # Without y there are no refits: no noise floor, and the rule says so.
+    assert result.facts["null_refits"] == 0 and result.pairs["null_h"].isna().all()
+    assert "no noise floor" in result.rules["interaction"]
 
 
 def test_target_by_column_name_and_triples(friedman1):

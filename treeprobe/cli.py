@@ -114,6 +114,9 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
         tables.pop("pairs")
     if args.format == "json":
         payload = result.to_dict()
+        for name in ("pairs", "triples"):
+            if name not in tables:
+                payload.pop(name, None)
         for name, frame in tables.items():
             payload[name] = frame
         _emit(dumps_json(payload), args.out)
@@ -213,7 +216,7 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
 
 
 # ------------------------------------------------------------------- triage
-_TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "strength", "h2", "h2_low", "h2_high", "floor", "h",
+_TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "strength", "h2", "h2_low", "h", "h_low", "null_h",
                    "dependence", "paths", "cover_share"]
 
 
@@ -254,7 +257,7 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
     counts = result.pairs["verdict"].value_counts()
     tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in result.rules)
     floor = (f"noise floor from {facts['null_refits']} refits" if facts["null_refits"]
-             else "no noise-floor refits (give --target)")
+             else "no noise-floor refits" + ("" if facts["has_target"] else " (give --target)"))
     lines = [
         f"model      {result.ensemble.source} ({result.ensemble.library}, {result.ensemble.n_trees:,} trees)",
         f"data       {args.data}: {facts['n_rows']:,} of {facts['n_rows_available']:,} rows, "

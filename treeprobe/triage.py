@@ -9,11 +9,12 @@ interval and a noise floor, and the dependence of the two features in the
 data, and gives each pair one verdict:
 
 ``interaction``
-    The pair shares paths, its H² clears the noise floor, and its interaction
-    effect ``h`` is not negligible against the spread of the predictions.
+    The pair shares paths, its H² is clearly above a small convention, its
+    interaction size ``h`` clears the noise floor, and ``h`` is not negligible
+    against the spread of the predictions.
 ``co-split``
-    The pair shares paths but H² stays within the noise floor or the effect is
-    negligible: the trees split on both without a joint effect worth the name.
+    The pair shares paths but H or its size stays within the noise: the trees
+    split on both without a joint effect worth the name.
 ``confounded``
     The pair shares paths and the two features are strongly dependent in the
     data, so partial dependence extrapolates and H cannot be trusted; the
@@ -27,11 +28,16 @@ additive version of the same model (same library and hyperparameters, each
 feature in its own interaction-constraint group) to ``y``; build synthetic
 targets with no interaction, the additive fit plus permuted residuals; refit
 the unconstrained model on each and compute H on each refit. A pair's floor is
-the upper ``null_quantile`` of its null H² values, and never below the
-convention ``min_h2``. For classifiers residuals are not exchangeable, so the
+the upper ``null_quantile`` of its null values. We take the floor on ``h``,
+the interaction's root mean square in output units, rather than on H²: a
+refit on a target without interaction leaves pairs with no main effect with a
+near-zero partial dependence variance, the denominator of H², so null H²
+values of such pairs scatter widely while their ``h`` stays at the noise
+level (we saw null H² above 0.5 for a product pair whose additive projection
+is zero). The null H² quantile is reported too. For classifiers residuals are not exchangeable, so the
 synthetic labels are drawn from the additive fit's probabilities instead (a
 parametric form of the same null; our adaptation). Without ``y`` only
-``min_h2`` and the resampling interval are available.
+``min_h2``, ``min_effect`` and the resampling interval are available.
 
 Dependence is measured on the same rows by Spearman's rank correlation and by
 the information coefficient of correlation ``sqrt(1 - exp(-2 I))`` of the
@@ -85,17 +91,18 @@ _SCHEMA = "treeprobe.triage/1"
 
 def _rules(min_h2: float, min_effect: float, max_dependence: float, null_quantile: float, refits: bool) -> dict:
     floor = (
-        f"the larger of {min_h2:g} and the {null_quantile:.0%} quantile of H² over refits on targets without interaction"
+        f"the lower end of its size h exceeds the {null_quantile:.0%} quantile of h over refits on targets "
+        "without interaction, "
         if refits
-        else f"{min_h2:g} (no refits: pass y for a noise floor)"
+        else "(no noise floor: no target or no refits) "
     )
     return {
         "interaction": (
-            f"Shares paths, the lower end of its H² interval exceeds the noise floor ({floor}), and its effect h is at "
-            f"least {min_effect:.0%} of the spread (standard deviation) of the model's predictions."
+            f"Shares paths, the lower end of its H² interval is above {min_h2:g}, {floor}and h is at least "
+            f"{min_effect:.0%} of the spread (standard deviation) of the model's predictions."
         ),
         "co-split": (
-            "Shares paths, but H² stays within the noise floor or its effect h is negligible: the trees split on both "
+            "Shares paths, but H² or its size h stays within the noise or is negligible: the trees split on both "
             "without a joint effect."
         ),
         "confounded": (
@@ -122,10 +129,11 @@ class TriageResult:
         ``feature_a``, ``feature_b``; structure (:func:`treeprobe.structure`):
         ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``min_depth``,
         ``first_tree``; H (:func:`treeprobe.h_statistic`): ``h2``, ``h``,
-        ``h2_low``/``h2_high`` (percentile interval over ``resamples`` row
-        bootstraps, NaN without), ``effect`` = ``h / sd(prediction)``,
-        ``null_h2`` (the refits' ``null_quantile`` of H², NaN without ``y``),
-        ``floor`` = max(``min_h2``, ``null_h2``); dependence: ``rank_correlation``
+        ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (percentile intervals
+        over ``resamples`` row bootstraps, NaN without), ``effect`` =
+        ``h / sd(prediction)``, ``null_h`` and ``null_h2`` (the refits'
+        ``null_quantile`` of ``h`` and of H²; NaN without ``y``; ``null_h`` is
+        the noise floor); dependence: ``rank_correlation``
         (Spearman), ``information_correlation`` (``sqrt(1 - exp(-2 I))``),
         ``dependence`` = the larger of their absolute values; ``verdict``,
         ``leans`` (for ``confounded``: the verdict H alone gives, else equal to
@@ -134,7 +142,7 @@ class TriageResult:
     triples : DataFrame
         The same for feature triples that share a path (when asked):
         ``feature_a``, ``feature_b``, ``feature_c``, structure columns, ``h2``,
-        ``h``, ``effect``, ``floor``, ``dependence`` (largest of the three pairs'),
+        ``h``, ``effect``, ``dependence`` (largest of the three pairs'),
         ``verdict``, ``leans``, ``strength``; no interval or null refits.
     features : DataFrame
         ``feature``, ``used``, ``splits``, ``gain``, ``cover``, ``h2_overall``,
@@ -233,19 +241,21 @@ def _dependence(matrix: np.ndarray, pairs: list[tuple[int, int]], categorical: n
 
 
 # ------------------------------------------------------------------ H pieces
-def _pair_h2(model: TreeEnsemble, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]], output: int | None,
-             method: str) -> np.ndarray:
+def _pair_h(model: TreeEnsemble, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
+            output: int | None) -> np.ndarray:
+    """H² and h of the given pairs on ``rows`` (background = evaluation rows), shape (2, n_pairs)."""
     from .hstat import h_statistic
 
+    out = np.zeros((2, len(names)))
     if not names:
-        return np.zeros(0)
-    result = h_statistic(model, rows, pairs=names, overall=False, sample=None, output=output, method=method,
-                         progress=False)
+        return out
+    result = h_statistic(model, rows, pairs=names, overall=False, sample=None, output=output, progress=False)
     table = result.pairs.set_index(["feature_a", "feature_b"])
-    out = np.empty(len(names))
     for i, (a, b) in enumerate(names):
         key = (a, b) if (a, b) in table.index else (b, a)
-        out[i] = float(table.loc[key, "h2"]) if key in table.index else 0.0
+        if key in table.index:
+            out[0, i] = float(table.loc[key, "h2"])
+            out[1, i] = float(table.loc[key, "h"])
     return out
 
 
@@ -253,10 +263,13 @@ def _take_rows(X: Any, index: np.ndarray) -> Any:
     return X.iloc[index].reset_index(drop=True) if isinstance(X, pd.DataFrame) else np.asarray(X)[index]
 
 
-def _null_h2(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *, refits: int,
+def _null_h(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *, refits: int,
              params: dict | None, output: int | None, random_state: int, n_jobs: int,
              progress: bool | None) -> tuple[np.ndarray, list[str]]:
-    """H² of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3)."""
+    """H² and h of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3).
+
+    Returns an array of shape (refits, 2, n_pairs) and notes for the reader.
+    """
     from joblib import Parallel, delayed
 
     from .io import load_model
@@ -297,7 +310,7 @@ def _null_h2(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, n
     def one(seed: int) -> np.ndarray:
         refit = load_model(fit_model(library, module, run_params, matrix, synthetic(seed), rounds, None, columns),
                            feature_names=columns)
-        return _pair_h2(refit, rows, names, output, "auto")
+        return _pair_h(refit, rows, names, output)
 
     with Progress(refits, "null refits", enabled=progress) as bar:
         if n_jobs == 1:
@@ -312,7 +325,7 @@ def _null_h2(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, n
         f"Noise floor from {refits} refits of the {library} model on synthetic targets without interaction "
         f"({'additive fit plus permuted residuals' if task == REGRESSION else 'labels drawn from the additive fit'})."
     ]
-    return np.vstack(values) if values else np.zeros((0, len(names))), notes
+    return np.stack(values) if values else np.zeros((0, 2, len(names))), notes
 
 
 # -------------------------------------------------------------------- public
@@ -361,7 +374,7 @@ def triage(
         about ``null_refits`` times the original training time, spread over
         ``n_jobs`` workers.
     null_quantile : float, default 0.95
-        Quantile of the null H² values taken as the floor.
+        Quantile of the null values of ``h`` taken as the noise floor.
     confidence : float, default 0.90
         Coverage of the percentile bootstrap interval of H².
     min_h2 : float, default 0.05
@@ -393,13 +406,14 @@ def triage(
 
     Notes
     -----
-    With ``S`` the pair's H² point value, ``L`` the lower end of its interval
-    (``S`` when ``resamples == 0``), ``floor = max(min_h2, q_null)``,
-    ``effect = h / sd(F(x))`` and ``D`` the dependence::
+    With ``L2`` and ``Lh`` the lower ends of the intervals of H² and ``h``
+    (the point values when ``resamples == 0``), ``q_h`` the refits'
+    ``null_quantile`` of ``h`` (0 without refits), ``effect = h / sd(F(x))``
+    and ``D`` the dependence::
 
         absent       if paths == 0
         confounded   if D >= max_dependence          (leans: what H alone says)
-        interaction  if L > floor and effect >= min_effect
+        interaction  if L2 > min_h2 and Lh > q_h and effect >= min_effect
         co-split     otherwise
 
     References
@@ -459,30 +473,29 @@ def triage(
     sharing = frame["paths"].to_numpy() > 0
     share_names = [k for k, s in zip(pair_list, sharing) if s]
 
-    low = np.full(len(frame), np.nan)
-    high = np.full(len(frame), np.nan)
+    low = np.full((2, len(frame)), np.nan)
+    high = np.full((2, len(frame)), np.nan)
     if resamples and share_names:
-        boots = np.empty((resamples, len(share_names)))
+        boots = np.empty((resamples, 2, len(share_names)))
         with Progress(resamples, "resampling", enabled=progress) as bar:
             for b in range(resamples):
                 pick = rng.integers(0, len(chosen), size=len(chosen))
-                boots[b] = _pair_h2(ens, _take_rows(rows, pick), share_names, h_out, "auto")
+                boots[b] = _pair_h(ens, _take_rows(rows, pick), share_names, h_out)
                 bar.advance()
         alpha = (1.0 - confidence) / 2.0
-        low[sharing] = np.quantile(boots, alpha, axis=0)
-        high[sharing] = np.quantile(boots, 1.0 - alpha, axis=0)
-    frame["h2_low"] = low
-    frame["h2_high"] = high
+        low[:, sharing] = np.quantile(boots, alpha, axis=0)
+        high[:, sharing] = np.quantile(boots, 1.0 - alpha, axis=0)
+    frame["h2_low"], frame["h2_high"] = low[0], high[0]
+    frame["h_low"], frame["h_high"] = low[1], high[1]
     frame["effect"] = frame["h"] / scale
 
-    null = np.full(len(frame), np.nan)
+    null = np.full((2, len(frame)), np.nan)
     refit_notes: list[str] = []
     if target is not None and null_refits and share_names:
-        values, refit_notes = _null_h2(ens, model, X, target, rows, share_names, refits=null_refits, params=params,
-                                       output=h_out, random_state=random_state, n_jobs=n_jobs, progress=progress)
-        null[sharing] = np.quantile(values, null_quantile, axis=0)
-    frame["null_h2"] = null
-    frame["floor"] = np.fmax(min_h2, null)
+        values, refit_notes = _null_h(ens, model, X, target, rows, share_names, refits=null_refits, params=params,
+                                      output=h_out, random_state=random_state, n_jobs=n_jobs, progress=progress)
+        null[:, sharing] = np.quantile(values, null_quantile, axis=0)
+    frame["null_h2"], frame["null_h"] = null[0], null[1]
 
     index = {n: j for j, n in enumerate(names)}
     categorical = np.array([t == "categorical" for t in ens.feature_types])
@@ -491,8 +504,10 @@ def triage(
     frame["information_correlation"] = info
     frame["dependence"] = np.fmax(np.abs(rank), info)
 
-    evidence = np.where(np.isnan(low), frame["h2"], low)
-    clears = (evidence > frame["floor"].to_numpy()) & (frame["effect"].to_numpy() >= min_effect)
+    h2_evidence = np.where(np.isnan(low[0]), frame["h2"], low[0])
+    h_evidence = np.where(np.isnan(low[1]), frame["h"], low[1])
+    clears = ((h2_evidence > min_h2) & (h_evidence > np.nan_to_num(null[1], nan=0.0))
+              & (frame["effect"].to_numpy() >= min_effect))
     leans = np.where(~sharing, "absent", np.where(clears, "interaction", "co-split"))
     dependent = sharing & (np.nan_to_num(frame["dependence"].to_numpy()) >= max_dependence)
     frame["verdict"] = np.where(dependent, "confounded", leans)
@@ -548,7 +563,6 @@ def _triple_verdicts(walked: Any, hres: Any, pairs: pd.DataFrame, scale: float, 
     frame["h2"] = [float(ht["h2"].get(k, 0.0)) if ht is not None and k in ht.index else 0.0 for k in keys]
     frame["h"] = [float(ht["h"].get(k, 0.0)) if ht is not None and k in ht.index else 0.0 for k in keys]
     frame["effect"] = frame["h"] / scale
-    frame["floor"] = min_h2
     dep = {frozenset((a, b)): d for a, b, d in pairs[["feature_a", "feature_b", "dependence"]].itertuples(index=False)}
     frame["dependence"] = [max(np.nan_to_num(dep.get(frozenset(p), 0.0)) for p in combinations(k, 2)) for k in keys]
     clears = (frame["h2"] > min_h2) & (frame["effect"] >= min_effect)

@@ -1,0 +1,149 @@
+"""Tests of the ``treeprobe`` command line: output formats, exit codes, clean pipes.
+
+The command is run in a subprocess, as a user would run it; the numbers it
+prints are compared with the Python API on the same inputs (itself checked
+against the libraries in the other test modules).
+"""
+
+import json
+import pickle
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import treeprobe
+
+FIXTURES = Path(__file__).resolve().parent.parent / "fixtures"
+LGB_MODEL = FIXTURES / "lightgbm" / "binary_late.txt"
+
+
+def run(*args, check_code=0):
+    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", *map(str, args)], capture_output=True, text=True)
+    assert proc.returncode == check_code, (proc.returncode, proc.stdout, proc.stderr)
+    return proc
+
+
+@pytest.fixture(scope="module")
+def saved_regressor(tmp_path_factory):
+    xgb = pytest.importorskip("xgboost")
+    folder = tmp_path_factory.mktemp("cli")
+    rng = np.random.default_rng(0)
+    X = pd.DataFrame(rng.uniform(-1, 1, size=(400, 4)), columns=["oven_temp", "dough_age", "humidity", "noise"])
+    y = 3 * X["oven_temp"] * X["dough_age"] + X["humidity"] + 0.05 * rng.normal(size=400)
+    model = xgb.XGBRegressor(n_estimators=40, max_depth=3, n_jobs=1).fit(X, y)
+    path = folder / "model.json"
+    model.save_model(path)
+    data = folder / "data.csv"
+    X.assign(waste_kg=y).to_csv(data, index=False)
+    return path, data, folder
+
+
+def test_version_and_help():
+    assert run("--version").stdout.strip() == f"treeprobe {treeprobe.__version__}"
+    assert "inspect" in run("--help").stdout
+    assert run(check_code=2).returncode == 2
+
+
+def test_inspect_table_lists_model_facts_and_pairs():
+    out = run("inspect", LGB_MODEL).stdout
+    ens = treeprobe.load_model(LGB_MODEL)
+    assert f"trees      {ens.n_trees}" in out
+    assert "Pairs sharing a root-to-leaf path" in out
+    top = treeprobe.structure(ens).pairs.iloc[0]
+    assert top["feature_a"] in out and top["feature_b"] in out
+    assert "not that the features interact" in out
+
+
+def test_inspect_json_and_csv_mirror_the_api(tmp_path):
+    ens = treeprobe.load_model(LGB_MODEL)
+    expected = treeprobe.structure(ens)
+    payload = json.loads(run("inspect", LGB_MODEL, "--format", "json").stdout)
+    assert [(r["feature_a"], r["feature_b"], r["paths"]) for r in payload["pairs"]] == [
+        tuple(r) for r in expected.pairs[["feature_a", "feature_b", "paths"]].itertuples(index=False)
+    ]
+    out = tmp_path / "pairs.csv"
+    proc = run("inspect", LGB_MODEL, "--format", "csv", "--out", out)
+    assert proc.stdout == ""
+    frame = pd.read_csv(out)
+    assert list(frame.columns) == list(expected.pairs.columns)
+    np.testing.assert_allclose(frame["nested_gain"], expected.pairs["nested_gain"])
+
+
+def test_inspect_options_trees_order_sort():
+    payload = json.loads(run("inspect", LGB_MODEL, "--format", "json", "--trees", "0:2", "--order", "2").stdout)
+    assert payload["n_trees_walked"] == 2 and "triples" not in payload
+    sorted_paths = [r["paths"] for r in json.loads(run("inspect", LGB_MODEL, "--format", "json", "--sort", "paths").stdout)["pairs"]]
+    assert sorted_paths == sorted(sorted_paths, reverse=True)
+
+
+@pytest.mark.parametrize(
+    "args, code, message",
+    [
+        (("inspect", "/nonexistent/model.json"), 1, "cannot read the model file"),
+        (("inspect", LGB_MODEL, "--trees", "3"), 2, "--trees expects A:B"),
+        (("inspect", LGB_MODEL, "--sort", "colour"), 2, "--sort 'colour'"),
+        (("inspect", LGB_MODEL, "--format", "xml"), 2, "invalid choice"),
+    ],
+)
+def test_errors_have_exit_codes_and_one_line(args, code, message):
+    proc = run(*args, check_code=code)
+    assert message in proc.stderr
+    assert "Traceback" not in proc.stderr
+
+
+def test_corrupt_file_is_one_line_and_debug_shows_traceback(tmp_path):
+    bad = tmp_path / "model.json"
+    bad.write_text('{"learner": {"gradient_booster": 5}}')
+    proc = run("inspect", bad, check_code=1)
+    assert proc.stderr.count("\n") == 1 and str(bad) in proc.stderr
+    assert "Traceback" in run("--debug", "inspect", bad, check_code=1).stderr
+
+
+def test_pickles_are_refused_without_opt_in(tmp_path):
+    path = tmp_path / "model.pkl"
+    path.write_bytes(pickle.dumps({"not": "a model"}))
+    proc = run("inspect", path, check_code=1)
+    assert "--trust-pickle" in proc.stderr and "runs arbitrary code" in proc.stderr
+
+
+def test_hstat_json_matches_api(saved_regressor):
+    path, data, _ = saved_regressor
+    payload = json.loads(run("hstat", path, "--data", data, "--sample", "150", "--format", "json").stdout)
+    frame = pd.read_csv(data)
+    api = treeprobe.h_statistic(treeprobe.load_model(path), frame.drop(columns="waste_kg"), sample=150)
+    got = {(r["feature_a"], r["feature_b"]): r["h2"] for r in payload["pairs"]}
+    for row in api.pairs.itertuples(index=False):
+        assert got[(row.feature_a, row.feature_b)] == pytest.approx(row.h2, rel=1e-9, abs=1e-12)
+    assert payload["pairs"][0]["feature_a"] in ("oven_temp", "dough_age")
+
+
+def test_hstat_missing_column_is_reported(saved_regressor, tmp_path):
+    path, data, _ = saved_regressor
+    short = tmp_path / "short.csv"
+    pd.read_csv(data).drop(columns="humidity").to_csv(short, index=False)
+    proc = run("hstat", path, "--data", short, check_code=1)
+    assert "humidity" in proc.stderr
+
+
+def test_triage_and_constrain(saved_regressor, tmp_path):
+    path, data, _ = saved_regressor
+    payload = json.loads(run("triage", path, "--data", data, "--target", "waste_kg", "--sample", "150",
+                             "--resamples", "3", "--null-refits", "2", "--format", "json").stdout)
+    verdicts = {(r["feature_a"], r["feature_b"]): r["verdict"] for r in payload["pairs"]}
+    assert verdicts[("oven_temp", "dough_age")] == "interaction"
+    graph = tmp_path / "graph.graphml"
+    groups = run("constrain", path, "--data", data, "--target", "waste_kg", "--sample", "150", "--resamples", "3",
+                 "--null-refits", "3", "--format", "csv", "--graph", graph).stdout
+    frame = pd.read_csv(pd.io.common.StringIO(groups))
+    groups_found = [set(g["feature"]) for _, g in frame.groupby("group")]
+    assert any({"oven_temp", "dough_age"} <= g for g in groups_found)
+    assert {"humidity"} in groups_found
+    import networkx as nx
+
+    assert set(nx.read_graphml(graph).nodes) >= {"oven_temp", "dough_age", "humidity"}
+    proc = run("constrain", path, "--data", data, "--validate", check_code=2)
+    assert "needs --target" in proc.stderr
