@@ -23,6 +23,10 @@ def test_atomic_write_replaces_whole_file(tmp_path):
     atomic_write(target, lambda h: h.write("new\n"))
     assert target.read_text() == "new\n"
     assert [p.name for p in tmp_path.iterdir()] == ["out.txt"]
+    # Same permissions as a file made by open(): readable by others unless the umask says otherwise.
+    plain = tmp_path / "plain.txt"
+    plain.write_text("x")
+    assert (target.stat().st_mode & 0o777) == (plain.stat().st_mode & 0o777)
 
 
 def test_atomic_write_keeps_old_file_when_writer_fails(tmp_path):

@@ -685,6 +685,7 @@ def validate_constraints(
     num_boost_round: int | None = None,
     random_state: int = 0,
     n_jobs: int = 1,
+    progress: bool | None = None,
 ) -> ValidationResult:
     """Cross-validated loss of the same model with and without interaction constraints.
 
@@ -718,6 +719,8 @@ def validate_constraints(
         Seed of the fold split and of the libraries' sampling.
     n_jobs : int, default 1
         Threads per fit.
+    progress : bool, optional
+        Progress bar over folds on standard error; default: only on a terminal.
 
     Returns
     -------
@@ -797,7 +800,7 @@ def validate_constraints(
 
     splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
     rows = []
-    with Progress(folds, "constraint folds") as bar:
+    with Progress(folds, "constraint folds", enabled=progress) as bar:
         for fold, (train, test) in enumerate(splitter.split(matrix, target.astype(int) if task != REGRESSION else None)):
             scores = {}
             for label, chosen in (("unconstrained", None), ("constrained", index_groups)):

@@ -40,7 +40,11 @@ def atomic_write(path: str | os.PathLike, write: Callable[[TextIO], None], *, en
         fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=folder)
     except OSError as exc:
         raise TreeprobeError(f"{target}: cannot write in {folder}: {exc.strerror or exc}") from None
+    # mkstemp creates the file private (0600); give it the permissions a plain open() would.
+    umask = os.umask(0)
+    os.umask(umask)
     try:
+        os.chmod(tmp, 0o666 & ~umask)
         with os.fdopen(fd, "w", encoding=encoding, newline="") as handle:
             write(handle)
             handle.flush()
