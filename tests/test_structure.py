@@ -11,6 +11,7 @@ values (Lundberg, Erion & Lee 2018); XGBoost's hessian sums for squared error
 from __future__ import annotations
 
 import json
+import sys
 from itertools import combinations
 from unittest import mock
 
@@ -21,10 +22,12 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import treeprobe
-from treeprobe import structure as structure_module
+import treeprobe.structure  # noqa: F401  (the module; the package attribute is the function)
 from treeprobe.ensemble import TreeEnsemble
 from treeprobe.errors import DataError, TreeprobeError
 from treeprobe.structure import structure, structure_by_round
+
+structure_module = sys.modules["treeprobe.structure"]
 
 NAMES = ["fuel_price", "shift_length", "crew_size"]
 

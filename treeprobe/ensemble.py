@@ -52,6 +52,7 @@ training row count where the library stores it (NaN otherwise).
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -61,12 +62,16 @@ import pandas as pd
 
 from .errors import DataError, ModelFormatError
 
-__all__ = ["TreeEnsemble", "LINKS", "MAX_DEPTH"]
+__all__ = ["TreeEnsemble", "UnseenCategoryWarning", "LINKS", "MAX_DEPTH"]
 
 LINKS = ("identity", "logit", "softmax", "log", "proba")
 MAX_DEPTH = 512
 _ZERO_THRESHOLD = 1e-35
 _ROW_BLOCK_CELLS = 4_000_000
+
+
+class UnseenCategoryWarning(UserWarning):
+    """Data hold a category level the model never saw in training."""
 
 
 def _as_array(values: Any, dtype: Any, name: str, source: str) -> np.ndarray:
@@ -246,8 +251,11 @@ class TreeEnsemble:
         if categories is not None:
             if len(categories) != n_nodes:
                 raise ModelFormatError(f"{src}: {len(categories)} category lists for {n_nodes} nodes")
-            lists = [np.unique(np.asarray(c, dtype=np.int64)) for c in categories]
-            cat_offsets[1:] = np.cumsum([c.size for c in lists])
+            sizes_listed = np.fromiter((len(c) for c in categories), dtype=np.int64, count=n_nodes)
+            lists = [np.unique(np.asarray(categories[i], dtype=np.int64)) for i in np.flatnonzero(sizes_listed)]
+            counts = np.zeros(n_nodes, dtype=np.int64)
+            counts[sizes_listed > 0] = [c.size for c in lists]
+            cat_offsets[1:] = np.cumsum(counts)
             cat_values = np.concatenate(lists) if lists else cat_values
         if n_features is None:
             n_features = len(feature_names) if feature_names is not None else int(feature_a.max(initial=-1)) + 1
@@ -541,8 +549,22 @@ class TreeEnsemble:
                 levels = levels_by_name.get(self.feature_names[j]) if j < self.n_features else None
                 if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or series.dtype == object):
                     # The model numbers categories by its own fitted levels, not by this frame's codes.
-                    codes = pd.Categorical(series, categories=list(levels)).codes.astype(np.float64)
+                    codes = pd.Index(list(levels)).get_indexer(series.astype(object).to_numpy()).astype(np.float64)
+                    unseen = (codes < 0) & series.notna().to_numpy()
                     codes[codes < 0] = np.nan
+                    if unseen.any():
+                        labels = sorted({str(v) for v in series[unseen]})
+                        shown = ", ".join(labels[:5]) + (" ..." if len(labels) > 5 else "")
+                        rule = self.metadata.get("unseen_category", "missing")
+                        warnings.warn(
+                            f"column {col!r} holds {len(labels)} categor{'y' if len(labels) == 1 else 'ies'} the model "
+                            f"never saw ({shown}); routed as {self.library} does: "
+                            + ("like a category no split lists" if rule == "unlisted" else "like a missing value"),
+                            UnseenCategoryWarning,
+                            stacklevel=3,
+                        )
+                        if rule == "unlisted":
+                            codes[unseen] = -1.0
                     out[:, j] = codes
                 elif isinstance(series.dtype, pd.CategoricalDtype):
                     codes = series.cat.codes.to_numpy().astype(np.float64)
@@ -589,7 +611,10 @@ class TreeEnsemble:
             object.__setattr__(self, "_cat_keys", keys)
         with np.errstate(invalid="ignore"):
             code = np.trunc(x)
-            valid = (code >= 0) & (code < span)
+            # LightGBM casts to int first (-0.5 becomes category 0); XGBoost and
+            # scikit-learn treat every negative value as no category.
+            sign_ok = code >= 0 if self.library == "lightgbm" else x >= 0
+            valid = sign_ok & (code < span)
         query = node.astype(np.int64) * span + np.where(valid, code, 0).astype(np.int64)
         pos = np.searchsorted(keys, query)
         pos = np.minimum(pos, max(keys.size - 1, 0))

@@ -1,0 +1,346 @@
+"""H-statistics (treeprobe.hstat) against closed forms, brute force, benchmarks and constrained models.
+
+References used below: Friedman and Popescu (2008), "Predictive learning via
+rule ensembles", AOAS 2(3), eqs. 44-46 (the statistics); Friedman (1991),
+"Multivariate adaptive regression splines", the benchmark function behind
+``sklearn.datasets.make_friedman1``; the libraries' own predictors and their
+``interaction_constraints`` training option.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.datasets import make_friedman1
+
+from treeprobe import DataError, load_model
+from treeprobe.hstat import HStatResult, h_statistic
+
+
+# --------------------------------------------------------------------------- closed forms
+def _uniform(n, low, high, seed):
+    return np.random.default_rng(seed).uniform(low, high, size=(n, 2))
+
+
+def _pair_h2(result: HStatResult) -> float:
+    return float(result.pairs["h2"].iloc[0])
+
+
+def test_closed_form_additive_plus_product():
+    """f = x1 + x2 + x1*x2, x ~ U(-1,1)^2 independent (Friedman & Popescu 2008, eq. 44).
+
+    E x = 0 and E x^2 = 1/3, so the centred F_1 = x1, F_2 = x2 and F_12 = f.
+    Numerator: E[(x1 x2)^2] = 1/9. Denominator: E[f^2] = 1/3 + 1/3 + 1/9 = 7/9
+    (cross terms vanish). H^2 = 1/7.
+    """
+    X = _uniform(600, -1, 1, 0)
+    result = h_statistic(lambda A: A[:, 0] + A[:, 1] + A[:, 0] * A[:, 1], X, overall=False)
+    assert result.method == "brute"
+    assert abs(_pair_h2(result) - 1 / 7) < 0.03
+
+
+def test_closed_form_pure_product():
+    """f = x1*x2 on U(-1,1)^2: both main effects are 0 (E x = 0), so F_12 is all interaction and H^2 = 1."""
+    X = _uniform(500, -1, 1, 1)
+    result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, overall=True)
+    assert abs(_pair_h2(result) - 1.0) < 0.02
+    # eq. 45: F_notj = 0 as well, so one-vs-rest H^2_j = 1 too.
+    assert np.all(np.abs(result.overall["h2"] - 1.0) < 0.02)
+
+
+def test_closed_form_separable_log():
+    """f = log(x1 x2) = log x1 + log x2 on positive inputs is additive: H^2 = 0 (up to rounding)."""
+    X = _uniform(400, 0.5, 3.0, 2)
+    result = h_statistic(lambda A: np.log(A[:, 0] * A[:, 1]), X)
+    assert _pair_h2(result) < 1e-20
+    assert np.all(result.overall["h2"] < 1e-20)
+
+
+def test_closed_form_three_way():
+    """f = x1 x2 x3 on U(-1,1)^3: every lower-order partial dependence is 0, so eq. 46 gives H^2_123 = 1
+    while the pairwise statistics are near 0. The lower-order functions are 0 only in expectation; their
+    cross terms with F_123 leave an O(n^-1/2) sampling error, hence the loose tolerance."""
+    X = np.random.default_rng(4).uniform(-1, 1, size=(600, 3))
+    result = h_statistic(lambda A: A[:, 0] * A[:, 1] * A[:, 2], X, triples=[("x0", "x1", "x2")], overall=False)
+    assert abs(float(result.triples["h2"].iloc[0]) - 1.0) < 0.12
+    assert result.pairs["h"].max() < 0.05
+
+
+# --------------------------------------------------------------------------- exact == brute
+@pytest.fixture(scope="module")
+def fleet_frame():
+    rng = np.random.default_rng(11)
+    n = 500
+    frame = pd.DataFrame({
+        "fuel_price": rng.normal(1.5, 0.3, n),
+        "shift_length": rng.uniform(4, 12, n),
+        "depot": pd.Categorical(rng.choice(["north", "south", "east", "west"], n)),
+        "load_kg": rng.gamma(2.0, 100.0, n),
+    })
+    frame.loc[rng.random(n) < 0.15, "fuel_price"] = np.nan
+    cost = (np.nan_to_num(frame.fuel_price, nan=1.0) * frame.shift_length
+            + (frame.depot.cat.codes == 2) * frame.load_kg / 100 + rng.normal(scale=0.3, size=n))
+    classes = np.digitize(cost, np.quantile(cost, [0.4, 0.75]))
+    return frame, cost.to_numpy(), classes
+
+
+def _compare(exact: HStatResult, brute: HStatResult, rtol: float) -> None:
+    """h2 agree to rtol; pairs whose exact numerator is exactly 0 may carry rounding noise in brute force."""
+    for table, keys in (("pairs", ["feature_a", "feature_b"]), ("overall", ["feature"]),
+                        ("triples", ["feature_a", "feature_b", "feature_c"])):
+        left, right = getattr(exact, table), getattr(brute, table)
+        if "output" in left:
+            keys = keys + ["output"]
+        merged = left.merge(right, on=keys, suffixes=("_exact", "_brute"))
+        assert len(merged) == len(left) == len(right)
+        if merged.empty:
+            continue
+        scale = max(float(merged.h_brute.max()), 1e-12)
+        np.testing.assert_allclose(merged.h_exact, merged.h_brute, rtol=rtol, atol=rtol * scale)
+        strong = merged.h_brute > 1e-6 * scale
+        np.testing.assert_allclose(merged.h2_exact[strong], merged.h2_brute[strong], rtol=rtol)
+
+
+@pytest.fixture(scope="module")
+def fitted_models(fleet_frame):
+    return _models(*fleet_frame)
+
+
+def _models(frame, cost, classes):
+    xgb = pytest.importorskip("xgboost")
+    lgb = pytest.importorskip("lightgbm")
+    from sklearn.ensemble import HistGradientBoostingClassifier, RandomForestRegressor
+
+    numeric = frame.assign(depot=frame.depot.cat.codes.astype(float))
+    return {
+        "xgboost-regressor": (xgb.XGBRegressor(n_estimators=25, max_depth=4, enable_categorical=True,
+                                               tree_method="hist", n_jobs=1).fit(frame, cost), frame),
+        "xgboost-multiclass": (xgb.XGBClassifier(n_estimators=8, max_depth=3, enable_categorical=True,
+                                                 tree_method="hist", n_jobs=1).fit(frame, classes), frame),
+        "lightgbm-regressor": (lgb.LGBMRegressor(n_estimators=25, num_leaves=12, min_child_samples=5,
+                                                 verbose=-1).fit(frame, cost), frame),
+        "lightgbm-multiclass": (lgb.LGBMClassifier(n_estimators=8, num_leaves=8, min_child_samples=5,
+                                                   verbose=-1).fit(frame, classes), frame),
+        "sklearn-hist-multiclass": (HistGradientBoostingClassifier(max_iter=8, max_depth=3, categorical_features=[2],
+                                                                   random_state=0).fit(numeric, classes), numeric),
+        "sklearn-forest": (RandomForestRegressor(n_estimators=5, max_depth=5, random_state=0)
+                           .fit(numeric.fillna(1.5), cost), numeric.fillna(1.5)),
+    }
+
+
+@pytest.mark.parametrize("name", ["xgboost-regressor", "xgboost-multiclass", "lightgbm-regressor",
+                                  "lightgbm-multiclass", "sklearn-hist-multiclass", "sklearn-forest"])
+def test_exact_equals_brute_on_common_graph(fitted_models, name):
+    """Exact H-statistics equal brute-force ones (eqs. 44-46) computed by predicting the common graph in float64."""
+    model, data = fitted_models[name]
+    ensemble = load_model(model)
+    options = dict(sample=60, random_state=1, triples="auto")
+    exact = h_statistic(ensemble, data, **options)
+    brute = h_statistic(ensemble, data, method="brute", **options)
+    assert (exact.method, brute.method) == ("exact", "brute")
+    assert len(exact.pairs) > 0
+    _compare(exact, brute, rtol=1e-9)
+
+
+def test_exact_equals_brute_through_native_xgboost(fleet_frame):
+    """Against XGBoost's own predictor (float32 margins, ``output_margin=True``): agreement to ~1e-6 relative."""
+    xgb = pytest.importorskip("xgboost")
+    frame, cost, _ = fleet_frame
+    model = xgb.XGBRegressor(n_estimators=25, max_depth=4, enable_categorical=True, tree_method="hist",
+                             n_jobs=1).fit(frame, cost)
+    exact = h_statistic(model, frame, sample=80)
+    native = h_statistic(lambda rows: model.predict(rows, output_margin=True), frame, sample=80,
+                         pairs=exact.pairs[["feature_a", "feature_b"]].to_numpy().tolist())
+    native_overall = native.overall[native.overall.feature.isin(exact.overall.feature)]
+    _compare(exact, HStatResult(native.pairs, native_overall, native.triples, "brute", 80, "raw", None, 0.0),
+             rtol=2e-5)
+
+
+def test_probability_scale_matches_native_predict_proba(fleet_frame):
+    """scale="probability" goes through the link; XGBoost's predict_proba (float32) is the reference."""
+    xgb = pytest.importorskip("xgboost")
+    frame, cost, _ = fleet_frame
+    label = (cost > np.median(cost)).astype(int)
+    model = xgb.XGBClassifier(n_estimators=15, max_depth=3, enable_categorical=True, tree_method="hist",
+                              n_jobs=1).fit(frame, label)
+    ours = h_statistic(model, frame, sample=60, scale="probability", overall=False)
+    native = h_statistic(lambda rows: model.predict_proba(rows)[:, 1], frame, sample=60, overall=False,
+                         pairs=ours.pairs[["feature_a", "feature_b"]].to_numpy().tolist())
+    assert ours.method == "brute" and ours.scale == "probability"
+    merged = ours.pairs.merge(native.pairs, on=["feature_a", "feature_b"])
+    np.testing.assert_allclose(merged.h_x, merged.h_y, rtol=1e-4, atol=1e-6)
+
+
+# --------------------------------------------------------------------------- benchmarks
+def test_friedman1_ranks_the_true_interaction_first():
+    """Friedman (1991) #1: y = 10 sin(pi x0 x1) + 20 (x2 - 0.5)^2 + 10 x3 + 5 x4 + noise; only x0 and x1
+    interact, so an XGBoost fit must rank (x0, x1) first, and by a wide margin in h: pure-noise features
+    (x5..x7) can show a sizeable h2 on a tiny partial dependence, which is why h is reported beside it."""
+    xgb = pytest.importorskip("xgboost")
+    X, y = make_friedman1(n_samples=1500, n_features=8, noise=0.5, random_state=0)
+    model = xgb.XGBRegressor(n_estimators=200, max_depth=4, learning_rate=0.1, n_jobs=1, random_state=0).fit(X, y)
+    result = h_statistic(model, X, sample=400, overall=False)
+    top = result.pairs.iloc[0]
+    assert {top.feature_a, top.feature_b} == {"f0", "f1"}
+    assert top.h2 > result.pairs.h2.iloc[1]
+    assert top.h > 4 * result.pairs.h.iloc[1:].max()
+
+
+@pytest.mark.parametrize("library", ["xgboost", "lightgbm"])
+def test_interaction_constraints_give_exact_zero(library):
+    """Models trained with the library's own ``interaction_constraints`` never split on features of two groups
+    along one path, so the exact H between groups is 0.0 exactly and nonzero within a group."""
+    rng = np.random.default_rng(5)
+    X = pd.DataFrame(rng.normal(size=(600, 4)), columns=["fuel_price", "shift_length", "load_kg", "wind_speed"])
+    y = X.fuel_price * X.shift_length + X.load_kg * X.wind_speed + X.fuel_price * X.load_kg
+    if library == "xgboost":
+        xgb = pytest.importorskip("xgboost")
+        groups = [["fuel_price", "shift_length"], ["load_kg", "wind_speed"]]
+        model = xgb.XGBRegressor(n_estimators=40, max_depth=4, interaction_constraints=groups, n_jobs=1).fit(X, y)
+    else:
+        lgb = pytest.importorskip("lightgbm")
+        model = lgb.LGBMRegressor(n_estimators=40, num_leaves=12, interaction_constraints=[[0, 1], [2, 3]],
+                                  verbose=-1).fit(X, y)
+    ensemble = load_model(model)
+    names = ensemble.feature_names
+    everything = [(names[a], names[b]) for a in range(4) for b in range(a + 1, 4)]
+    result = h_statistic(ensemble, X, pairs=everything, sample=200, overall=False)
+    within = result.pairs.apply(lambda r: {r.feature_a, r.feature_b} in ({names[0], names[1]}, {names[2], names[3]}),
+                                axis=1)
+    assert (result.pairs.h2[~within] == 0.0).all() and (result.pairs.h[~within] == 0.0).all()
+    assert not result.pairs.shares_path[~within].any()
+    assert (result.pairs.h2[within] > 0.05).all()
+
+
+# --------------------------------------------------------------------------- result and options
+def test_result_facts_sampling_and_json(fleet_frame):
+    xgb = pytest.importorskip("xgboost")
+    frame, _, classes = fleet_frame
+    model = xgb.XGBClassifier(n_estimators=6, max_depth=3, enable_categorical=True, n_jobs=1).fit(frame, classes)
+    everything = h_statistic(model, frame, sample=70, triples=True)
+    assert everything.n_rows == 70 and everything.output is None
+    assert set(everything.pairs.output) == {0, 1, 2}
+    one = h_statistic(model, frame, sample=70, triples=True, output=1)
+    assert "output" not in one.pairs
+    subset = everything.pairs[everything.pairs.output == 1].drop(columns="output").reset_index(drop=True)
+    pd.testing.assert_frame_equal(subset, one.pairs, check_exact=False, rtol=1e-12)
+    for _, group in everything.pairs.groupby("output"):
+        assert group.h2.is_monotonic_decreasing
+    payload = json.loads(json.dumps(one.to_dict()))
+    assert payload["method"] == "exact" and payload["n_rows"] == 70 and "limits" in payload
+    assert len(payload["pairs"]) == len(one.pairs)
+
+
+def test_parallel_matches_serial(fleet_frame):
+    """joblib over tree chunks (exact) and over functions (brute) changes nothing but the schedule."""
+    xgb = pytest.importorskip("xgboost")
+    frame, cost, _ = fleet_frame
+    model = xgb.XGBRegressor(n_estimators=10, max_depth=3, enable_categorical=True, n_jobs=1).fit(frame, cost)
+    ensemble = load_model(model)
+    serial = h_statistic(ensemble, frame, sample=50, method="brute")
+    parallel = h_statistic(ensemble, frame, sample=50, method="brute", n_jobs=2)
+    pd.testing.assert_frame_equal(serial.pairs, parallel.pairs)
+    from treeprobe import pdp
+
+    small_budget = pdp.CELL_BUDGET
+    try:
+        pdp.CELL_BUDGET = 2000  # many chunks, so the parallel sum really combines parts
+        import treeprobe.hstat as hstat_module
+
+        hstat_module.CELL_BUDGET = 2000
+        chunked = h_statistic(ensemble, frame, sample=50, n_jobs=2)
+    finally:
+        pdp.CELL_BUDGET = small_budget
+        hstat_module.CELL_BUDGET = small_budget
+    _compare(chunked, serial, rtol=1e-9)
+
+
+def test_dask_backend():
+    """The brute path runs on an in-process dask.distributed cluster through joblib's Dask backend."""
+    distributed = pytest.importorskip("distributed")
+    import joblib
+
+    X = _uniform(60, -1, 1, 9)
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=2), joblib.parallel_backend("dask"):
+        result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, n_jobs=-1)
+    assert abs(_pair_h2(result) - 1.0) < 0.05
+
+
+# --------------------------------------------------------------------------- bad input
+@pytest.fixture(scope="module")
+def small_tree_model():
+    xgb = pytest.importorskip("xgboost")
+    rng = np.random.default_rng(0)
+    frame = pd.DataFrame(rng.normal(size=(100, 3)), columns=["fuel_price", "shift_length", "load_kg"])
+    model = xgb.XGBRegressor(n_estimators=5, max_depth=2, n_jobs=1).fit(frame, frame.fuel_price * frame.load_kg)
+    return load_model(model), frame
+
+
+def test_wrong_columns(small_tree_model):
+    ensemble, frame = small_tree_model
+    with pytest.raises(DataError, match="shift_length"):
+        h_statistic(ensemble, frame.drop(columns="shift_length"))
+    with pytest.raises(DataError, match="2 columns.*3 features"):
+        h_statistic(ensemble, frame.to_numpy()[:, :2])
+
+
+def test_too_few_rows_and_missing_columns(small_tree_model):
+    ensemble, frame = small_tree_model
+    with pytest.raises(DataError, match="1 rows; at least 2"):
+        h_statistic(ensemble, frame.iloc[:1])
+    with pytest.raises(DataError, match="'load_kg' is missing"):
+        h_statistic(ensemble, frame.assign(load_kg=np.nan))
+    with pytest.warns(UserWarning, match="constant column.*'shift_length'"):
+        result = h_statistic(ensemble, frame.assign(shift_length=3.0))
+    assert (result.pairs.h[result.pairs.feature_b == "shift_length"] == 0).all()
+
+
+def test_bad_callable_and_options(small_tree_model):
+    ensemble, frame = small_tree_model
+    X = frame.to_numpy()
+    with pytest.raises(DataError, match=r"shape \(50,\) for 100 rows"):
+        h_statistic(lambda A: A[:50, 0], X)
+    with pytest.raises(DataError, match="non-finite"):
+        h_statistic(lambda A: np.full(len(A), np.inf), X)
+    with pytest.raises(DataError, match="method='exact' needs a tree ensemble"):
+        h_statistic(lambda A: A[:, 0], X, method="exact")
+    for option, value, word in (("method", "fast", "method"), ("sample", 1, "sample"), ("scale", "odds", "scale"),
+                                ("n_jobs", 0, "n_jobs"), ("output", 3, "output"), ("progress", "yes", "progress")):
+        with pytest.raises(DataError, match=word):
+            h_statistic(ensemble, frame, **{option: value})
+    with pytest.raises(DataError, match="unknown feature 'wind_speed'"):
+        h_statistic(ensemble, frame, pairs=[("fuel_price", "wind_speed")])
+    with pytest.raises(DataError, match="triples must be"):
+        h_statistic(ensemble, frame, triples="all")
+    with pytest.raises(DataError, match="repeats a feature"):
+        h_statistic(ensemble, frame, pairs=[("fuel_price", "fuel_price")])
+
+
+def test_callable_receives_frames_with_their_dtypes():
+    """A callable gets DataFrames, text columns included. Reference: the closed form for
+    f = c * s with c = 1[crew == "night"]: on the rows, F_cs - F_c - F_s = (c - mean c)(s - mean s) up to a
+    constant (empirical partial dependence, Friedman 2001 eq. 9), so h is that product's standard deviation
+    (Friedman & Popescu 2008, eq. 44 numerator)."""
+    rng = np.random.default_rng(8)
+    frame = pd.DataFrame({"crew": rng.choice(["day", "night"], 300), "shift_length": rng.uniform(4, 12, 300)})
+
+    def model(rows):
+        assert isinstance(rows, pd.DataFrame) and rows.crew.dtype == frame.crew.dtype
+        return (rows.crew == "night").to_numpy() * rows.shift_length.to_numpy()
+
+    result = h_statistic(model, frame, overall=False)
+    night = (frame.crew == "night").to_numpy(dtype=float)
+    expected = np.std((night - night.mean()) * (frame.shift_length - frame.shift_length.mean()))
+    assert abs(float(result.pairs.h.iloc[0]) - expected) < 1e-9
+
+
+def test_progress_only_when_asked_or_on_a_terminal(capsys):
+    """The progress line goes to stderr; with progress=None it is shown only on a terminal (pytest's is not)."""
+    X = _uniform(40, -1, 1, 12)
+    h_statistic(lambda A: A[:, 0] * A[:, 1], X)
+    assert capsys.readouterr().err == ""
+    h_statistic(lambda A: A[:, 0] * A[:, 1], X, progress=True)
+    assert "H-statistics (brute): 5/5" in capsys.readouterr().err
