@@ -15,6 +15,7 @@ from .errors import DataError, ModelFormatError, TreeprobeError, UnsafeModelErro
 from .hstat import HStatResult, h_statistic
 from .io import load_model
 from .pdp import partial_dependence
+from .report import report
 from .structure import StructureResult, structure, structure_by_round
 from .triage import TriageResult, triage
 
@@ -29,6 +30,7 @@ __all__ = [
     "h_statistic",
     "HStatResult",
     "partial_dependence",
+    "report",
     "triage",
     "TriageResult",
     "suggest_constraints",

@@ -354,6 +354,31 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
     return 0
 
 
+# ------------------------------------------------------------------- report
+def _cmd_report(args: argparse.Namespace) -> int:
+    from .report import report
+
+    if args.validate and args.target is None:
+        raise _UsageError("--validate retrains the model and needs --target")
+    ens = _load(args)
+    data = _read_data(args.data)
+    triage_result = _run_triage(args, ens, data)
+    validation = None
+    if args.validate:
+        from .constraints import suggest_constraints, validate_constraints
+
+        suggestion = suggest_constraints(triage_result)
+        validation = validate_constraints(
+            getattr(args, "model_object", None) or ens, data.drop(columns=[args.target]),
+            data[args.target].to_numpy(), suggestion, folds=args.folds, random_state=args.seed, n_jobs=args.jobs,
+            progress=False if args.quiet else None,
+        )
+    path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result, validation=validation,
+                  top_pairs=args.top_pairs, title=args.title, progress=False if args.quiet else None)
+    print(f"wrote {path}", file=sys.stderr)
+    return 0
+
+
 # --------------------------------------------------------------------- demo
 def _cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
@@ -461,6 +486,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
     p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
     p.set_defaults(handler=_cmd_constrain, triples=True)
+
+    p = sub.add_parser("report", help="one self-contained HTML page: verdicts, maps, partial dependence, constraints",
+                       description="Run the triage on data and write one self-contained HTML page (inline CSS and "
+                                   "images; opens from disk) with the ranked pairs, the pair map, the interaction "
+                                   "graph, partial dependence of the top pairs, when pairs entered the model, the "
+                                   "suggested constraints and the cautions.")
+    p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
+                   "(with --trust-pickle)")
+    p.add_argument("--trust-pickle", action="store_true",
+                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+    p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
+                   help="HTML file to write (default: treeprobe-report.html)")
+    p.add_argument("--output", type=int, default=None, metavar="I", help="output (class) of a multiclass model")
+    p.add_argument("--title", help="page title (default: from the model file name)")
+    p.add_argument("--top-pairs", type=int, default=4, metavar="N", help="pairs drawn as partial dependence (default 4)")
+    p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")
+    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
+    _add_triage_options(p)
+    p.set_defaults(handler=_cmd_report, triples=True)
 
     p = sub.add_parser("demo", help="run every step on an invented warehouse-energy data set with a known answer",
                        description="Generate data with a known ground truth (refrigerated warehouse rooms' daily "

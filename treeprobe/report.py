@@ -509,10 +509,13 @@ def _graph_figure(canvas: _Canvas, result: Any) -> tuple[str, str]:
     drawn = nx.Graph()
     drawn.add_nodes_from(graph.nodes)
     drawn.add_edges_from(edges["interaction"] + edges["confounded"] + ([] if omit_dotted else edges["co-split"]))
-    # A seeded layout: the same model gives the same picture every time.
-    position = nx.spring_layout(drawn, seed=0, k=1.6 / math.sqrt(max(drawn.number_of_nodes(), 1)))
+    # Features on a circle, each group of connected features side by side: a force layout pulls
+    # interacting features on top of each other and hides the very edges the figure is for.
+    components = sorted(nx.connected_components(drawn), key=lambda c: (-len(c), sorted(c)))
+    order = [n for component in components for n in sorted(component)]
+    position = nx.circular_layout(order)
     gain = np.array([max(float(graph.nodes[n].get("gain", 0.0)), 0.0) for n in drawn.nodes])
-    size = 250 + 1800 * (gain / gain.max() if gain.size and gain.max() > 0 else np.zeros_like(gain))
+    size = 120 + 900 * (gain / gain.max() if gain.size and gain.max() > 0 else np.zeros_like(gain))
     fig, ax = canvas.figure(figsize=(8.4, 6.0))
     widths = {"interaction": 3.2, "confounded": 2.2, "co-split": 1.0}
     for verdict in ("co-split", "confounded", "interaction"):
@@ -946,7 +949,7 @@ def report(
                                           "pairs are labelled; the dashed line is the convention min_h2."),
             "graph": _figure(graph_svg, "Used features (area by total gain) joined by their pairs: interaction as thick "
                                         "solid lines, confounded as dashed lines, co-split as thin dotted lines. "
-                                        "Layout seeded (spring layout, seed 0)." + _e(graph_note)),
+                                        "Features sit on a circle, connected groups side by side." + _e(graph_note)),
             "dependence": dependence,
             "rounds": rounds,
             "constraints": _constraints_section(suggestion, validation),
