@@ -512,7 +512,7 @@ def _summary(out_dir: Path, X: pd.DataFrame, truth: dict, walked: Any, truth_h: 
     ]
     if lightgbm_recovered is not None:
         agree = sum(lightgbm_recovered[key] == recovered[key] for key in recovered)
-        lines.append(f"LightGBM ({lightgbm_result.ensemble.n_trees} trees, same constraint group, floor min_h2 without "
+        lines.append(f"LightGBM ({lightgbm_result.ensemble.n_trees} trees, same constraint group, no noise-floor "
                      f"refits) recovers {sum(lightgbm_recovered.values())} of {len(lightgbm_recovered)} items and "
                      f"agrees with XGBoost on {agree}.")
     lines += [

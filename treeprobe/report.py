@@ -100,14 +100,14 @@ _CSS = """
 * { box-sizing: border-box; }
 body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif;
        color: var(--ink); background: #fff; margin: 0; line-height: 1.45; font-size: 15px; }
-main { max-width: 1200px; margin: 0 auto; padding: 24px 32px 48px; }
+main { max-width: 1200px; margin: 0 auto; padding: 24px 20px 48px; }
 h1 { font-size: 1.7em; margin: 0.2em 0 0.1em; }
 h2 { font-size: 1.3em; border-bottom: 2px solid var(--ink); padding-bottom: 2px; margin-top: 1.8em; }
 h3 { font-size: 1.05em; margin: 1.2em 0 0.3em; }
 p.lede { color: var(--muted); margin-top: 0; }
 nav ol { columns: 2; padding-left: 1.6em; margin: 0.6em 0; max-width: 52em; }
 nav a { color: var(--ink); }
-table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.88em; }
+table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.8em; }
 .wide { overflow-x: auto; max-width: 100%; }
 th, td { border-bottom: 1px solid var(--rule); padding: 3px 7px; text-align: left; vertical-align: top; }
 .interval { color: var(--muted); font-size: 0.9em; }
