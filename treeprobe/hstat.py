@@ -71,6 +71,7 @@ from scipy.sparse import csr_matrix
 
 from .ensemble import TreeEnsemble
 from .errors import DataError
+from .output import to_jsonable
 from .pdp import (
     CELL_BUDGET,
     FittedModel,
@@ -100,6 +101,7 @@ LIMITS = (
 )
 # Callables have no tree structure to pick triples from; take them among the strongest pairs.
 AUTO_TRIPLE_TOP_PAIRS = 10
+_SCHEMA = "treeprobe.hstat/1"
 
 
 # --------------------------------------------------------------------------- result
@@ -141,37 +143,21 @@ class HStatResult:
     limits: str = field(default=LIMITS)
 
     def to_dict(self) -> dict:
-        """JSON-ready dictionary: the facts plus each table as a list of records (NaN becomes None)."""
-
-        def records(frame: pd.DataFrame) -> list[dict]:
-            out = []
-            for row in frame.to_dict(orient="records"):
-                clean = {}
-                for key, value in row.items():
-                    if value is pd.NA or (isinstance(value, float) and np.isnan(value)):
-                        clean[key] = None
-                    elif isinstance(value, (np.bool_, bool)):
-                        clean[key] = bool(value)
-                    elif isinstance(value, np.integer):
-                        clean[key] = int(value)
-                    elif isinstance(value, np.floating):
-                        clean[key] = float(value)
-                    else:
-                        clean[key] = value
-                out.append(clean)
-            return out
-
-        return {
-            "method": self.method,
-            "n_rows": int(self.n_rows),
-            "scale": self.scale,
-            "output": self.output,
-            "seconds": float(self.seconds),
-            "limits": self.limits,
-            "pairs": records(self.pairs),
-            "overall": records(self.overall),
-            "triples": records(self.triples),
-        }
+        """JSON-ready dictionary: schema, the facts, the limits and each table as a list of records (NaN becomes None)."""
+        return to_jsonable(
+            {
+                "schema": _SCHEMA,
+                "method": self.method,
+                "n_rows": int(self.n_rows),
+                "scale": self.scale,
+                "output": self.output,
+                "seconds": float(self.seconds),
+                "limits": self.limits,
+                "pairs": self.pairs,
+                "overall": self.overall,
+                "triples": self.triples,
+            }
+        )
 
 
 # --------------------------------------------------------------------------- progress
