@@ -147,3 +147,16 @@ def test_triage_and_constrain(saved_regressor, tmp_path):
     assert set(nx.read_graphml(graph).nodes) >= {"oven_temp", "dough_age", "humidity"}
     proc = run("constrain", path, "--data", data, "--validate", check_code=2)
     assert "needs --target" in proc.stderr
+
+
+def test_report_command_writes_one_page(saved_regressor, tmp_path):
+    pytest.importorskip("matplotlib")
+    path, data, _ = saved_regressor
+    page = tmp_path / "page.html"
+    proc = run("report", path, "--data", data, "--target", "waste_kg", "--sample", "120", "--resamples", "2",
+               "--null-refits", "0", "-o", page, "--top-pairs", "1")
+    assert proc.stdout == "" and f"wrote {page}" in proc.stderr
+    text = page.read_text()
+    for section in ("summary", "pairs", "constraints", "cautions"):
+        assert f'id="{section}"' in text
+    assert "oven_temp" in text and "http://" not in text.replace("http://www.w3.org", "")

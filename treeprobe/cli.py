@@ -63,6 +63,13 @@ def _csv_text(frame: pd.DataFrame) -> str:
     return frame.to_csv(index=False, lineterminator="\n")
 
 
+def _emit_csv(tables: dict[str, pd.DataFrame], args: argparse.Namespace) -> int:
+    if args.table not in tables:
+        raise _UsageError(f"--table {args.table!r} is not available here; choose from {', '.join(tables)}")
+    _emit(_csv_text(tables[args.table]), args.out)
+    return 0
+
+
 def _load(args: argparse.Namespace):
     from .ensemble import TreeEnsemble
     from .io import load_model, read_model_file
@@ -122,10 +129,7 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
         _emit(dumps_json(payload), args.out)
         return 0
     if args.format == "csv":
-        if args.table not in tables:
-            raise _UsageError(f"--table {args.table!r} is not available with --order {args.order}; choose from {list(tables)}")
-        _emit(_csv_text(tables[args.table]), args.out)
-        return 0
+        return _emit_csv(tables, args)
     lines = _model_lines(result.ensemble_summary)
     top = args.top
     lines += ["", format_table(tables["features"].sort_values("gain", ascending=False), max_rows=top,
@@ -194,10 +198,7 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
         _emit(dumps_json(result.to_dict()), args.out)
         return 0
     if args.format == "csv":
-        if args.table not in tables:
-            raise _UsageError(f"--table {args.table!r} is not available; choose from {list(tables)}")
-        _emit(_csv_text(tables[args.table]), args.out)
-        return 0
+        return _emit_csv(tables, args)
     facts = result.to_dict()
     lines = [
         f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)",
@@ -284,18 +285,24 @@ def _cmd_triage(args: argparse.Namespace) -> int:
         _emit(dumps_json(result.to_dict()), args.out)
         return 0
     if args.format == "csv":
-        tables = {"pairs": result.pairs, "triples": result.triples, "features": result.features}
-        if args.table not in tables:
-            raise _UsageError(f"--table {args.table!r} is not available; choose from {list(tables)}")
-        _emit(_csv_text(tables[args.table]), args.out)
-        return 0
+        return _emit_csv({"pairs": result.pairs, "triples": result.triples, "features": result.features}, args)
     _emit("\n".join(_triage_text(result, args)), args.out)
     return 0
 
 
 # ---------------------------------------------------------------- constrain
+def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: Any):
+    from .constraints import validate_constraints
+
+    # A trusted pickle's live model knows its full training set-up; a file only what it stores.
+    return validate_constraints(
+        getattr(args, "model_object", None) or ens, data.drop(columns=[args.target]), data[args.target].to_numpy(),
+        groups, folds=args.folds, random_state=args.seed, n_jobs=args.jobs, progress=False if args.quiet else None,
+    )
+
+
 def _cmd_constrain(args: argparse.Namespace) -> int:
-    from .constraints import interaction_graph, suggest_constraints, validate_constraints, write_graphml
+    from .constraints import interaction_graph, suggest_constraints, write_graphml
 
     if args.validate and args.target is None:
         raise _UsageError("--validate retrains the model and needs --target")
@@ -306,12 +313,8 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
     library = args.library or (ens.library if ens.library in ("xgboost", "lightgbm") else "xgboost")
     validation = None
     if args.validate:
-        features = data.drop(columns=[args.target])
         groups = suggestion.alternative if (suggestion.overlapping and args.non_overlapping) else suggestion.groups
-        validation = validate_constraints(
-            ens if ens.library in ("xgboost", "lightgbm") else None, features, data[args.target].to_numpy(), groups,
-            folds=args.folds, random_state=args.seed, n_jobs=args.jobs,
-        )
+        validation = _validate(args, ens, data, groups)
     if args.graph:
         write_graphml(interaction_graph(result), args.graph)
         print(f"wrote {args.graph}", file=sys.stderr)
@@ -363,17 +366,12 @@ def _cmd_report(args: argparse.Namespace) -> int:
     ens = _load(args)
     data = _read_data(args.data)
     triage_result = _run_triage(args, ens, data)
-    validation = None
-    if args.validate:
-        from .constraints import suggest_constraints, validate_constraints
+    from .constraints import suggest_constraints
 
-        suggestion = suggest_constraints(triage_result)
-        validation = validate_constraints(
-            getattr(args, "model_object", None) or ens, data.drop(columns=[args.target]),
-            data[args.target].to_numpy(), suggestion, folds=args.folds, random_state=args.seed, n_jobs=args.jobs,
-            progress=False if args.quiet else None,
-        )
-    path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result, validation=validation,
+    suggestion = suggest_constraints(triage_result)
+    validation = _validate(args, ens, data, suggestion) if args.validate else None
+    path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result, suggestion=suggestion,
+                  validation=validation,
                   top_pairs=args.top_pairs, title=args.title, progress=False if args.quiet else None)
     print(f"wrote {path}", file=sys.stderr)
     return 0
