@@ -304,8 +304,8 @@ def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: An
 def _cmd_constrain(args: argparse.Namespace) -> int:
     from .constraints import interaction_graph, suggest_constraints, write_graphml
 
-    if args.validate and args.target is None:
-        raise _UsageError("--validate retrains the model and needs --target")
+    if args.target is None:
+        raise _UsageError("constrain needs --target: its noise floor and --validate retrain the model")
     ens = _load(args)
     data = _read_data(args.data)
     result = _run_triage(args, ens, data)
