@@ -120,6 +120,8 @@ def test_multiclass_tree_per_output_and_vector_leaves():
         (dict(tree_offsets=[0, 5, 9]), "tree_offsets"),
         (dict(value=[0, np.inf, 0, 2, 3, 0, 10, 20]), "non-finite"),
         (dict(link="probit"), "link"),
+        (dict(categories=[[], [], [], [], [], [-3, 1], [], []]), "category -3"),
+        (dict(categories=[[], [], [], [], [], [2**40], [], []]), "codes must lie"),
     ],
 )
 def test_invalid_graphs_raise_model_format_error(change, message):

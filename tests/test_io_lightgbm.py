@@ -443,3 +443,26 @@ def test_declared_categorical_features_and_line_endings(fixture_rows: np.ndarray
     assert by_name.feature_types[1] == by_name.feature_types[3] == "categorical"
     windows = load_lightgbm_text(text.replace("\n", "\r\n").encode(), source="m.txt")
     np.testing.assert_array_equal(windows.predict_raw(fixture_rows), plain.predict_raw(fixture_rows))
+
+
+@pytest.mark.parametrize("payload", ["[" * 50_000, "[5]", "[null]", "[[1, [2]]]", '[[{"a": 1}]]'])
+def test_malformed_pandas_categorical_line_is_a_format_error(payload):
+    """Found by scripts/fuzz_loaders.py (categories): deep nesting raised RecursionError, odd shapes TypeError later.
+
+    Reference: LightGBM's Python package writes ``pandas_categorical:`` followed by ``json.dumps`` of a list of
+    category lists, or ``null`` (lightgbm/basic.py, _dump_pandas_categorical).
+    """
+    text = (FIXTURES / "categorical_pandas.txt").read_text()
+    lines = [line for line in text.split("\n") if not line.startswith("pandas_categorical:")]
+    bad = "\n".join(lines + ["pandas_categorical:" + payload])
+    with pytest.raises(ModelFormatError, match="pandas_categorical"):
+        load_lightgbm_text(bad, source="bad.txt")
+
+
+def test_repeated_feature_name_is_a_format_error():
+    """LightGBM itself refuses a feature name given twice (``Dataset``: "appears more than one time")."""
+    text = (FIXTURES / "binary_late.txt").read_text()
+    names = next(line for line in text.split("\n") if line.startswith("feature_names=")).split("=")[1].split()
+    bad = text.replace("feature_names=" + " ".join(names), "feature_names=" + " ".join([names[0]] * len(names)), 1)
+    with pytest.raises(ModelFormatError, match=rf"line \d+: feature name '{names[0]}' appears more than once"):
+        load_lightgbm_text(bad, source="dup.txt")

@@ -525,3 +525,85 @@ def test_declared_deleted_nodes_must_match(models):
     tree["tree_param"]["num_deleted"] = str(int(tree["tree_param"]["num_deleted"]) + 1)
     with pytest.raises(ModelFormatError, match=r"unreachable nodes but declares num_deleted"):
         load_xgboost_json(json.dumps(doc), source="pruned.json")
+
+
+
+@pytest.mark.parametrize(("key", "value"), [("num_class", "2147483648"), ("num_class", "99999999999999999999"),
+                                            ("num_target", "4000000000"), ("num_class", "7")])
+def test_absurd_output_count_is_refused_before_allocating(tmp_path, key, value):
+    """Found by scripts/fuzz_loaders.py: a corrupt num_class made the loader size arrays by it (gigabytes).
+
+    Reference: XGBoost 2.1.4's own file (fixture), whose 3-class model needs one tree per class and round.
+    """
+    # XGBoost 2.x stores one scalar base_score, so only the tree count can expose the bad output count.
+    doc = json.loads((FIXTURES / "2.1.4" / "multiclass.json").read_bytes())
+    n_trees = len(doc["learner"]["gradient_booster"]["model"]["trees"])
+    doc["learner"]["learner_model_param"][key] = value
+    if value == "7":
+        # A plausible count that still exceeds the trees: keep only the first round's three trees.
+        model = doc["learner"]["gradient_booster"]["model"]
+        model["trees"], model["tree_info"] = model["trees"][:3], model["tree_info"][:3]
+        n_trees = 3
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ModelFormatError, match=rf"declares \d+ outputs .* only {n_trees} trees"):
+        load_model(path)
+
+
+def test_huge_unnamed_feature_count_is_refused(tmp_path):
+    """Found by auditing with scripts/fuzz_loaders.py: 10 million unnamed features in a 5 kB file cost 3 s and 1 GB.
+
+    Reference: XGBoost 2.1.4's own file (fixture) with its feature names removed, as a model trained on a bare
+    array is saved.
+    """
+    doc = json.loads((FIXTURES / "2.1.4" / "binary.json").read_bytes())
+    doc["learner"]["feature_names"], doc["learner"]["feature_types"] = [], []
+    path = tmp_path / "model.json"
+    doc["learner"]["learner_model_param"]["num_feature"] = "9999999"
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ModelFormatError, match="num_feature is 9999999 but the file stores no feature names"):
+        load_model(path)
+    doc["learner"]["learner_model_param"]["num_feature"] = str(2**20)
+    path.write_text(json.dumps(doc))
+    assert load_model(path).n_features == 2**20
+
+
+def test_integer_literal_beyond_python_digit_limit_is_a_format_error(tmp_path):
+    """Found by scripts/fuzz_loaders.py (long_number): json.loads raised a bare ValueError on a 5000-digit integer.
+
+    Reference: Python's documented integer string conversion limit (4300 digits, ``sys.get_int_max_str_digits``).
+    """
+    text = (FIXTURES / "2.1.4" / "binary.json").read_text()
+    bad = text.replace('"num_feature":"5"', '"num_feature":' + "9" * 5000, 1)
+    assert bad != text
+    with pytest.raises(ModelFormatError, match="unreadable JSON.*4300 digits"):
+        load_xgboost_json(bad, source="long.json")
+
+
+def test_repeated_feature_names_are_refused(tmp_path):
+    """XGBoost itself refuses repeated names (``DMatrix``: "feature_names must be unique"); so must a loaded file."""
+    doc = json.loads((FIXTURES / "2.1.4" / "binary.json").read_bytes())
+    doc["learner"]["feature_names"] = ["route_km"] * len(doc["learner"]["feature_names"])
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ModelFormatError, match="feature_names repeats route_km"):
+        load_model(path)
+    with pytest.raises(ModelFormatError, match="feature_names repeats a"):
+        load_model(FIXTURES / "2.1.4" / "binary.json", feature_names=["a"] * 5)
+    with pytest.raises(TypeError, match="not a single string"):
+        load_model(FIXTURES / "2.1.4" / "binary.json", feature_names="abcde")
+
+
+def test_category_code_beyond_float32_integers_is_refused(tmp_path):
+    """Found by scripts/fuzz_loaders.py (huge_number, seed 7): a 2**63-1 category overflowed at prediction.
+
+    Reference: XGBoost compares category codes as float32, whose integers are exact only below 2**24
+    (IEEE 754 binary32, 24-bit significand); XGBoost refuses larger codes in its data checks.
+    """
+    doc = json.loads((FIXTURES / "3.2.0" / "categorical.json").read_bytes())
+    tree = next(t for t in doc["learner"]["gradient_booster"]["model"]["trees"] if t["categories"])
+    tree["categories"][0] = 2**63 - 1
+    path = tmp_path / "model.json"
+    path.write_text(json.dumps(doc))
+    with pytest.raises(ModelFormatError, match="'categories' holds 9223372036854775807"):
+        load_model(path)

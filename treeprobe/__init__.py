@@ -10,8 +10,9 @@ from .constraints import (
     validate_constraints,
     write_graphml,
 )
+from .data import DataReport, load_data, prepare_data
 from .ensemble import TreeEnsemble
-from .errors import DataError, ModelFormatError, TreeprobeError, UnsafeModelError, UnsupportedModelError
+from .errors import DataError, DataWarning, ModelFormatError, TreeprobeError, UnsafeModelError, UnsupportedModelError
 from .hstat import HStatResult, h_statistic
 from .io import load_model
 from .pdp import partial_dependence
@@ -44,5 +45,9 @@ __all__ = [
     "UnsafeModelError",
     "UnsupportedModelError",
     "DataError",
+    "DataWarning",
+    "load_data",
+    "prepare_data",
+    "DataReport",
     "__version__",
 ]

@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 import traceback
+import warnings
 from collections.abc import Sequence
 from dataclasses import replace
 from typing import Any
@@ -149,10 +150,15 @@ def _wrap(text: str, width: int = 100) -> str:
 
 
 # -------------------------------------------------------------------- hstat
-def _read_data(path: str):
-    from .data import read_table
+def _read_data(args: argparse.Namespace, ens: Any) -> pd.DataFrame:
+    """The model's feature columns (and the target) of the data file, checked and coerced; notes to stderr."""
+    from .data import load_data
 
-    return read_table(path)
+    frame, report = load_data(ens, args.data, target=getattr(args, "target", None))
+    if not getattr(args, "quiet", False):
+        for note in report.coerced:
+            print(f"treeprobe: note: {note}", file=sys.stderr)
+    return frame
 
 
 def _parse_pairs(text: str | None) -> list[tuple[str, str]] | None:
@@ -178,7 +184,7 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
     if args.sample is not None and args.sample < 2:
         raise _UsageError(f"--sample must be at least 2, got {args.sample}")
     ens = _load(args)
-    data = _read_data(args.data)
+    data = _read_data(args, ens)
     result = h_statistic(
         ens,
         data,
@@ -280,7 +286,7 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
 
 def _cmd_triage(args: argparse.Namespace) -> int:
     ens = _load(args)
-    result = _run_triage(args, ens, _read_data(args.data))
+    result = _run_triage(args, ens, _read_data(args, ens))
     if args.format == "json":
         _emit(dumps_json(result.to_dict()), args.out)
         return 0
@@ -307,7 +313,7 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
     if args.target is None:
         raise _UsageError("constrain needs --target: its noise floor and --validate retrain the model")
     ens = _load(args)
-    data = _read_data(args.data)
+    data = _read_data(args, ens)
     result = _run_triage(args, ens, data)
     suggestion = suggest_constraints(result, min_strength=args.min_strength)
     library = args.library or (ens.library if ens.library in ("xgboost", "lightgbm") else "xgboost")
@@ -364,7 +370,7 @@ def _cmd_report(args: argparse.Namespace) -> int:
     if args.validate and args.target is None:
         raise _UsageError("--validate retrains the model and needs --target")
     ens = _load(args)
-    data = _read_data(args.data)
+    data = _read_data(args, ens)
     triage_result = _run_triage(args, ens, data)
     from .constraints import suggest_constraints
 
@@ -519,6 +525,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    # Warnings (unused columns, unseen categories) as one plain line each, not Python's file:line form.
+    warnings.formatwarning = lambda message, category, *rest, **kw: f"treeprobe: warning: {message}\n"
     if not getattr(args, "command", None):
         parser.print_help(sys.stderr)
         return 2

@@ -1,46 +1,211 @@
-"""Reading user data files (CSV; Parquet when pyarrow is installed) into DataFrames."""
+"""Reading user data (CSV; Parquet when pyarrow is installed) and fitting it to a model's features.
+
+Data handed to treeprobe are untrusted: columns may be missing, misspelt,
+extra or out of order, numbers may arrive as text, booleans or infinities,
+and a file may hold far more rows than a run needs. This module turns such
+input into a frame whose columns are exactly the model's features, or fails
+with one :class:`~treeprobe.errors.DataError` that names the column, the
+first bad value and its row. What it changed on the way (columns matched by
+position, text read as numbers, booleans read as 0/1) is returned as a
+:class:`DataReport`, and what it ignored (extra columns) is also announced
+with a :class:`~treeprobe.errors.DataWarning`.
+
+Large files are read with bounded memory: only the needed columns are
+parsed, and a row sample is drawn while reading, chunk by chunk, by giving
+every row a uniform random key and keeping the ``sample`` smallest keys --
+a uniform sample without replacement (Efraimidis & Spirakis, 2006, with
+equal weights) that never holds more than one chunk plus the sample.
+
+References
+----------
+.. [1] P. S. Efraimidis and P. G. Spirakis, "Weighted random sampling with a
+   reservoir", Information Processing Letters 97(5), 181-185, 2006.
+"""
 
 from __future__ import annotations
 
 import os
+import warnings
+from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from .ensemble import TreeEnsemble, UnseenCategoryWarning, _missing_columns_message, _numeric_values
+from .errors import DataError, DataWarning
 
-__all__ = ["read_table"]
+__all__ = ["read_table", "prepare_data", "load_data", "DataReport"]
+
+_PARQUET_SUFFIXES = (".parquet", ".pq")
+_CHUNK_ROWS = 200_000
 
 
-def read_table(path: str | os.PathLike) -> pd.DataFrame:
-    """Read a CSV or Parquet file into a DataFrame.
+@dataclass(frozen=True)
+class DataReport:
+    """What :func:`prepare_data` did to fit a frame to a model.
+
+    Attributes
+    ----------
+    n_rows : int
+        Rows in the prepared frame.
+    matched_by : {"name", "position"}
+        How data columns were paired with the model's features. "position"
+        only when the model has generic names (``f0, f1, ...``) and the data
+        have exactly as many feature columns.
+    extra_columns : tuple of str
+        Data columns no feature uses (ignored; the target is not counted).
+    coerced : tuple of str
+        One note per column whose type was changed (text read as numbers,
+        booleans read as 0/1).
+    unseen_categories : tuple of str
+        One note per categorical column holding levels the model never saw.
+    target : str or None
+        The target column kept beside the features, if any.
+    """
+
+    n_rows: int
+    matched_by: str
+    extra_columns: tuple[str, ...] = ()
+    coerced: tuple[str, ...] = ()
+    unseen_categories: tuple[str, ...] = ()
+    target: str | None = None
+
+    def lines(self) -> list[str]:
+        """The report as short lines of text, e.g. for standard error."""
+        out = [f"data: {self.n_rows:,} rows, columns matched to the model's features by {self.matched_by}"]
+        if self.extra_columns:
+            shown = ", ".join(self.extra_columns[:10]) + (" ..." if len(self.extra_columns) > 10 else "")
+            out.append(f"data: ignored {len(self.extra_columns)} column(s) the model does not use: {shown}")
+        out += [f"data: {note}" for note in self.coerced]
+        out += [f"data: {note}" for note in self.unseen_categories]
+        return out
+
+
+def _is_parquet(path: Path) -> bool:
+    return path.suffix.lower() in _PARQUET_SUFFIXES
+
+
+def _header(path: Path) -> list[str]:
+    """Column names of a CSV or Parquet file, without reading its rows."""
+    if _is_parquet(path):
+        pyarrow_parquet = _pyarrow_parquet(path)
+        try:
+            return [str(c) for c in pyarrow_parquet.read_schema(path).names]
+        except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file
+            raise DataError(f"{path}: cannot read Parquet: {type(exc).__name__}: {exc}") from None
+    try:
+        return [str(c) for c in pd.read_csv(path, nrows=0).columns]
+    except pd.errors.EmptyDataError:
+        raise DataError(f"{path}: the CSV file is empty") from None
+    except (pd.errors.ParserError, UnicodeDecodeError, OSError) as exc:
+        raise DataError(f"{path}: cannot read CSV: {exc}") from None
+
+
+def _pyarrow_parquet(path: Path):
+    try:
+        import pyarrow.parquet
+    except ImportError:
+        raise DataError(f"{path}: reading Parquet needs pyarrow (pip install 'treeprobe[parquet]')") from None
+    return pyarrow.parquet
+
+
+def _keep_smallest_keys(frame: pd.DataFrame, keys: np.ndarray, sample: int) -> tuple[pd.DataFrame, np.ndarray]:
+    if len(frame) <= sample:
+        return frame, keys
+    chosen = np.sort(np.argpartition(keys, sample - 1)[:sample])
+    return frame.iloc[chosen], keys[chosen]
+
+
+def _sampled_csv(path: Path, columns: list[str] | None, sample: int, random_state: int) -> pd.DataFrame:
+    """A uniform sample of ``sample`` rows drawn chunk by chunk; rows keep their 0-based position as index."""
+    rng = np.random.default_rng(random_state)
+    kept: pd.DataFrame | None = None
+    kept_keys = np.zeros(0)
+    start = 0
+    with pd.read_csv(path, usecols=columns, chunksize=max(_CHUNK_ROWS, sample), low_memory=False) as reader:
+        for chunk in reader:
+            chunk.index = pd.RangeIndex(start, start + len(chunk))
+            start += len(chunk)
+            keys = rng.random(len(chunk))
+            pool = chunk if kept is None else pd.concat([kept, chunk])
+            kept, kept_keys = _keep_smallest_keys(pool, np.concatenate([kept_keys, keys]), sample)
+    if kept is None:
+        raise DataError(f"{path}: the table has no rows")
+    return kept
+
+
+def read_table(
+    path: str | os.PathLike,
+    *,
+    columns: list[str] | None = None,
+    sample: int | None = None,
+    random_state: int = 0,
+) -> pd.DataFrame:
+    """Read a CSV or Parquet file into a DataFrame, optionally only some columns and a row sample.
 
     Parameters
     ----------
     path : str or path
         ``.parquet``/``.pq`` files are read with pyarrow (optional extra
         ``treeprobe[parquet]``); anything else is read as CSV.
+    columns : list of str, optional
+        Read only these columns (in the file's order). Every one must exist.
+    sample : int, optional
+        Keep a uniform random sample of this many rows (all rows when the
+        file has fewer), drawn while reading so that memory stays bounded by
+        one chunk of rows plus the sample. The index holds each row's 0-based
+        position in the file.
+    random_state : int, default 0
+        Seed of the row sample.
+
+    Returns
+    -------
+    DataFrame
 
     Raises
     ------
     DataError
-        When the file is missing, unreadable, empty or not a table.
+        When the file is missing, unreadable, empty or not a table, or lacks
+        a requested column (naming close matches).
+
+    Notes
+    -----
+    The sample gives every row a key ``u ~ U(0, 1)`` and keeps the ``sample``
+    rows with the smallest keys: each subset of that size is equally likely
+    [1]_.
+
+    References
+    ----------
+    .. [1] P. S. Efraimidis and P. G. Spirakis, "Weighted random sampling
+       with a reservoir", Information Processing Letters 97(5), 2006.
     """
     p = Path(path)
+    if columns is not None and (isinstance(columns, str) or not all(isinstance(c, str) for c in columns)):
+        raise TypeError(f"columns must be a list of column names, got {columns!r}")
+    if sample is not None and (isinstance(sample, bool) or not isinstance(sample, (int, np.integer)) or sample < 1):
+        raise ValueError(f"sample must be a positive integer or None, got {sample!r}")
     if not p.is_file():
         raise DataError(f"{p}: data file not found")
-    if p.suffix.lower() in (".parquet", ".pq"):
+    if columns is not None:
+        header = _header(p)
+        missing = [c for c in columns if c not in header]
+        if missing:
+            raise DataError(f"{p}: " + _missing_columns_message(
+                missing, header, f"{len(missing)} of the {len(columns)} requested columns"))
+    if _is_parquet(p):
+        _pyarrow_parquet(p)
         try:
-            import pyarrow  # noqa: F401
-        except ImportError:
-            raise DataError(f"{p}: reading Parquet needs pyarrow (pip install 'treeprobe[parquet]')") from None
-        try:
-            frame = pd.read_parquet(p)
+            frame = pd.read_parquet(p, columns=columns)
         except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file
             raise DataError(f"{p}: cannot read Parquet: {type(exc).__name__}: {exc}") from None
+        if sample is not None and len(frame) > sample:
+            rows = np.sort(np.random.default_rng(random_state).choice(len(frame), size=sample, replace=False))
+            frame = frame.iloc[rows]
     else:
         try:
-            frame = pd.read_csv(p, low_memory=False)
+            frame = (pd.read_csv(p, usecols=columns, low_memory=False) if sample is None
+                     else _sampled_csv(p, columns, int(sample), random_state))
         except pd.errors.EmptyDataError:
             raise DataError(f"{p}: the CSV file is empty") from None
         except (pd.errors.ParserError, UnicodeDecodeError, OSError) as exc:
@@ -48,3 +213,205 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     if frame.shape[0] == 0:
         raise DataError(f"{p}: the table has no rows")
     return frame
+
+
+def _feature_columns(ensemble: TreeEnsemble, columns: list[str], target: str | None) -> tuple[list[str], str]:
+    """Data columns feeding the model's features, in the model's order, and how they were matched."""
+    candidates = [c for c in columns if c != target]
+    if len(set(candidates)) != len(candidates):
+        repeated = sorted({c for c in candidates if candidates.count(c) > 1})
+        raise DataError(f"data has repeated column names: {', '.join(repeated[:10])}")
+    names = list(ensemble.feature_names)
+    missing = [n for n in names if n not in candidates]
+    if not missing:
+        return names, "name"
+    if ensemble.metadata.get("generic_feature_names") and len(candidates) == len(names):
+        return candidates, "position"
+    raise DataError(_missing_columns_message(missing, candidates, f"{len(missing)} of the model's {len(names)} feature columns"))
+
+
+def prepare_data(
+    ensemble: TreeEnsemble,
+    frame: pd.DataFrame,
+    *,
+    target: str | None = None,
+) -> tuple[pd.DataFrame, DataReport]:
+    """Fit a data frame to a model's features: match columns, check and coerce values.
+
+    Parameters
+    ----------
+    ensemble : TreeEnsemble
+        The model whose features the data must provide.
+    frame : DataFrame
+        The data, as read by :func:`read_table` or built by hand.
+    target : str, optional
+        Name of a target column to keep (last) beside the features; it is not
+        counted as an extra column and is not checked.
+
+    Returns
+    -------
+    prepared : DataFrame
+        One column per model feature, named and ordered as the model's
+        features (plus ``target`` last, when given); numeric features as
+        float64, categorical features as they came (the model's own levels
+        code them, see :meth:`TreeEnsemble.check_X`). The index is kept, so
+        row labels in messages are the data's own.
+    report : DataReport
+        How columns were matched and what was coerced; ``report.lines()``
+        gives it as text.
+
+    Raises
+    ------
+    DataError
+        A missing feature column (all are listed, with close matches for
+        typos), a missing target column, repeated column names, a numeric
+        feature's column holding a value that is not a number (the first one
+        and its row are named), an infinite value (column and row), or a
+        feature column that is entirely missing.
+
+    Warns
+    -----
+    DataWarning
+        Extra columns (listed), or columns matched by position.
+    UnseenCategoryWarning
+        Category levels the model never saw (column and levels).
+
+    Notes
+    -----
+    Columns are matched by name, in any order. Only when the model stores no
+    names (XGBoost ``f0, f1, ...``, LightGBM ``Column_0, ...``) and the data
+    have exactly as many feature columns are they matched by position, and
+    the report says so. Numeric features accept numbers, booleans (read as
+    0/1) and text that reads as a number; empty cells are missing values,
+    which the trees route by their default directions.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from treeprobe import TreeEnsemble
+    >>> model = TreeEnsemble.from_arrays(
+    ...     feature=[0, -1, -1], threshold=[1.5, 0, 0], left=[1, -1, -1], right=[2, -1, -1],
+    ...     value=[0, 10, 20], tree_offsets=[0, 3], feature_names=["shift_length"])
+    >>> frame = pd.DataFrame({"crew": [3, 4], "shift_length": ["1.0", "2.5"]})
+    >>> prepared, report = prepare_data(model, frame)
+    >>> prepared["shift_length"].tolist()
+    [1.0, 2.5]
+    """
+    if not isinstance(ensemble, TreeEnsemble):
+        raise TypeError(f"ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    if not isinstance(frame, pd.DataFrame):
+        raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
+    if target is not None and not isinstance(target, str):
+        raise TypeError(f"target must be a column name or None, got {target!r}")
+    if frame.shape[0] == 0:
+        raise DataError("data have no rows")
+    columns = [str(c) for c in frame.columns]
+    if target is not None and target not in columns:
+        raise DataError(_missing_columns_message([target], columns, "the target column"))
+    if target is not None and target in ensemble.feature_names:
+        raise DataError(f"target {target!r} is also one of the model's features")
+    source_columns, matched_by = _feature_columns(ensemble, columns, target)
+    position = {c: i for i, c in enumerate(columns)}
+    extra = tuple(c for c in columns if c not in source_columns and c != target)
+    if matched_by == "position":
+        pairs = ", ".join(f"{c} -> {n}" for c, n in zip(source_columns[:5], ensemble.feature_names[:5], strict=False))
+        warnings.warn(f"the model has no feature names; data columns matched to features by position ({pairs}"
+                      f"{' ...' if len(source_columns) > 5 else ''})", DataWarning, stacklevel=2)
+    if extra:
+        shown = ", ".join(extra[:10]) + (" ..." if len(extra) > 10 else "")
+        warnings.warn(f"data hold {len(extra)} column(s) the model does not use, ignored: {shown}",
+                      DataWarning, stacklevel=2)
+    prepared: dict[str, object] = {}
+    coerced = []
+    for j, (column, name) in enumerate(zip(source_columns, ensemble.feature_names, strict=True)):
+        series = frame.iloc[:, position[column]]
+        if series.isna().all():
+            raise DataError(f"column {column!r} is entirely missing (all {len(series):,} values are empty or NaN)")
+        if ensemble.feature_types[j] == "categorical" and series.dtype.kind not in "biuf":
+            prepared[name] = series
+            continue
+        values, note = _numeric_values(series, column)
+        prepared[name] = pd.Series(values, index=frame.index)
+        if note:
+            coerced.append(note)
+    if target is not None:
+        prepared[target] = frame.iloc[:, position[target]]
+    out = pd.DataFrame(prepared, index=frame.index)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", UnseenCategoryWarning)
+        ensemble.check_X(out)
+    unseen = []
+    for item in caught:
+        if issubclass(item.category, UnseenCategoryWarning):
+            unseen.append(str(item.message))
+        warnings.warn(item.message, item.category, stacklevel=2)
+    report = DataReport(n_rows=len(out), matched_by=matched_by, extra_columns=extra, coerced=tuple(coerced),
+                        unseen_categories=tuple(unseen), target=target)
+    return out, report
+
+
+def load_data(
+    ensemble: TreeEnsemble,
+    path: str | os.PathLike,
+    *,
+    target: str | None = None,
+    sample: int | None = None,
+    random_state: int = 0,
+) -> tuple[pd.DataFrame, DataReport]:
+    """Read a data file for a model with bounded memory and fit it to the model's features.
+
+    Reads the header first, then only the columns the model needs (plus
+    ``target``) and, with ``sample``, a uniform row sample drawn while
+    reading (see :func:`read_table`); then :func:`prepare_data`.
+
+    Parameters
+    ----------
+    ensemble : TreeEnsemble
+        The model whose features the data must provide.
+    path : str or path
+        CSV, or Parquet with pyarrow installed.
+    target : str, optional
+        Target column to keep beside the features.
+    sample : int, optional
+        Rows to keep (all when None or when the file has fewer).
+    random_state : int, default 0
+        Seed of the row sample.
+
+    Returns
+    -------
+    prepared : DataFrame
+    report : DataReport
+        As for :func:`prepare_data`; extra columns are those of the file's header.
+
+    Raises
+    ------
+    DataError
+        As :func:`read_table` and :func:`prepare_data`.
+    """
+    if not isinstance(ensemble, TreeEnsemble):
+        raise TypeError(f"ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    p = Path(path)
+    if not p.is_file():
+        raise DataError(f"{p}: data file not found")
+    header = _header(p)
+    if target is not None and target not in header:
+        raise DataError(f"{p}: " + _missing_columns_message([target], header, "the target column"))
+    try:
+        feature_columns, _ = _feature_columns(ensemble, header, target)
+    except DataError as exc:
+        raise DataError(f"{p}: {exc}") from None
+    wanted = set(feature_columns) | ({target} if target else set())
+    frame = read_table(p, columns=[c for c in header if c in wanted], sample=sample, random_state=random_state)
+    with warnings.catch_warnings():
+        # The ignored columns were never read; they are reported from the header below.
+        warnings.simplefilter("ignore", DataWarning)
+        prepared, report = prepare_data(ensemble, frame, target=target)
+    extra = tuple(c for c in header if c not in wanted)
+    if extra:
+        shown = ", ".join(extra[:10]) + (" ..." if len(extra) > 10 else "")
+        warnings.warn(f"{p}: {len(extra)} column(s) the model does not use, ignored: {shown}", DataWarning, stacklevel=2)
+    if report.matched_by == "position":
+        warnings.warn(f"{p}: the model has no feature names; data columns matched to features by position",
+                      DataWarning, stacklevel=2)
+    return prepared, DataReport(n_rows=report.n_rows, matched_by=report.matched_by, extra_columns=extra,
+                                coerced=report.coerced, unseen_categories=report.unseen_categories, target=target)

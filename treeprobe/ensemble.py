@@ -52,6 +52,7 @@ training row count where the library stores it (NaN otherwise).
 
 from __future__ import annotations
 
+import difflib
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
@@ -79,6 +80,62 @@ def _as_array(values: Any, dtype: Any, name: str, source: str) -> np.ndarray:
         return np.ascontiguousarray(values, dtype=dtype)
     except (TypeError, ValueError) as exc:
         raise ModelFormatError(f"{source}: node array '{name}' is not {np.dtype(dtype).name}: {exc}") from None
+
+
+def _missing_columns_message(missing: list[str], available: list[str], wanted: str) -> str:
+    """One message naming the columns the data lack (``wanted`` says which), with close matches (typos)."""
+    shown = ", ".join(missing[:10]) + (" ..." if len(missing) > 10 else "")
+    hints = []
+    for name in missing[:10]:
+        close = difflib.get_close_matches(name, available, n=1, cutoff=0.75)
+        if close:
+            hints.append(f"{name!r} -> {close[0]!r}?")
+    hint = f"; close matches in the data: {', '.join(hints)}" if hints else ""
+    return f"data lacks {wanted}: {shown}{hint}"
+
+
+def _numeric_values(series: pd.Series, col: str) -> tuple[np.ndarray, str | None]:
+    """Float64 values of a column feeding a numeric feature, and a note when its type had to be coerced.
+
+    Booleans become 0/1 and text that reads as a number becomes that number;
+    empty cells and None are missing (NaN). Any other value, and infinity,
+    raise a DataError naming the column, the first bad value and its row.
+    """
+    note = None
+    kind = series.dtype.kind
+    if kind == "b" or str(series.dtype) == "boolean":
+        values = series.astype("float64").to_numpy(dtype=np.float64, na_value=np.nan)
+        note = f"column {col!r}: booleans read as 0/1"
+    elif kind in "iuf":
+        values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        raw = series.astype(object)
+        is_bool = np.fromiter((isinstance(v, (bool, np.bool_)) for v in raw), dtype=bool, count=len(raw))
+        values = np.array(pd.to_numeric(raw.mask(is_bool), errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan))
+        if is_bool.any():
+            values[is_bool] = raw[is_bool].astype(float).to_numpy()
+        bad = np.isnan(values) & raw.notna().to_numpy() & ~is_bool
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            raise DataError(
+                f"column {col!r} feeds a numeric feature but holds {int(bad.sum())} value(s) that are not numbers; "
+                f"the first is {raw.iloc[first]!r} at row {series.index[first]!r}"
+            )
+        parts = []
+        n_text = int((~np.isnan(values) & ~is_bool).sum())
+        if n_text:
+            parts.append(f"{n_text} text value(s) read as numbers")
+        if is_bool.any():
+            parts.append(f"{int(is_bool.sum())} boolean(s) read as 0/1")
+        note = f"column {col!r}: " + ", ".join(parts) if parts else None
+    infinite = np.isinf(values)
+    if infinite.any():
+        first = int(np.flatnonzero(infinite)[0])
+        raise DataError(
+            f"column {col!r} holds an infinite value at row {series.index[first]!r}; "
+            "use finite numbers, or NaN / an empty cell for missing"
+        )
+    return values, note
 
 
 @dataclass(frozen=True, eq=False)
@@ -383,6 +440,9 @@ class TreeEnsemble:
             raise ModelFormatError(f"{src}: {where(num_split & np.isnan(self.threshold))} has a NaN threshold")
         if np.any(is_leaf & ~np.isfinite(self.value).all(axis=1)):
             raise ModelFormatError(f"{src}: {where(is_leaf & ~np.isfinite(self.value).all(axis=1))} has a non-finite leaf value")
+        if self.cat_values.size and (self.cat_values.min() < 0 or self.cat_values.max() >= 2**31):
+            bad = self.cat_values.min() if self.cat_values.min() < 0 else self.cat_values.max()
+            raise ModelFormatError(f"{src}: a categorical split lists category {bad}; codes must lie in 0..2^31-1")
         if self.cat_offsets.shape != (n + 1,) or self.cat_offsets[0] != 0 or self.cat_offsets[-1] != self.cat_values.size \
                 or np.any(np.diff(self.cat_offsets) < 0):
             raise ModelFormatError(f"{src}: category offsets are inconsistent with {self.cat_values.size} listed categories")
@@ -517,64 +577,27 @@ class TreeEnsemble:
         """Return ``X`` as a float64 matrix whose columns are the model's features.
 
         A DataFrame is matched by column name (order free; extra columns are
-        ignored) when the model knows its feature names; categorical columns
-        become their integer codes (missing = NaN). A plain array must have
-        exactly ``n_features`` columns.
+        ignored) when the model knows its feature names, or by position when
+        the model has only generic names (``f0, f1, ...``) and the frame has
+        as many columns; categorical columns become their integer codes
+        (missing = NaN). Booleans become 0/1 and text that reads as numbers
+        becomes float. A plain array must have exactly ``n_features`` columns.
 
         Raises
         ------
         DataError
-            Naming the missing columns, or the column count found and expected.
+            Naming the missing columns (with close matches for typos), the
+            column count found and expected, a column whose values are not
+            numbers (first bad value and its row), or an infinite value
+            (column and row). Use :func:`treeprobe.data.prepare_data` to
+            also refuse columns that are entirely missing and to get a
+            report of what was coerced.
         """
         if isinstance(X, pd.DataFrame):
-            cols = [str(c) for c in X.columns]
-            names = list(self.feature_names)
-            if cols != names:
-                missing = [c for c in names if c not in cols]
-                if missing and len(cols) == len(names) and self.metadata.get("generic_feature_names"):
-                    frame = X
-                elif missing:
-                    shown = ", ".join(missing[:10]) + (" ..." if len(missing) > 10 else "")
-                    raise DataError(
-                        f"data lacks {len(missing)} of the model's {len(names)} feature columns: {shown}"
-                    )
-                else:
-                    frame = X.loc[:, [X.columns[cols.index(c)] for c in names]]
-            else:
-                frame = X
+            frame = self._frame_columns(X)
             out = np.empty((len(frame), len(frame.columns)), dtype=np.float64)
-            levels_by_name = self.metadata.get("category_levels") or {}
             for j, col in enumerate(frame.columns):
-                series = frame[col]
-                levels = levels_by_name.get(self.feature_names[j]) if j < self.n_features else None
-                if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or series.dtype == object):
-                    # The model numbers categories by its own fitted levels, not by this frame's codes.
-                    codes = pd.Index(list(levels)).get_indexer(series.astype(object).to_numpy()).astype(np.float64)
-                    unseen = (codes < 0) & series.notna().to_numpy()
-                    codes[codes < 0] = np.nan
-                    if unseen.any():
-                        labels = sorted({str(v) for v in series[unseen]})
-                        shown = ", ".join(labels[:5]) + (" ..." if len(labels) > 5 else "")
-                        rule = self.metadata.get("unseen_category", "missing")
-                        warnings.warn(
-                            f"column {col!r} holds {len(labels)} categor{'y' if len(labels) == 1 else 'ies'} the model "
-                            f"never saw ({shown}); routed as {self.library} does: "
-                            + ("like a category no split lists" if rule == "unlisted" else "like a missing value"),
-                            UnseenCategoryWarning,
-                            stacklevel=3,
-                        )
-                        if rule == "unlisted":
-                            codes[unseen] = -1.0
-                    out[:, j] = codes
-                elif isinstance(series.dtype, pd.CategoricalDtype):
-                    codes = series.cat.codes.to_numpy().astype(np.float64)
-                    codes[codes < 0] = np.nan
-                    out[:, j] = codes
-                else:
-                    try:
-                        out[:, j] = pd.to_numeric(series, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
-                    except (TypeError, ValueError) as exc:
-                        raise DataError(f"column {col!r} is not numeric: {exc}") from None
+                out[:, j] = self._column_values(frame.iloc[:, j], j, str(col))
             return out
         try:
             arr = np.asarray(X, dtype=np.float64)
@@ -584,7 +607,79 @@ class TreeEnsemble:
             raise DataError(f"data must be 2-D (rows x features), got {arr.ndim}-D")
         if arr.shape[1] != self.n_features:
             raise DataError(f"data has {arr.shape[1]} columns, the model expects {self.n_features} features")
+        if np.isinf(arr).any():
+            row, col = (int(i) for i in np.argwhere(np.isinf(arr))[0])
+            raise DataError(f"data column {col} ({self.feature_names[col]!r}) holds an infinite value at row {row}; "
+                            "use finite numbers, or NaN for missing")
         return arr
+
+    def _frame_columns(self, X: pd.DataFrame) -> pd.DataFrame:
+        """The columns of ``X`` that feed the model's features, in the model's order."""
+        cols = [str(c) for c in X.columns]
+        names = list(self.feature_names)
+        if cols == names:
+            return X
+        if len(set(cols)) != len(cols):
+            repeated = sorted({c for c in cols if cols.count(c) > 1})
+            raise DataError(f"data has repeated column names: {', '.join(repeated[:10])}")
+        missing = [c for c in names if c not in cols]
+        if missing and len(cols) == len(names) and self.metadata.get("generic_feature_names"):
+            return X
+        if missing:
+            raise DataError(_missing_columns_message(
+                missing, cols, f"{len(missing)} of the model's {len(names)} feature columns"))
+        position = {c: i for i, c in enumerate(cols)}
+        return X.iloc[:, [position[c] for c in names]]
+
+    def _column_values(self, series: pd.Series, j: int, col: str) -> np.ndarray:
+        """Float64 values of the column feeding feature ``j``.
+
+        Categorical features with known levels are coded by the model's own
+        levels (unseen ones warn, see :class:`UnseenCategoryWarning`); every
+        other column must hold numbers, booleans or text that reads as numbers.
+        """
+        levels = (self.metadata.get("category_levels") or {}).get(self.feature_names[j])
+        # pandas >= 3 reads text as the "str" dtype, older versions as object.
+        is_text = series.dtype == object or pd.api.types.is_string_dtype(series.dtype)
+        if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or is_text):
+            return self._coded_by_levels(series, list(levels), col)
+        if isinstance(series.dtype, pd.CategoricalDtype):
+            codes = series.cat.codes.to_numpy().astype(np.float64)
+            codes[codes < 0] = np.nan
+            return codes
+        if is_text and self.feature_types[j] == "categorical" and series.notna().any():
+            try:
+                return _numeric_values(series, col)[0]
+            except DataError:
+                raise DataError(
+                    f"column {col!r} holds text labels for the categorical feature {self.feature_names[j]!r}, but "
+                    "the model stores no category levels to code them with; give the integer category codes used "
+                    "in training, or a pandas categorical column with the training categories in training order"
+                ) from None
+        return _numeric_values(series, col)[0]
+
+    def _coded_by_levels(self, series: pd.Series, levels: list, col: str) -> np.ndarray:
+        """Codes of a categorical column by the model's fitted levels (NaN for missing; unseen levels warn).
+
+        The model numbers categories by its own fitted levels, not by this frame's codes.
+        """
+        codes = pd.Index(levels).get_indexer(series.astype(object).to_numpy()).astype(np.float64)
+        unseen = (codes < 0) & series.notna().to_numpy()
+        codes[codes < 0] = np.nan
+        if unseen.any():
+            labels = sorted({str(v) for v in series[unseen]})
+            shown = ", ".join(labels[:5]) + (" ..." if len(labels) > 5 else "")
+            rule = self.metadata.get("unseen_category", "missing")
+            warnings.warn(
+                f"column {col!r} holds {len(labels)} categor{'y' if len(labels) == 1 else 'ies'} the model "
+                f"never saw ({shown}); routed as {self.library} does: "
+                + ("like a category no split lists" if rule == "unlisted" else "like a missing value"),
+                UnseenCategoryWarning,
+                stacklevel=5,
+            )
+            if rule == "unlisted":
+                codes[unseen] = -1.0
+        return codes
 
     def _goes_left(self, node: np.ndarray, x: np.ndarray) -> np.ndarray:
         """Routing decision at internal nodes ``node`` for values ``x`` (already cast)."""

@@ -151,7 +151,12 @@ def load_model(
     else:
         ens = _from_object(source, source=f"<{type(source).__name__} object>")
     if feature_names is not None:
+        if isinstance(feature_names, (str, bytes)):
+            raise TypeError(f"feature_names must be a sequence of names, not a single string: {feature_names!r}")
         names = tuple(str(n) for n in feature_names)
+        if len(set(names)) != len(names):
+            repeated = sorted({n for n in names if names.count(n) > 1})
+            raise ModelFormatError(f"{ens.source}: feature_names repeats {', '.join(repeated[:5])}")
         if len(names) != ens.n_features:
             raise ModelFormatError(
                 f"{ens.source}: {len(names)} feature names given, the model has {ens.n_features} features"

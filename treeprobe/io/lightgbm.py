@@ -71,6 +71,7 @@ References
 from __future__ import annotations
 
 import json
+from collections import Counter
 from typing import Any
 
 import numpy as np
@@ -317,8 +318,17 @@ def _parse_parameters(tail: list[str], source: str) -> tuple[dict[str, str], Any
         elif line.startswith("pandas_categorical:"):
             try:
                 pandas_categorical = json.loads(line[len("pandas_categorical:"):])
-            except ValueError:
+            except (ValueError, RecursionError):
                 raise ModelFormatError(f"{source}: the 'pandas_categorical' line is not valid JSON") from None
+            if pandas_categorical is not None and not (
+                isinstance(pandas_categorical, list)
+                and all(isinstance(levels, list) for levels in pandas_categorical)
+                and all(isinstance(v, (str, int, float)) for levels in pandas_categorical for v in levels)
+            ):
+                raise ModelFormatError(
+                    f"{source}: the 'pandas_categorical' line must be null or a list of lists of category labels, "
+                    f"found {line[len('pandas_categorical:'):][:60]!r}"
+                )
     return parameters, pandas_categorical
 
 
@@ -451,6 +461,12 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
         raise ModelFormatError(
             f"{source}: line {header['feature_names'][1]}: {len(feature_names)} feature names for "
             f"max_feature_idx={n_features - 1} ({n_features} features)"
+        )
+    if len(set(feature_names)) != n_features:
+        # LightGBM itself refuses a feature name that appears twice; data columns could not be matched to it.
+        repeated = next(name for name, count in Counter(feature_names).items() if count > 1)
+        raise ModelFormatError(
+            f"{source}: line {header['feature_names'][1]}: feature name {repeated[:40]!r} appears more than once"
         )
     n_trees = len(blocks)
     if n_trees % per_iteration:

@@ -93,6 +93,13 @@ _COMPACT_KEYS = _NODE_KEYS + ("split_type", "leaf_weights")
 # Without stored names every feature gets a generated one, so a corrupt count
 # must not be able to demand billions of them.
 _MAX_FEATURES = 10_000_000
+# A file without names gets one generated name per declared feature, however
+# small the file: a tiny corrupt file must not cost seconds and a gigabyte.
+# 2**21 leaves room for the common 2**20-column hashing of sparse text.
+_MAX_UNNAMED_FEATURES = 2**21
+# XGBoost refuses category codes of 2**24 and above (the integers float32 holds
+# exactly); value from memory of XGBoost's "less than 2^24" data check.
+_MAX_CATEGORY = 2**24
 
 
 def _compact_tree_lists(obj: dict) -> dict:
@@ -315,6 +322,9 @@ def _category_lists(split_type: np.ndarray, sizes: np.ndarray, trees: list,
             raise ModelFormatError(f"{source}: tree {t}: categories_segments/_sizes point outside 'categories'")
         if np.any(cats < 0):
             raise ModelFormatError(f"{source}: tree {t}: 'categories' holds a negative category")
+        if np.any(cats >= _MAX_CATEGORY):
+            raise ModelFormatError(f"{source}: tree {t}: 'categories' holds {int(cats.max())}, beyond the "
+                                   f"largest category code XGBoost accepts ({_MAX_CATEGORY - 1})")
         local_type = split_type[offsets[t]:offsets[t + 1]]
         listed = np.zeros(sizes[t], bool)
         listed[nodes] = True
@@ -334,6 +344,15 @@ def _feature_names_and_types(learner: dict, n_features: int, source: str) -> tup
             raise ModelFormatError(f"{source}: learner.{key} must be a list of strings")
         if value and len(value) != n_features:
             raise ModelFormatError(f"{source}: learner.{key} has {len(value)} entries, the model has {n_features} features")
+    if len(set(names)) != len(names):
+        # XGBoost itself refuses repeated names at training; data columns could not be matched to them.
+        repeated = sorted({n for n in names if names.count(n) > 1})
+        raise ModelFormatError(f"{source}: learner.feature_names repeats {', '.join(repeated[:5])}")
+    if not names and n_features > _MAX_UNNAMED_FEATURES:
+        raise ModelFormatError(
+            f"{source}: learner_model_param.num_feature is {n_features} but the file stores no feature names; "
+            f"treeprobe accepts at most {_MAX_UNNAMED_FEATURES} unnamed features (corrupt file?)"
+        )
     kinds = ["categorical" if t == "c" else "numeric" for t in types] if types else None
     return (names or None), kinds
 
@@ -430,6 +449,18 @@ def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, b
     if vector_leaves and np.any(leaf_sizes != n_outputs):
         raise ModelFormatError(f"{source}: trees have leaf vectors of size {sorted(set(leaf_sizes.tolist()))}, "
                                f"the model has {n_outputs} outputs")
+    # Every output needs a tree of its own (scalar leaves) or a slot in every
+    # leaf vector; checking that before anything is sized by the output count
+    # keeps a corrupt num_class/num_target from demanding gigabytes.
+    if not vector_leaves and n_outputs > len(trees):
+        raise ModelFormatError(f"{source}: learner_model_param declares {n_outputs} outputs (num_class/num_target) "
+                               f"but the model has only {len(trees)} trees (corrupt file?)")
+    if vector_leaves:
+        for t, tree in enumerate(trees):
+            weights = tree.get("leaf_weights")
+            if not isinstance(weights, (list, np.ndarray)) or len(weights) < n_outputs:
+                raise ModelFormatError(f"{source}: tree {t}: 'leaf_weights' holds fewer values than the "
+                                       f"{n_outputs} outputs each leaf vector needs")
     for t, tree in enumerate(trees):
         if not isinstance(tree["left_children"], (list, np.ndarray)):
             raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
@@ -670,6 +701,9 @@ def load_xgboost_json(data: bytes | str, *, source: str) -> TreeEnsemble:
         raise ModelFormatError(f"{source}: invalid JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}") from None
     except (UnicodeDecodeError, RecursionError) as exc:
         raise ModelFormatError(f"{source}: unreadable JSON: {type(exc).__name__}: {exc}") from None
+    except ValueError as exc:
+        # Python refuses integer literals longer than its digit limit (4300 by default).
+        raise ModelFormatError(f"{source}: unreadable JSON: {exc}") from None
     return _ensemble_from_document(doc, source=source, file_format="json")
 
 
