@@ -200,6 +200,8 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
     tables = {"pairs": result.pairs, "overall": result.overall}
     if args.triples:
         tables["triples"] = result.triples
+    tables = {name: frame.sort_values(args.sort, ascending=False, kind="stable").reset_index(drop=True)
+              if args.sort in frame.columns else frame for name, frame in tables.items()}
     if args.format == "json":
         _emit(dumps_json(result.to_dict()), args.out)
         return 0
@@ -456,6 +458,9 @@ def build_parser() -> argparse.ArgumentParser:
                    "model's feature columns")
     p.add_argument("--pairs", metavar="A:B,...", help="only these pairs (default: every pair sharing a path)")
     p.add_argument("--triples", action="store_true", help="also three-way statistics for features whose pairs all share paths")
+    p.add_argument("--sort", choices=("h2", "h"), default="h2",
+                   help="rank by the normalised h2 (default) or by h, the interaction's size in output units: a large "
+                        "h2 on a tiny h is noise")
     p.add_argument("--sample", type=int, default=1000, metavar="N",
                    help="rows drawn from the data (default 1000; 0 = all rows; cost grows with N)")
     p.add_argument("--seed", type=int, default=0, help="random seed of the row sample (default 0)")
