@@ -26,7 +26,6 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import json
 import re
 import subprocess
 import sys
@@ -36,6 +35,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from bench_load import repeat_trees  # scripts/ is first on sys.path when a script runs
 
 FEATURES = ("fuel_price", "shift_length", "ambient_temp", "load_factor", "crew_size", "route_km",
             "idle_minutes", "cargo_tonnes")
@@ -63,24 +63,11 @@ def _train(workdir: Path, n_trees: int) -> Path:
     return path
 
 
-def _repeat_trees(src: Path, dst: Path, times: int) -> None:
-    doc = json.loads(src.read_bytes())
-    model = doc["learner"]["gradient_booster"]["model"]
-    trees = [dict(tree) for _ in range(times) for tree in model["trees"]]
-    for i, tree in enumerate(trees):
-        tree["id"] = i
-    model["trees"] = trees
-    model["tree_info"] = model["tree_info"] * times
-    model["gbtree_model_param"]["num_trees"] = str(len(trees))
-    if "iteration_indptr" in model:
-        model["iteration_indptr"] = list(range(len(trees) + 1))
-    dst.write_text(json.dumps(doc))
-
-
 _READ_CODE = """
 import sys
 from treeprobe import load_model
 from treeprobe.data import load_data, read_table
+
 if sys.argv[1] == "full":
     frame = read_table(sys.argv[3])
 else:
@@ -116,7 +103,7 @@ def main(argv: list[str] | None = None) -> int:
         small_model = _train(workdir, 100)
         base_model = _train(workdir, BASE_TREES)
         big_model = workdir / "fleet_10000.json"
-        _repeat_trees(base_model, big_model, REPEAT)
+        repeat_trees(base_model, big_model, REPEAT)
         small_csv, big_csv = workdir / "trips_small.csv", workdir / "trips_big.csv"
         _frame(10_000, 1).to_csv(small_csv, index=False)
         _frame(args.rows, 2).to_csv(big_csv, index=False)

@@ -65,7 +65,8 @@ def _train(workdir: Path):
     return booster
 
 
-def _repeat_trees(src: Path, dst: Path, times: int) -> None:
+def repeat_trees(src: Path, dst: Path, times: int) -> None:
+    """Write a copy of an XGBoost JSON model whose trees are repeated ``times`` times (still a valid model)."""
     doc = json.loads(src.read_bytes())
     model = doc["learner"]["gradient_booster"]["model"]
     trees = [dict(tree) for _ in range(times) for tree in model["trees"]]
@@ -149,7 +150,7 @@ def main(argv: list[str] | None = None) -> int:
         max_diff = float(np.max(np.abs(ensemble.predict_raw(rows) - booster.predict(matrix, output_margin=True))))
 
         big_json = workdir / "fleet10k.json"
-        _repeat_trees(json_path, big_json, BIG_REPEAT)
+        repeat_trees(json_path, big_json, BIG_REPEAT)
         big_ubj = workdir / "fleet10k.ubj"
         xgb.Booster(model_file=str(big_json)).save_model(str(big_ubj))
         big_size = big_json.stat().st_size
