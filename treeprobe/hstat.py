@@ -86,7 +86,7 @@ from .pdp import (
     parent_links,
     path_table,
     predictor_row_bytes,
-    prepare_data,
+    prepare_rows,
     resolve_model,
     sum_rows_by,
     tree_chunks,
@@ -722,7 +722,7 @@ def h_statistic(
         raise DataError("method='exact' needs a tree ensemble; a callable model needs method='brute' or 'auto'")
     if method == "exact" and scale != "raw":
         raise DataError("method='exact' computes raw-scale statistics; use scale='raw' or method='brute'")
-    data = prepare_data(fitted, X, min_rows=2)
+    data = prepare_rows(fitted, X, min_rows=2)
     data = _sample_rows(data, sample, random_state)
     _warn_constant(data)
     names = data.names

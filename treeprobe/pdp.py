@@ -126,7 +126,7 @@ def _numeric_view(frame: pd.DataFrame) -> np.ndarray:
     return out
 
 
-def prepare_data(fitted: FittedModel, X: Any, *, min_rows: int = 1) -> PreparedData:
+def prepare_rows(fitted: FittedModel, X: Any, *, min_rows: int = 1) -> PreparedData:
     """Validate ``X`` against the model and return it as :class:`PreparedData`.
 
     Raises
@@ -490,7 +490,7 @@ def partial_dependence(
     fitted = resolve_model(model)
     if method == "exact" and (not fitted.is_tree or scale != "raw"):
         raise DataError("method='exact' needs a tree ensemble and scale='raw'")
-    data = prepare_data(fitted, X, min_rows=1)
+    data = prepare_rows(fitted, X, min_rows=1)
     if isinstance(features, (str, int, np.integer)) or len(features) == 0:
         raise DataError(f"features must be a non-empty sequence of feature names, got {features!r}")
     columns = [feature_index(data.names, f, parameter="features") for f in features]
