@@ -402,7 +402,7 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--null-refits", type=int, default=10, metavar="R",
                    help="refits on targets without interaction for the noise floor (default 10; each costs about "
                         "one training of the model)")
-    p.add_argument("--resamples", type=int, default=20, metavar="B", help="row bootstraps for the H² interval (default 20)")
+    p.add_argument("--resamples", type=int, default=20, metavar="B", help="half-size row subsamples for the intervals of H² and h (default 20)")
     p.add_argument("--sample", type=int, default=1000, metavar="N", help="rows used for H and dependence (default 1000; 0 = all)")
     p.add_argument("--min-h2", type=float, default=0.05, help="smallest H² counted as interaction (default 0.05)")
     p.add_argument("--min-effect", type=float, default=0.05,

@@ -370,7 +370,7 @@ def _summary_section(ens: TreeEnsemble, result: Any, X_rows: int, target_text: s
         ("Path structure", "every root-to-leaf path of every tree (no data needed)"),
         ("H-statistics", f"Friedman &amp; Popescu (2008) H² of every pair sharing a path, exact for trees, on "
                          f"{_num(n_rows)} rows"),
-        ("Interval", f"{resamples} row bootstraps, {result.thresholds.get('confidence', 0.9):.0%} percentile interval"
+        ("Interval", f"{resamples} half-size row subsamples, {result.thresholds.get('confidence', 0.9):.0%} subsampling interval"
          if resamples else "none (no resamples): point values only"),
         ("Noise floor", f"{refits} refits on targets without interaction" if refits
          else "no refits: the floor is the convention min_h2 only"),
@@ -457,7 +457,7 @@ def _pairs_section(result: Any) -> str:
         + f'<h3>How each verdict is given</h3><dl class="rules">{rules}</dl>'
         "<p class=\"note\">Columns: H² is Friedman &amp; Popescu's (2008, eq. 44) share of the pair's joint partial "
         "dependence variance not explained by the two single-feature effects; h is its unnormalised square root "
-        "(in raw prediction units); intervals are bootstrap percentile intervals over resampled rows; floors "
+        "(in raw prediction units); intervals are subsampling intervals over half-size row subsamples; floors "
         "and null values are the largest values expected from refits on targets without interaction; dependence is the larger of |Spearman's rank correlation| and the "
         "information correlation; paths, cover share and nested gain describe how often, for how much of the "
         "training cover and with how much gain the trees split on both features on one path.</p>"

@@ -129,8 +129,8 @@ class TriageResult:
         ``feature_a``, ``feature_b``; structure (:func:`treeprobe.structure`):
         ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``min_depth``,
         ``first_tree``; H (:func:`treeprobe.h_statistic`): ``h2``, ``h``,
-        ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (percentile intervals
-        over ``resamples`` row bootstraps, NaN without), ``effect`` =
+        ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (subsampling intervals
+        over ``resamples`` half-size row subsamples, NaN without; see Notes), ``effect`` =
         ``h / sd(prediction)``, ``null_h`` and ``null_h2`` (the refits'
         ``null_quantile`` of ``h`` and of H²; NaN without ``y``; ``null_h`` is
         the noise floor); dependence: ``rank_correlation``
@@ -367,7 +367,8 @@ def triage(
     sample : int or None, default 1000
         Rows drawn (seeded) from ``X`` for H and dependence; None uses all rows.
     resamples : int, default 20
-        Row bootstraps for the H² interval (0: none; the point value is used).
+        Half-size row subsamples for the intervals of H² and ``h`` (0: none;
+        the point values are used).
     null_refits : int, default 10
         Refits on synthetic targets for the noise floor (used only with ``y``).
         Each refit trains the model once more on all rows of ``X``: the cost is
@@ -376,7 +377,7 @@ def triage(
     null_quantile : float, default 0.95
         Quantile of the null values of ``h`` taken as the noise floor.
     confidence : float, default 0.90
-        Coverage of the percentile bootstrap interval of H².
+        Nominal coverage of the subsampling intervals.
     min_h2 : float, default 0.05
         Smallest H² ever counted as interaction (a convention of ours).
     min_effect : float, default 0.05
@@ -394,7 +395,7 @@ def triage(
     include_absent : bool, default True
         Keep rows for used-feature pairs that never share a path (verdict ``absent``).
     random_state : int, default 0
-        Seed for the row sample, bootstraps, refits and the mutual information estimator.
+        Seed for the row sample, subsamples, refits and the mutual information estimator.
     n_jobs : int, default 1
         Parallel workers for the refits (joblib).
     progress : bool, optional
@@ -416,10 +417,19 @@ def triage(
         interaction  if L2 > min_h2 and Lh > q_h and effect >= min_effect
         co-split     otherwise
 
+    The intervals follow subsampling ([2]_): with ``T`` the point value on
+    ``n`` rows and ``T_b`` its value on subsample ``b`` of ``m = n / 2`` rows
+    drawn without replacement, the interval is
+    ``[T - sqrt(m/n) q_hi, T - sqrt(m/n) q_lo]`` (lower end clipped at 0), where
+    ``q_lo, q_hi`` are quantiles of ``T_b - T``. If smaller samples inflate H,
+    the interval moves down, so the evidence asked of an interaction grows.
+
     References
     ----------
     .. [1] J. H. Friedman and B. E. Popescu, "Predictive learning via rule
        ensembles", Annals of Applied Statistics 2(3), 2008, section 8.
+    .. [2] D. N. Politis, J. P. Romano and M. Wolf, "Subsampling", Springer,
+       1999 (the interval of section 2.2, rate sqrt(n)).
     """
     from .hstat import h_statistic
     from .io import load_model
@@ -476,15 +486,24 @@ def triage(
     low = np.full((2, len(frame)), np.nan)
     high = np.full((2, len(frame)), np.nan)
     if resamples and share_names:
-        boots = np.empty((resamples, 2, len(share_names)))
+        # Subsampling without replacement (half the rows) rather than the bootstrap: a
+        # bootstrap sample repeats rows, and since the rows are both the partial-dependence
+        # background and the evaluation points, repeated rows bias H (we saw bootstrap
+        # intervals lying wholly above the point value).
+        n_rows = len(chosen)
+        half = max(2, n_rows // 2)
+        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
+        subs = np.empty((resamples, 2, len(share_names)))
         with Progress(resamples, "resampling", enabled=progress) as bar:
             for b in range(resamples):
-                pick = rng.integers(0, len(chosen), size=len(chosen))
-                boots[b] = _pair_h(ens, _take_rows(rows, pick), share_names, h_out)
+                pick = np.sort(rng.choice(n_rows, size=half, replace=False))
+                subs[b] = _pair_h(ens, _take_rows(rows, pick), share_names, h_out)
                 bar.advance()
         alpha = (1.0 - confidence) / 2.0
-        low[:, sharing] = np.quantile(boots, alpha, axis=0)
-        high[:, sharing] = np.quantile(boots, 1.0 - alpha, axis=0)
+        shrink = np.sqrt(half / n_rows)
+        spread = subs - point[None]
+        low[:, sharing] = np.maximum(point - shrink * np.quantile(spread, 1.0 - alpha, axis=0), 0.0)
+        high[:, sharing] = point - shrink * np.quantile(spread, alpha, axis=0)
     frame["h2_low"], frame["h2_high"] = low[0], high[0]
     frame["h_low"], frame["h_high"] = low[1], high[1]
     frame["effect"] = frame["h"] / scale
