@@ -249,7 +249,7 @@ class _Canvas:
         buffer = io.StringIO()
         # Several SVGs share one HTML document: a per-figure salt keeps their element ids distinct and stable.
         with self.plt.rc_context({**self.style, "svg.hashsalt": f"treeprobe-figure-{self.count}"}):
-            fig.savefig(buffer, format="svg", metadata={"Date": None})
+            fig.savefig(buffer, format="svg", metadata={"Date": None}, bbox_inches="tight")
         self.plt.close(fig)
         text = self._METADATA.sub("", self._HEADER.sub("", buffer.getvalue(), count=1))
         # matplotlib numbers its element ids per figure (figure_1, axes_1, ...); one page holds many figures and
@@ -491,7 +491,7 @@ def _pair_map_figure(canvas: _Canvas, result: Any) -> str:
     from matplotlib.lines import Line2D
 
     convention = Line2D([], [], color="#444444", linestyle=(0, (4, 3)), linewidth=0.9, label=f"min_h2 = {min_h2:g}")
-    ax.legend(handles=_verdict_legend_handles(present) + [convention], loc="upper left", frameon=False)
+    ax.legend(handles=_verdict_legend_handles(present) + [convention], loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=5, frameon=False)
     return canvas.svg(fig)
 
 
