@@ -160,3 +160,15 @@ def test_report_command_writes_one_page(saved_regressor, tmp_path):
     for section in ("summary", "pairs", "constraints", "cautions"):
         assert f'id="{section}"' in text
     assert "oven_temp" in text and "http://" not in text.replace("http://www.w3.org", "")
+
+
+def test_hstat_probability_scale_matches_api():
+    data = FIXTURES / "lightgbm" / "input.csv"
+    payload = json.loads(run("hstat", LGB_MODEL, "--data", data, "--scale", "probability", "--sample", "40",
+                             "--format", "json").stdout)
+    assert payload["scale"] == "probability" and payload["method"] == "brute"
+    api = treeprobe.h_statistic(treeprobe.load_model(LGB_MODEL), treeprobe.load_data(
+        treeprobe.load_model(LGB_MODEL), data)[0], sample=40, scale="probability")
+    got = {(r["feature_a"], r["feature_b"]): r["h2"] for r in payload["pairs"]}
+    for row in api.pairs.itertuples(index=False):
+        assert got[(row.feature_a, row.feature_b)] == pytest.approx(row.h2, rel=1e-9, abs=1e-12)

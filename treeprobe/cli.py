@@ -194,6 +194,7 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
         sample=None if args.sample == 0 else args.sample,
         random_state=args.seed,
         output=args.output,
+        scale=args.scale,
         n_jobs=args.jobs,
         progress=None if not args.quiet else False,
     )
@@ -466,6 +467,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=0, help="random seed of the row sample (default 0)")
     p.add_argument("--method", choices=("auto", "exact", "brute"), default="auto",
                    help="exact tree algorithm or brute-force partial dependence (default: exact for trees)")
+    p.add_argument("--scale", choices=("raw", "probability"), default="raw",
+                   help="raw margin (default; log-odds for classifiers) or the probability scale (brute force, slower)")
     p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers (default 1; -1 = all cores)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, overall, triples; default pairs)")
