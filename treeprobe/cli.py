@@ -416,11 +416,15 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
 
 
 # ------------------------------------------------------------------- parser
-def _add_common(p: argparse.ArgumentParser) -> None:
+def _add_model(p: argparse.ArgumentParser) -> None:
     p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
                    "(with --trust-pickle)")
     p.add_argument("--trust-pickle", action="store_true",
                    help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    _add_model(p)
     p.add_argument("--format", choices=("table", "json", "csv"), default="table",
                    help="output format (default: table); json and csv mirror the result tables' columns")
     p.add_argument("--out", metavar="FILE", help="write to FILE (atomically) instead of standard output")
@@ -504,10 +508,7 @@ def build_parser() -> argparse.ArgumentParser:
                                    "images; opens from disk) with the ranked pairs, the pair map, the interaction "
                                    "graph, partial dependence of the top pairs, when pairs entered the model, the "
                                    "suggested constraints and the cautions.")
-    p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
-                   "(with --trust-pickle)")
-    p.add_argument("--trust-pickle", action="store_true",
-                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+    _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
                    help="HTML file to write (default: treeprobe-report.html)")
     p.add_argument("--output", type=int, default=None, metavar="I", help="output (class) of a multiclass model")
