@@ -4,7 +4,7 @@ Runs the real ``treeprobe`` command in a subprocess under ``/usr/bin/time -v``
 (its "Maximum resident set size" is the peak RSS of that one process):
 
 * ``treeprobe inspect MODEL`` on a 10,000-tree XGBoost model;
-* ``treeprobe hstat MODEL --data BIG.csv --sample 1000`` with the same model
+* ``treeprobe measure MODEL --data BIG.csv --sample 1000`` with the same model
   and a 1,000,000-row CSV.
 
 Target: every run under 2 GB peak RSS. The data path alone is also measured:
@@ -111,9 +111,9 @@ def main(argv: list[str] | None = None) -> int:
               f"CSV {big_csv.stat().st_size / 1e6:.1f} MB ({args.rows:,} rows)")
         runs = {
             "inspect": (["inspect", str(small_model)], ["inspect", str(big_model)]),
-            "hstat --sample 1000": (
-                ["hstat", str(small_model), "--data", str(small_csv), "--sample", "1000", "--quiet"],
-                ["hstat", str(big_model), "--data", str(big_csv), "--sample", "1000", "--quiet"],
+            "measure --sample 1000": (
+                ["measure", str(small_model), "--data", str(small_csv), "--sample", "1000", "--quiet"],
+                ["measure", str(big_model), "--data", str(big_csv), "--sample", "1000", "--quiet"],
             ),
         }
         failed = False

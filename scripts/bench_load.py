@@ -7,7 +7,7 @@ process, so the verdicts do not depend on how fast the machine is:
   vs ``json.load`` of the JSON file (target: at most 1.5x);
 * the same load vs XGBoost's ``Booster.trees_to_dataframe()`` (target:
   treeprobe at least 5x faster);
-* ``TreeEnsemble.predict_raw`` on 10,000 rows vs XGBoost's
+* ``ForestGraph.predict_raw`` on 10,000 rows vs XGBoost's
   ``predict(output_margin=True)`` (target: at most 10x slower);
 * peak memory of loading a 10,000-tree model (tracemalloc, in a fresh
   subprocess) vs the size of its JSON file (target: at most 4x).

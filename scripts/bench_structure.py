@@ -1,4 +1,4 @@
-"""Speed and memory of the path walker (:func:`treeprobe.structure.structure`).
+"""Speed and memory of the path walker (:func:`treeprobe.cooccurrence.structure`).
 
 Two checks, each printed with its figures and PASS/FAIL:
 
@@ -61,7 +61,7 @@ def _median_time(func, repeats: int) -> float:
 
 def bench_against_json(workdir: str, repeats: int) -> bool:
     from treeprobe import load_model
-    from treeprobe.structure import structure
+    from treeprobe.cooccurrence import structure
 
     path = os.path.join(workdir, "depth6.json")
     _train(1000, 6, 5000, path)
@@ -87,7 +87,7 @@ def bench_against_json(workdir: str, repeats: int) -> bool:
 
 def _replicated(base_path: str, n_trees: int, seed: int):
     from treeprobe import load_model
-    from treeprobe.ensemble import TreeEnsemble
+    from treeprobe.graph import ForestGraph
 
     base = load_model(base_path)
     rng = np.random.default_rng(seed)
@@ -107,7 +107,7 @@ def _replicated(base_path: str, n_trees: int, seed: int):
     keep_nodes = int(np.concatenate([[0], np.cumsum(np.tile(sizes, copies))])[n_trees])
     tree_offsets = np.append(np.concatenate(offsets)[:n_trees], keep_nodes)
     n = keep_nodes
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         feature=np.concatenate(features)[:n], threshold=np.zeros(n), left=np.concatenate(lefts)[:n],
         right=np.concatenate(rights)[:n], value=np.zeros(n), tree_offsets=tree_offsets,
         gain=np.concatenate(gains)[:n], cover=np.concatenate(covers)[:n], feature_names=base.feature_names,
@@ -118,7 +118,7 @@ def child_large(base_path: str, n_trees: int) -> None:
     """Run in a subprocess: build the replicated model, walk it, print JSON figures."""
     import resource
 
-    from treeprobe.structure import structure
+    from treeprobe.cooccurrence import structure
 
     ensemble = _replicated(base_path, n_trees, seed=1)
     rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss

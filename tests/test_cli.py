@@ -110,9 +110,9 @@ def test_pickles_are_refused_without_opt_in(tmp_path):
     assert "--trust-pickle" in proc.stderr and "runs arbitrary code" in proc.stderr
 
 
-def test_hstat_json_matches_api(saved_regressor):
+def test_measure_json_matches_api(saved_regressor):
     path, data, _ = saved_regressor
-    payload = json.loads(run("hstat", path, "--data", data, "--sample", "150", "--format", "json").stdout)
+    payload = json.loads(run("measure", path, "--data", data, "--sample", "150", "--format", "json").stdout)
     frame = pd.read_csv(data)
     api = treeprobe.h_statistic(treeprobe.load_model(path), frame.drop(columns="waste_kg"), sample=150)
     got = {(r["feature_a"], r["feature_b"]): r["h2"] for r in payload["pairs"]}
@@ -121,11 +121,11 @@ def test_hstat_json_matches_api(saved_regressor):
     assert payload["pairs"][0]["feature_a"] in ("oven_temp", "dough_age")
 
 
-def test_hstat_missing_column_is_reported(saved_regressor, tmp_path):
+def test_measure_missing_column_is_reported(saved_regressor, tmp_path):
     path, data, _ = saved_regressor
     short = tmp_path / "short.csv"
     pd.read_csv(data).drop(columns="humidity").to_csv(short, index=False)
-    proc = run("hstat", path, "--data", short, check_code=1)
+    proc = run("measure", path, "--data", short, check_code=1)
     assert "humidity" in proc.stderr
 
 
@@ -162,9 +162,9 @@ def test_report_command_writes_one_page(saved_regressor, tmp_path):
     assert "oven_temp" in text and "http://" not in text.replace("http://www.w3.org", "")
 
 
-def test_hstat_probability_scale_matches_api():
+def test_measure_probability_scale_matches_api():
     data = FIXTURES / "lightgbm" / "input.csv"
-    payload = json.loads(run("hstat", LGB_MODEL, "--data", data, "--scale", "probability", "--sample", "40",
+    payload = json.loads(run("measure", LGB_MODEL, "--data", data, "--scale", "probability", "--sample", "40",
                              "--format", "json").stdout)
     assert payload["scale"] == "probability" and payload["method"] == "brute"
     api = treeprobe.h_statistic(treeprobe.load_model(LGB_MODEL), treeprobe.load_data(

@@ -29,9 +29,9 @@ from treeprobe.constraints import (
     validate_constraints,
     write_graphml,
 )
+from treeprobe.cooccurrence import structure
 from treeprobe.errors import DataError, MissingLibraryError, TreeprobeError
 from treeprobe.io import load_model
-from treeprobe.structure import structure
 
 xgb = pytest.importorskip("xgboost")
 lgb = pytest.importorskip("lightgbm")
@@ -83,7 +83,7 @@ def _stand_in(ensemble, pairs: list[tuple[str, str, str, float]], *, triples=(),
     names = list(ensemble.feature_names)
     used = [True] * len(names) if used is None else used
     features = pd.DataFrame({"feature": names, "gain": np.linspace(4.0, 1.0, len(names)),
-                             "splits": np.arange(len(names), 0, -1), "h2_overall": [0.3] + [np.nan] * (len(names) - 1),
+                             "splits": np.arange(len(names), 0, -1), "h2_rest": [0.3] + [np.nan] * (len(names) - 1),
                              "used": used})
     pair_frame = pd.DataFrame(pairs, columns=["feature_a", "feature_b", "verdict", "strength"])
     pair_frame["h2"] = np.where(pair_frame["verdict"] == "interaction", 0.25, np.nan)
@@ -169,7 +169,7 @@ def test_friedman1_suggestion_and_validation():
     names = [f"x{j}" for j in range(6)]
     booster = xgb.train({"max_depth": 4, "eta": 0.3, "nthread": 1}, xgb.DMatrix(X, y, feature_names=names), 100)
     result = _stand_in(load_model(booster), [("x0", "x1", "interaction", 0.6), ("x0", "x2", "co-split", 0.1),
-                                             ("x3", "x4", "absent", 0.0), ("x2", "x3", "confounded", 0.2)])
+                                             ("x3", "x4", "absent", 0.0), ("x2", "x3", "dependent", 0.2)])
     suggestion = suggest_constraints(result)
     assert suggestion.groups == [["x0", "x1"], ["x2"], ["x3"], ["x4"], ["x5"]]
     assert suggestion.group_indices == [[0, 1], [2], [3], [4], [5]]
@@ -194,7 +194,7 @@ def test_friedman1_end_to_end_with_real_triage():
     Skipped while ``treeprobe.triage`` does not exist; the call assumes
     ``triage(model, X)``.
     """
-    triage_module = pytest.importorskip("treeprobe.triage")
+    triage_module = pytest.importorskip("treeprobe.verdicts")
     X, y = make_friedman1(n_samples=600, n_features=6, noise=0.5, random_state=0)
     names = [f"x{j}" for j in range(6)]
     frame = pd.DataFrame(X, columns=names)
@@ -272,7 +272,7 @@ def test_to_dict_json_and_snippet(small_ensemble):
     suggestion = suggest_constraints(_stand_in(small_ensemble, [("fuel_price", "crew_size", "interaction", 0.5)]))
     assert isinstance(suggestion, ConstraintSuggestion)
     loaded = json.loads(suggestion.to_json())
-    assert loaded["schema"] == "treeprobe.constraints/1"
+    assert loaded["schema"] == "treeprobe.constraints/2"
     assert loaded["lightgbm_param"] == suggestion.lightgbm_param
     assert loaded["groups"] == [["fuel_price", "crew_size"], ["route_km"], ["shift_length"]]
     for library, expected in (("xgboost", suggestion.xgboost_param), ("lightgbm", suggestion.lightgbm_param)):
@@ -343,7 +343,7 @@ def test_bad_triage_results(small_ensemble):
         suggest_constraints(good, include=("interaction", "strong"))
     with pytest.raises(DataError, match="min_strength"):
         suggest_constraints(good, min_strength=float("nan"))
-    with pytest.raises(DataError, match="ensemble must be a TreeEnsemble"):
+    with pytest.raises(DataError, match="ensemble must be a ForestGraph"):
         suggest_constraints(SimpleNamespace(**{**vars(good), "ensemble": "model.json"}))
 
 

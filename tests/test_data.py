@@ -29,8 +29,8 @@ import pytest
 
 from treeprobe import load_model
 from treeprobe.data import DataReport, load_data, prepare_data, read_table
-from treeprobe.ensemble import UnseenCategoryWarning
 from treeprobe.errors import DataError, DataWarning, ModelFormatError, UnsafeModelError
+from treeprobe.graph import UnseenCategoryWarning
 
 xgb = pytest.importorskip("xgboost")
 
@@ -204,7 +204,7 @@ def test_parameters_are_checked_at_the_door(named_model):
     ens, _ = named_model
     with pytest.raises(TypeError, match="frame must be a pandas DataFrame"):
         prepare_data(ens, _trips(3, 0).to_numpy())
-    with pytest.raises(TypeError, match="ensemble must be a TreeEnsemble"):
+    with pytest.raises(TypeError, match="ensemble must be a ForestGraph"):
         prepare_data("model.json", _trips(3, 0))
     with pytest.raises(DataError, match="no rows"):
         prepare_data(ens, _trips(3, 0).iloc[:0])

@@ -31,7 +31,7 @@ from treeprobe.demo import (
     demo_data,
     run_demo,
 )
-from treeprobe.triage import VERDICTS
+from treeprobe.verdicts import VERDICTS
 
 xgb = pytest.importorskip("xgboost")
 

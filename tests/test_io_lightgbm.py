@@ -129,7 +129,7 @@ def test_fixture_matches_stored_native_output(name: str) -> None:
     expected = json.loads((FIXTURES / f"{name}.expected.json").read_text())
     rows = pd.read_csv(FIXTURES / "input.csv").to_numpy()
     model = treeprobe.load_model(FIXTURES / f"{name}.txt")
-    assert model.library == "lightgbm" and model.threshold_rule == "<=" and model.input_dtype == "float64"
+    assert model.library == "lightgbm" and model.threshold_rule == "<=" and model.split_dtype == "float64"
     assert model.link == FIXTURE_LINKS[name]
     assert_raw_close(model.predict_raw(rows), expected["raw_score"])
     totals = model.feature_totals()
@@ -169,7 +169,7 @@ def test_raw_output_matches_lightgbm(case: str, boosters, probe_rows, tmp_path: 
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_feature_totals_match_lightgbm_importance(case: str, boosters) -> None:
-    """TreeEnsemble.feature_totals() against Booster.feature_importance("split") and ("gain")."""
+    """ForestGraph.feature_totals() against Booster.feature_importance("split") and ("gain")."""
     booster = boosters[case]
     totals = from_lightgbm(booster, source=case).feature_totals()
     np.testing.assert_array_equal(totals["splits"].to_numpy(), booster.feature_importance("split"))

@@ -38,8 +38,8 @@ from sklearn.tree import (
 )
 
 from treeprobe import load_model
-from treeprobe.ensemble import UnseenCategoryWarning
 from treeprobe.errors import UnsupportedModelError
+from treeprobe.graph import UnseenCategoryWarning
 from treeprobe.io.sklearn import from_sklearn, sklearn_feature_importances
 
 RTOL = 1e-5
@@ -83,7 +83,7 @@ def test_single_tree_regressor_matches_predict(model_class, nan_data):
     model = model_class(max_depth=5, random_state=0).fit(X, y)
     ens = from_sklearn(model, source="test")
     _check_raw(ens, X, model.predict(X))
-    assert ens.link == "identity" and ens.input_dtype == "float32" and ens.threshold_rule == "<="
+    assert ens.link == "identity" and ens.split_dtype == "float32" and ens.threshold_rule == "<="
     assert ens.metadata["generic_feature_names"] is True
     assert ens.feature_names == tuple(f"f{j}" for j in range(5))
 
@@ -131,7 +131,7 @@ def test_multi_output_forest_regressor_uses_vector_leaves(regression_data):
     targets = np.c_[y, X[:, 0] * X[:, 1]]
     model = RandomForestRegressor(n_estimators=3, max_depth=4, random_state=0).fit(X, targets)
     ens = from_sklearn(model, source="test")
-    assert ens.n_outputs == 2 and np.all(ens.tree_output == -1)
+    assert ens.n_outputs == 2 and np.all(ens.output_of_tree == -1)
     _check_raw(ens, X, model.predict(X))
 
 
@@ -258,7 +258,7 @@ def test_gradient_boosting_multiclass_matches_decision_function(regression_data)
     model = GradientBoostingClassifier(n_estimators=4, max_depth=2, random_state=0).fit(X, labels)
     ens = from_sklearn(model, source="test")
     assert ens.link == "softmax" and ens.n_outputs == 3
-    np.testing.assert_array_equal(ens.tree_output, np.tile([0, 1, 2], 4))
+    np.testing.assert_array_equal(ens.output_of_tree, np.tile([0, 1, 2], 4))
     _check_raw(ens, X, model.decision_function(X))
     np.testing.assert_allclose(ens.predict(X), model.predict_proba(X), rtol=RTOL)
 
@@ -326,7 +326,7 @@ def test_hist_regressor_matches_predict_with_categories(categorical_data):
     ens = from_sklearn(model, source="test")
     assert ens.is_categorical.any(), "the fixture must produce categorical splits"
     assert ens.feature_types == ("numeric", "categorical", "numeric", "numeric")
-    assert ens.input_dtype == "float64"
+    assert ens.split_dtype == "float64"
     _check_raw(ens, X_test, model.predict(X_test))
     assert ens.base_score[0] == pytest.approx(model._baseline_prediction.ravel()[0])
 

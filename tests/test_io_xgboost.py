@@ -162,7 +162,7 @@ def test_predict_raw_matches_xgboost_margin(models, check_routes, tmp_path, name
     columns = _booster(model).feature_names
     _assert_margin_close(ensemble.predict_raw(check_routes[columns]), expected)
     assert ensemble.library == "xgboost"
-    assert ensemble.threshold_rule == "<" and ensemble.input_dtype == "float32"
+    assert ensemble.threshold_rule == "<" and ensemble.split_dtype == "float32"
 
 
 @pytest.mark.parametrize("name", MODEL_NAMES)
@@ -197,7 +197,7 @@ def test_link_and_outputs(models, check_routes):
     assert from_xgboost(models["logitraw"], source="<r>").link == "identity"
     assert from_xgboost(models["dart"], source="<d>").metadata["booster"] == "dart"
     assert from_xgboost(models["pruned_exact"], source="<x>").metadata["pruned_nodes_dropped"] > 0
-    assert from_xgboost(models["vector_leaf"], source="<v>").tree_output.tolist() == [-1, -1, -1]
+    assert from_xgboost(models["vector_leaf"], source="<v>").output_of_tree.tolist() == [-1, -1, -1]
 
 
 def test_categorical_split_direction():

@@ -10,26 +10,26 @@ from .constraints import (
     validate_constraints,
     write_graphml,
 )
+from .cooccurrence import StructureResult, structure, structure_by_round
 from .data import DataReport, load_data, prepare_data
-from .ensemble import TreeEnsemble
 from .errors import DataError, DataWarning, ModelFormatError, TreeprobeError, UnsafeModelError, UnsupportedModelError
-from .hstat import HStatResult, h_statistic
+from .graph import ForestGraph
 from .io import load_model
+from .measure import MeasureResult, h_statistic
 from .pdp import partial_dependence
-from .report import report
-from .structure import StructureResult, structure, structure_by_round
-from .triage import TriageResult, triage
+from .reporting import report
+from .verdicts import TriageResult, triage
 
 __version__ = "0.1.0"
 
 __all__ = [
-    "TreeEnsemble",
+    "ForestGraph",
     "load_model",
     "structure",
     "structure_by_round",
     "StructureResult",
     "h_statistic",
-    "HStatResult",
+    "MeasureResult",
     "partial_dependence",
     "report",
     "triage",

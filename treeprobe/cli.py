@@ -25,7 +25,7 @@ __all__ = ["main", "build_parser"]
 _CAUTION_STRUCTURE = (
     "Co-occurrence on a path shows what the trees combine, not that the features interact: an additive effect "
     "split in sequence, or two correlated features standing in for each other, also share paths. Measure on data "
-    "(treeprobe hstat) before drawing conclusions."
+    "(treeprobe measure) before drawing conclusions."
 )
 _CAUTION_H = (
     "H-statistics evaluate the model away from the data when features are dependent (partial dependence "
@@ -72,13 +72,13 @@ def _emit_csv(tables: dict[str, pd.DataFrame], args: argparse.Namespace) -> int:
 
 
 def _load(args: argparse.Namespace):
-    from .ensemble import TreeEnsemble
+    from .graph import ForestGraph
     from .io import load_model, read_model_file
 
     loaded = read_model_file(args.model, trust_pickle=args.trust_pickle)
     # A trusted pickle keeps the live model object: it knows its full training set-up for refits.
-    args.model_object = None if isinstance(loaded, TreeEnsemble) else loaded
-    ensemble = loaded if isinstance(loaded, TreeEnsemble) else load_model(loaded)
+    args.model_object = None if isinstance(loaded, ForestGraph) else loaded
+    ensemble = loaded if isinstance(loaded, ForestGraph) else load_model(loaded)
     return replace(ensemble, source=str(args.model)) if ensemble.source != str(args.model) else ensemble
 
 
@@ -88,7 +88,7 @@ def _model_lines(summary: dict[str, Any]) -> list[str]:
         f"library    {summary['library']}   objective {summary['objective'] or '-'}   link {summary['link']}",
         f"trees      {summary['n_trees']:,}   outputs {summary['n_outputs']}   nodes {summary['n_nodes']:,}   "
         f"leaves {summary['n_leaves']:,}",
-        f"depth      max {summary['max_depth']}   mean {summary['mean_depth']:.2f}   "
+        f"depth      max {summary['max_depth']}   mean {summary['mean_tree_depth']:.2f}   "
         f"leaves per tree mean {summary['mean_leaves']:.1f}   max {summary['max_leaves']}",
         f"features   {summary['n_features_used']} of {summary['n_features']} used"
         + (f" ({summary['n_categorical_features']} categorical)" if summary["n_categorical_features"] else ""),
@@ -97,13 +97,13 @@ def _model_lines(summary: dict[str, Any]) -> list[str]:
 
 # ------------------------------------------------------------------ inspect
 def _cmd_inspect(args: argparse.Namespace) -> int:
-    from .structure import structure
+    from .cooccurrence import structure
 
     if args.order < 1:
         raise _UsageError(f"--order must be at least 1, got {args.order}")
     ens = _load(args)
     trees = _parse_tree_range(args.trees)
-    result = structure(ens, max_order=max(args.order, 2), trees=trees, output=args.output)
+    result = structure(ens, max_order=max(args.order, 2), trees=trees, output=args.class_index)
     tables = {"features": result.features, "pairs": result.pairs, "triples": result.triples}
     for k, frame in getattr(result, "sets", {}).items():
         tables[f"order{k}"] = frame
@@ -149,7 +149,7 @@ def _wrap(text: str, width: int = 100) -> str:
     return "\n".join(textwrap.wrap("Note: " + text, width=width))
 
 
-# -------------------------------------------------------------------- hstat
+# ------------------------------------------------------------------ measure
 def _read_data(args: argparse.Namespace, ens: Any) -> pd.DataFrame:
     """The model's feature columns (and the target) of the data file, checked and coerced; notes to stderr."""
     from .data import load_data
@@ -178,8 +178,8 @@ def _parse_pairs(text: str | None) -> list[tuple[str, str]] | None:
     return pairs
 
 
-def _cmd_hstat(args: argparse.Namespace) -> int:
-    from .hstat import h_statistic
+def _cmd_measure(args: argparse.Namespace) -> int:
+    from .measure import h_statistic
 
     if args.sample is not None and args.sample < 2:
         raise _UsageError(f"--sample must be at least 2, got {args.sample}")
@@ -193,12 +193,12 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
         method=args.method,
         sample=None if args.sample == 0 else args.sample,
         random_state=args.seed,
-        output=args.output,
+        output=args.class_index,
         scale=args.scale,
         n_jobs=args.jobs,
         progress=None if not args.quiet else False,
     )
-    tables = {"pairs": result.pairs, "overall": result.overall}
+    tables = {"pairs": result.pairs, "against_rest": result.against_rest}
     if args.triples:
         tables["triples"] = result.triples
     tables = {name: frame.sort_values(args.sort, ascending=False, kind="stable").reset_index(drop=True)
@@ -212,11 +212,11 @@ def _cmd_hstat(args: argparse.Namespace) -> int:
     lines = [
         f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)",
         f"data       {args.data}: {facts.get('n_rows', '?')} rows used, method {facts.get('method', '?')}, "
-        f"scale {facts.get('scale', 'raw')}, {facts.get('seconds', float('nan')):.2f} s",
+        f"scale {facts.get('scale', 'margin')}, {facts.get('seconds', float('nan')):.2f} s",
         "",
         format_table(tables["pairs"], max_rows=args.top, title="Pairwise H-statistics (h2 normalised, h in output units)"),
         "",
-        format_table(tables["overall"], max_rows=args.top, title="Each feature against all others"),
+        format_table(tables["against_rest"], max_rows=args.top, title="Each feature against all others"),
     ]
     if "triples" in tables:
         lines += ["", format_table(tables["triples"], max_rows=args.top, title="Three-way H-statistics")]
@@ -240,7 +240,7 @@ def _verdict_legend(rules: dict[str, str]) -> str:
 
 
 def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
-    from .triage import triage
+    from .verdicts import triage
 
     if args.target is not None and args.target not in data.columns:
         raise TreeprobeError(f"{args.data}: no target column {args.target!r}; columns are {', '.join(map(str, data.columns))}")
@@ -255,7 +255,7 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
         min_h2=args.min_h2,
         min_effect=args.min_effect,
         max_dependence=args.max_dependence,
-        output=args.output,
+        output=args.class_index,
         random_state=args.seed,
         n_jobs=args.jobs,
         progress=False if args.quiet else None,
@@ -368,7 +368,7 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
 
 # ------------------------------------------------------------------- report
 def _cmd_report(args: argparse.Namespace) -> int:
-    from .report import report
+    from .reporting import report
 
     if args.validate and args.target is None:
         raise _UsageError("--validate retrains the model and needs --target")
@@ -409,7 +409,7 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--min-effect", type=float, default=0.05,
                    help="smallest interaction size h as a share of the prediction spread (default 0.05)")
     p.add_argument("--max-dependence", type=float, default=0.7,
-                   help="dependence from which a pair is 'confounded' (default 0.7)")
+                   help="dependence from which a pair is 'dependent' (default 0.7)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers for refits (default 1; -1 = all cores)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -429,8 +429,8 @@ def _add_common(p: argparse.ArgumentParser) -> None:
                    help="output format (default: table); json and csv mirror the result tables' columns")
     p.add_argument("--out", metavar="FILE", help="write to FILE (atomically) instead of standard output")
     p.add_argument("--top", type=int, default=20, metavar="N", help="rows per table in table format (default: 20)")
-    p.add_argument("--output", type=int, default=None, metavar="I",
-                   help="restrict to output I of a multiclass model (class index)")
+    p.add_argument("--class", dest="class_index", type=int, default=None, metavar="I",
+                   help="restrict to class I of a multiclass model (0-based class index)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -455,7 +455,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--table", default="pairs", help="table to write with --format csv (features, pairs, triples; default pairs)")
     p.set_defaults(handler=_cmd_inspect)
 
-    p = sub.add_parser("hstat", help="Friedman-Popescu H-statistics of the model on data",
+    p = sub.add_parser("measure", help="Friedman-Popescu H-statistics of the model on data",
                        description="Measure how much of the model's variation is interaction, with Friedman & "
                                    "Popescu's H-statistics (2008) computed on rows of your data.")
     _add_common(p)
@@ -471,14 +471,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=0, help="random seed of the row sample (default 0)")
     p.add_argument("--method", choices=("auto", "exact", "brute"), default="auto",
                    help="exact tree algorithm or brute-force partial dependence (default: exact for trees)")
-    p.add_argument("--scale", choices=("raw", "probability"), default="raw",
-                   help="raw margin (default; log-odds for classifiers) or the probability scale (brute force, slower)")
+    p.add_argument("--scale", choices=("margin", "probability"), default="margin",
+                   help="margin (default; the raw score, log-odds for classifiers) or the probability scale (brute force, slower)")
     p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers (default 1; -1 = all cores)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, overall, triples; default pairs)")
-    p.set_defaults(handler=_cmd_hstat)
+    p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, against_rest, triples; default pairs)")
+    p.set_defaults(handler=_cmd_measure)
 
-    p = sub.add_parser("triage", help="verdict per feature pair: interaction, co-split, confounded or absent",
+    p = sub.add_parser("triage", help="verdict per feature pair: interaction, co-split, dependent or absent",
                        description="Tell real interactions from structural co-splits and dependence artefacts: path "
                                    "structure, H-statistics with a resampling interval and a refit noise floor, and "
                                    "the dependence of each pair in the data.")
@@ -511,7 +511,8 @@ def build_parser() -> argparse.ArgumentParser:
     _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
                    help="HTML file to write (default: treeprobe-report.html)")
-    p.add_argument("--output", type=int, default=None, metavar="I", help="output (class) of a multiclass model")
+    p.add_argument("--class", dest="class_index", type=int, default=None, metavar="I",
+                   help="class I of a multiclass model (0-based class index)")
     p.add_argument("--title", help="page title (default: from the model file name)")
     p.add_argument("--top-pairs", type=int, default=4, metavar="N", help="pairs drawn as partial dependence (default 4)")
     p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")

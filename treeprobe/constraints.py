@@ -5,7 +5,7 @@ groups: a tree may only combine on one root-to-leaf path features that lie in
 a common group [1]_ [2]_. This module turns the triage of feature pairs into
 such groups, exports them in each library's accepted form, and checks them
 by retraining: cross-validated loss with and without the groups, and a walk
-of the constrained refit (:mod:`treeprobe.structure`) to confirm that no path
+of the constrained refit (:mod:`treeprobe.cooccurrence`) to confirm that no path
 crosses the groups.
 
 The groups are the maximal cliques [3]_ of the graph whose edges are the
@@ -16,7 +16,7 @@ be used, alone).
 How the libraries enforce groups (measured, not from documentation)
 -------------------------------------------------------------------
 Facts established by training with ``interaction_constraints`` and walking
-the result with :func:`treeprobe.structure.structure`; tested in
+the result with :func:`treeprobe.cooccurrence.structure`; tested in
 ``tests/test_constraints.py`` so that a library change is noticed. Versions
 tested: xgboost-cpu 3.2.0 (``hist``, ``approx`` and ``exact`` tree methods)
 and lightgbm 4.7.0.
@@ -77,8 +77,8 @@ import networkx as nx
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError, MissingLibraryError, UnsupportedModelError
+from .graph import ForestGraph
 from .output import Progress, atomic_write, dumps_json, to_jsonable
 from .refit import (
     BINARY,
@@ -106,15 +106,15 @@ __all__ = [
     "validate_constraints",
 ]
 
-VERDICTS = ("interaction", "co-split", "confounded", "absent")
+VERDICTS = ("interaction", "co-split", "dependent", "absent")
 LIMITS = (
     "Groups follow the model's evidence: H-statistics extrapolate when features are dependent, path structure "
     "is not causation, and a model's interactions are not the world's."
 )
 _PAIR_COLUMNS = ("feature_a", "feature_b", "verdict", "strength")
 _TRIPLE_COLUMNS = ("feature_a", "feature_b", "feature_c", "verdict", "strength")
-_FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_overall", "used")
-_SCHEMA = "treeprobe.constraints/1"
+_FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_rest", "used")
+_SCHEMA = "treeprobe.constraints/2"
 _VALIDATION_SCHEMA = "treeprobe.constraints.validation/1"
 
 
@@ -135,8 +135,8 @@ def _frame_of(result: Any, attribute: str, required: Sequence[str], *, allow_mis
 
 def _feature_names(result: Any) -> tuple[str, ...]:
     ensemble = getattr(result, "ensemble", None)
-    if not isinstance(ensemble, TreeEnsemble):
-        raise DataError(f"triage_result.ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    if not isinstance(ensemble, ForestGraph):
+        raise DataError(f"triage_result.ensemble must be a ForestGraph, got {type(ensemble).__name__}")
     return ensemble.feature_names
 
 
@@ -197,7 +197,7 @@ def interaction_graph(triage_result: Any, *, include: str | Sequence[str] = ("in
     Parameters
     ----------
     triage_result : triage result
-        Needs ``features`` (``feature``, ``gain``, ``splits``, ``h2_overall``,
+        Needs ``features`` (``feature``, ``gain``, ``splits``, ``h2_rest``,
         ``used``), ``pairs`` (``feature_a``, ``feature_b``, ``verdict``,
         ``strength`` and any further columns) and ``ensemble``.
     include : str or sequence of str, default ("interaction",)
@@ -207,7 +207,7 @@ def interaction_graph(triage_result: Any, *, include: str | Sequence[str] = ("in
     -------
     networkx.Graph
         One node per row of ``features`` (attributes ``gain``, ``splits``,
-        ``h2_overall``, ``used``) and one edge per row of ``pairs``, carrying
+        ``h2_rest``, ``used``) and one edge per row of ``pairs``, carrying
         every column of the row and ``allowed``. Attribute values are plain
         str, int, float or bool (NaN kept as float; missing text as ""), so the
         graph can be written as GraphML. Graph attributes: ``include`` (the
@@ -222,12 +222,12 @@ def interaction_graph(triage_result: Any, *, include: str | Sequence[str] = ("in
     --------
     >>> import pandas as pd
     >>> from types import SimpleNamespace
-    >>> from treeprobe.ensemble import TreeEnsemble
-    >>> ens = TreeEnsemble.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
+    >>> from treeprobe.graph import ForestGraph
+    >>> ens = ForestGraph.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
     ...     right=[2, -1, -1], value=[0, 1.0, 2.0], tree_offsets=[0, 3], feature_names=["fuel_price", "shift_length"])
     >>> result = SimpleNamespace(ensemble=ens,
     ...     features=pd.DataFrame({"feature": ["fuel_price", "shift_length"], "gain": [3.0, 1.0],
-    ...                            "splits": [4, 2], "h2_overall": [0.2, 0.1], "used": [True, True]}),
+    ...                            "splits": [4, 2], "h2_rest": [0.2, 0.1], "used": [True, True]}),
     ...     pairs=pd.DataFrame({"feature_a": ["fuel_price"], "feature_b": ["shift_length"],
     ...                         "verdict": ["interaction"], "strength": [0.4]}))
     >>> graph = interaction_graph(result)
@@ -242,7 +242,7 @@ def interaction_graph(triage_result: Any, *, include: str | Sequence[str] = ("in
     _check_members(features, ["feature"], known, "features")
     _check_members(pairs, ["feature_a", "feature_b"], known, "pairs")
     graph = nx.Graph(include=",".join(verdicts), limits=LIMITS)
-    node_kinds = {"gain": "float", "splits": "int", "h2_overall": "float", "used": "bool"}
+    node_kinds = {"gain": "float", "splits": "int", "h2_rest": "float", "used": "bool"}
     for row in features.itertuples(index=False):
         graph.add_node(str(row.feature), **{key: _scalar(getattr(row, key), kind) for key, kind in node_kinds.items()})
     kinds = {column: _column_kind(pairs[column]) for column in pairs.columns}
@@ -453,13 +453,13 @@ def suggest_constraints(
     --------
     >>> import pandas as pd
     >>> from types import SimpleNamespace
-    >>> from treeprobe.ensemble import TreeEnsemble
+    >>> from treeprobe.graph import ForestGraph
     >>> names = ["fuel_price", "shift_length", "crew_size"]
-    >>> ens = TreeEnsemble.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
+    >>> ens = ForestGraph.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
     ...     right=[2, -1, -1], value=[0, 1.0, 2.0], tree_offsets=[0, 3], feature_names=names)
     >>> result = SimpleNamespace(ensemble=ens,
     ...     features=pd.DataFrame({"feature": names, "gain": [3.0, 1.0, 0.0], "splits": [4, 2, 0],
-    ...                            "h2_overall": [0.2, 0.1, 0.0], "used": [True, True, False]}),
+    ...                            "h2_rest": [0.2, 0.1, 0.0], "used": [True, True, False]}),
     ...     pairs=pd.DataFrame({"feature_a": ["fuel_price"], "feature_b": ["shift_length"],
     ...                         "verdict": ["interaction"], "strength": [0.4]}))
     >>> suggestion = suggest_constraints(result)
@@ -586,7 +586,7 @@ def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> 
     return {"log_loss": float(log_loss(y, probability, labels=list(range(n_classes))))}
 
 
-def _leaf_feature_sets(ensemble: TreeEnsemble) -> np.ndarray:
+def _leaf_feature_sets(ensemble: ForestGraph) -> np.ndarray:
     """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix."""
     n_bytes = max(1, -(-ensemble.n_features // 8))
     masks = np.zeros((ensemble.n_nodes, n_bytes), dtype=np.uint8)
@@ -603,10 +603,10 @@ def _leaf_feature_sets(ensemble: TreeEnsemble) -> np.ndarray:
     return np.unpackbits(leaf_masks, axis=1, bitorder="little")[:, :ensemble.n_features].astype(bool)
 
 
-def _cross_group(refit: TreeEnsemble, groups: list[list[int]],
+def _cross_group(refit: ForestGraph, groups: list[list[int]],
                  columns: tuple[str, ...]) -> tuple[list[tuple[str, str]], list[list[str]]]:
     """Pairs on a path that no group contains, and path feature sets that no group contains."""
-    from .structure import structure
+    from .cooccurrence import structure
 
     within = {pair for group in groups for pair in combinations(sorted(group), 2)}
     position = {name: j for j, name in enumerate(refit.feature_names)}
@@ -691,7 +691,7 @@ def validate_constraints(
 
     Parameters
     ----------
-    model_or_params : model, model file, TreeEnsemble or dict
+    model_or_params : model, model file, ForestGraph or dict
         An XGBoost or LightGBM model (object or saved file) whose library,
         objective and hyperparameters are reused, or a dict of native training
         parameters (then ``library`` and ``num_boost_round`` are required).
@@ -751,7 +751,7 @@ def validate_constraints(
     deviation ``sd`` and the interval ``d +/- t(0.975, K - 1) sd / sqrt(K)``.
     Fold scores share training rows, so the interval is a rough guide that
     tends to be too narrow [1]_ (common practice nonetheless). Then a
-    constrained refit on all rows is walked (:func:`treeprobe.structure.structure`)
+    constrained refit on all rows is walked (:func:`treeprobe.cooccurrence.structure`)
     to list pairs and path sets that no group contains.
 
     References

@@ -32,8 +32,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble, UnseenCategoryWarning, _missing_columns_message, _numeric_values
 from .errors import DataError, DataWarning
+from .graph import ForestGraph, UnseenCategoryWarning, _missing_columns_message, _numeric_values
 
 __all__ = ["read_table", "prepare_data", "load_data", "DataReport"]
 
@@ -215,7 +215,7 @@ def read_table(
     return frame
 
 
-def _feature_columns(ensemble: TreeEnsemble, columns: list[str], target: str | None) -> tuple[list[str], str]:
+def _feature_columns(ensemble: ForestGraph, columns: list[str], target: str | None) -> tuple[list[str], str]:
     """Data columns feeding the model's features, in the model's order, and how they were matched."""
     candidates = [c for c in columns if c != target]
     if len(set(candidates)) != len(candidates):
@@ -231,7 +231,7 @@ def _feature_columns(ensemble: TreeEnsemble, columns: list[str], target: str | N
 
 
 def prepare_data(
-    ensemble: TreeEnsemble,
+    ensemble: ForestGraph,
     frame: pd.DataFrame,
     *,
     target: str | None = None,
@@ -240,7 +240,7 @@ def prepare_data(
 
     Parameters
     ----------
-    ensemble : TreeEnsemble
+    ensemble : ForestGraph
         The model whose features the data must provide.
     frame : DataFrame
         The data, as read by :func:`read_table` or built by hand.
@@ -254,7 +254,7 @@ def prepare_data(
         One column per model feature, named and ordered as the model's
         features (plus ``target`` last, when given); numeric features as
         float64, categorical features as they came (the model's own levels
-        code them, see :meth:`TreeEnsemble.check_X`). The index is kept, so
+        code them, see :meth:`ForestGraph.check_X`). The index is kept, so
         row labels in messages are the data's own.
     report : DataReport
         How columns were matched and what was coerced; ``report.lines()``
@@ -288,8 +288,8 @@ def prepare_data(
     Examples
     --------
     >>> import pandas as pd
-    >>> from treeprobe import TreeEnsemble
-    >>> model = TreeEnsemble.from_arrays(
+    >>> from treeprobe import ForestGraph
+    >>> model = ForestGraph.from_arrays(
     ...     feature=[0, -1, -1], threshold=[1.5, 0, 0], left=[1, -1, -1], right=[2, -1, -1],
     ...     value=[0, 10, 20], tree_offsets=[0, 3], feature_names=["shift_length"])
     >>> frame = pd.DataFrame({"crew": [3, 4], "shift_length": ["1.0", "2.5"]})
@@ -297,8 +297,8 @@ def prepare_data(
     >>> prepared["shift_length"].tolist()
     [1.0, 2.5]
     """
-    if not isinstance(ensemble, TreeEnsemble):
-        raise TypeError(f"ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    if not isinstance(ensemble, ForestGraph):
+        raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
     if not isinstance(frame, pd.DataFrame):
         raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
     if target is not None and not isinstance(target, str):
@@ -351,7 +351,7 @@ def prepare_data(
 
 
 def load_data(
-    ensemble: TreeEnsemble,
+    ensemble: ForestGraph,
     path: str | os.PathLike,
     *,
     target: str | None = None,
@@ -366,7 +366,7 @@ def load_data(
 
     Parameters
     ----------
-    ensemble : TreeEnsemble
+    ensemble : ForestGraph
         The model whose features the data must provide.
     path : str or path
         CSV, or Parquet with pyarrow installed.
@@ -388,8 +388,8 @@ def load_data(
     DataError
         As :func:`read_table` and :func:`prepare_data`.
     """
-    if not isinstance(ensemble, TreeEnsemble):
-        raise TypeError(f"ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    if not isinstance(ensemble, ForestGraph):
+        raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
     p = Path(path)
     if not p.is_file():
         raise DataError(f"{p}: data file not found")

@@ -256,17 +256,17 @@ _ITEM_TEXT = {
     "pairwise": f"pairwise    {_PAIRWISE[0]} x {_PAIRWISE[1]}: warm air comes in while the door is open",
     "three_way": f"three-way   {' x '.join(_THREE_WAY)}: frost on old coils in humid air",
     "additive_pair": f"additive    {_ADDITIVE[0]} + {_ADDITIVE[1]}: strong separate effects, expected co-split",
-    "correlated_pair": f"dependent   {_CORRELATED[0]} ~ {_CORRELATED[1]}: additive, expected confounded, never interaction",
+    "correlated_pair": f"dependent   {_CORRELATED[0]} ~ {_CORRELATED[1]}: additive, expected dependent, never interaction",
     "isolated": f"isolated    {_ISOLATED}: additive, alone in its own constraint group, expected absent",
     "noise": f"noise       {', '.join(_NOISE)}: no effect, never interaction",
 }
 
 
 def _shown_pairs(pairs: pd.DataFrame) -> pd.DataFrame:
-    """Interaction and confounded pairs, the ground truth's additive pair, the strongest other co-splits, two absent."""
+    """Interaction and dependent pairs, the ground truth's additive pair, the strongest other co-splits, two absent."""
     additive = pairs.apply(lambda row: {row["feature_a"], row["feature_b"]} == set(_ADDITIVE), axis=1)
     co_split = pairs["verdict"] == "co-split"
-    parts = [pairs[pairs["verdict"] == "interaction"], pairs[pairs["verdict"] == "confounded"],
+    parts = [pairs[pairs["verdict"] == "interaction"], pairs[pairs["verdict"] == "dependent"],
              pairs[co_split & additive], pairs[co_split & ~additive].head(2), pairs[pairs["verdict"] == "absent"].head(2)]
     shown = pd.concat(parts)[["feature_a", "feature_b", "verdict", "strength", "h2", "dependence"]]
     return shown.reset_index(drop=True)
@@ -341,7 +341,7 @@ def _train_lightgbm(X: pd.DataFrame, y: np.ndarray, path: Path) -> Path | None:
 
 def _report_function() -> Callable | None:
     try:
-        from .report import report
+        from .reporting import report
     except ImportError:
         return None
     return report
@@ -396,10 +396,10 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
        ensembles", Annals of Applied Statistics 2(3), 916-954, 2008.
     """
     from .constraints import interaction_graph, suggest_constraints, validate_constraints, write_graphml
-    from .hstat import h_statistic
+    from .cooccurrence import structure
     from .io import load_model
-    from .structure import structure
-    from .triage import triage
+    from .measure import h_statistic
+    from .verdicts import triage
 
     folder = _check_arguments(out_dir, quiet, stream)
     xgboost = _import_xgboost()
@@ -431,7 +431,7 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
     model = load_model(files["model_xgboost.json"])
     walked = structure(model, max_order=3)
     clock = lap("structure", clock)
-    truth_h = h_statistic(model, X, pairs=[_PAIRWISE, _ADDITIVE], triples=[_THREE_WAY], overall=False,
+    truth_h = h_statistic(model, X, pairs=[_PAIRWISE, _ADDITIVE], triples=[_THREE_WAY], against_rest=False,
                           sample=_TRIAGE_SAMPLE, progress=progress)
     clock = lap("H-statistics", clock)
     # A saved XGBoost file keeps no training parameters; the refits need the ones used here.
@@ -461,7 +461,7 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
     files["interaction_graph.graphml"] = write_graphml(interaction_graph(result), folder / "interaction_graph.graphml")
     report = _report_function()
     if report is None:
-        notes.append("The HTML report was skipped: treeprobe.report is not available in this installation.")
+        notes.append("The HTML report was skipped: treeprobe.reporting is not available in this installation.")
     else:
         files["report.html"] = Path(report(model, X, y, out=folder / "report.html", triage_result=result,
                                            suggestion=suggestion, validation=validation,

@@ -17,7 +17,7 @@ Hierarchy::
     UserWarning
     └── DataWarning              data usable, but something was ignored or changed
 
-(``treeprobe.ensemble.UnseenCategoryWarning`` is the warning for category
+(``treeprobe.graph.UnseenCategoryWarning`` is the warning for category
 levels the model never saw.)
 """
 

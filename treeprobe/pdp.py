@@ -9,7 +9,7 @@ features in ``S`` held at ``z``::
 The brute-force estimate evaluates ``f`` on ``n`` modified copies of the
 background per point ``z``. For a tree ensemble the same number follows from the
 tree structure alone, which is what makes exact H-statistics cheap
-(:mod:`treeprobe.hstat`).
+(:mod:`treeprobe.measure`).
 
 Exact partial dependence of a tree (our derivation from the definitions)
 ------------------------------------------------------------------------
@@ -50,8 +50,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError
+from .graph import ForestGraph
 
 __all__ = ["partial_dependence"]
 
@@ -66,7 +66,7 @@ BRUTE_BATCH_BYTES = 256 * 1024**2
 class FittedModel:
     """A model resolved for partial dependence: a tree ensemble or a prediction callable."""
 
-    ensemble: TreeEnsemble | None
+    ensemble: ForestGraph | None
     predict: Callable[[Any], Any] | None
 
     @property
@@ -77,11 +77,11 @@ class FittedModel:
 def resolve_model(model: Any) -> FittedModel:
     """Turn the user's ``model`` argument into a :class:`FittedModel`.
 
-    A :class:`TreeEnsemble` is used as is; a plain callable (a function, not a
+    A :class:`ForestGraph` is used as is; a plain callable (a function, not a
     model object with a ``predict`` method) is a predictor; anything else goes
     through :func:`treeprobe.load_model`.
     """
-    if isinstance(model, TreeEnsemble):
+    if isinstance(model, ForestGraph):
         return FittedModel(model, None)
     if callable(model) and not hasattr(model, "predict"):
         return FittedModel(None, model)
@@ -178,10 +178,10 @@ def feature_index(names: Sequence[str], feature: Any, *, parameter: str) -> int:
 
 
 # --------------------------------------------------------------------------- outputs
-def leaf_value_column(ens: TreeEnsemble, output: int) -> tuple[np.ndarray, np.ndarray]:
+def leaf_value_column(ens: ForestGraph, output: int) -> tuple[np.ndarray, np.ndarray]:
     """Trees adding to raw output ``output`` and, per node, its weighted value for that output."""
     trees = ens.trees_of_output(output)
-    column = np.where(ens.tree_output[ens.tree] == -1, output, 0) if ens.value.shape[1] > 1 else np.zeros(
+    column = np.where(ens.output_of_tree[ens.tree] == -1, output, 0) if ens.value.shape[1] > 1 else np.zeros(
         ens.n_nodes, dtype=np.int64
     )
     weighted = ens.value[np.arange(ens.n_nodes), column] * ens.tree_weight[ens.tree]
@@ -217,7 +217,7 @@ class PathTable:
         return int(self.entry_leaf.shape[0])
 
 
-def parent_links(ens: TreeEnsemble) -> tuple[np.ndarray, np.ndarray]:
+def parent_links(ens: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
     """Parent of every node (-1 at roots) and whether the node is its parent's left child."""
     parent = np.full(ens.n_nodes, -1, dtype=np.int64)
     is_left = np.zeros(ens.n_nodes, dtype=bool)
@@ -229,7 +229,7 @@ def parent_links(ens: TreeEnsemble) -> tuple[np.ndarray, np.ndarray]:
 
 
 def path_table(
-    ens: TreeEnsemble, trees: np.ndarray, node_value: np.ndarray, links: tuple[np.ndarray, np.ndarray]
+    ens: ForestGraph, trees: np.ndarray, node_value: np.ndarray, links: tuple[np.ndarray, np.ndarray]
 ) -> PathTable:
     """Build the :class:`PathTable` of ``trees`` (global tree indices)."""
     parent, is_left = links
@@ -275,7 +275,7 @@ def path_table(
     )
 
 
-def tree_chunks(ens: TreeEnsemble, trees: np.ndarray, n_rows: int) -> list[np.ndarray]:
+def tree_chunks(ens: ForestGraph, trees: np.ndarray, n_rows: int) -> list[np.ndarray]:
     """Split ``trees`` into chunks whose path steps times ``n_rows`` stay near :data:`CELL_BUDGET`."""
     leaves = ens.feature < 0
     steps = np.bincount(ens.tree[leaves], weights=ens.depth[leaves], minlength=ens.n_trees)[trees]
@@ -285,7 +285,7 @@ def tree_chunks(ens: TreeEnsemble, trees: np.ndarray, n_rows: int) -> list[np.nd
     return [c for c in np.split(trees, starts[1:]) if c.size]
 
 
-def failed_conditions(ens: TreeEnsemble, table: PathTable, matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def failed_conditions(ens: ForestGraph, table: PathTable, matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Which path conditions each row fails (entry-major layout, so gathers copy contiguous rows).
 
     Returns
@@ -296,7 +296,7 @@ def failed_conditions(ens: TreeEnsemble, table: PathTable, matrix: np.ndarray) -
     n_failed : ndarray of int16, shape (n_leaves, n_rows)
         Number of path features whose condition the row fails; 0 means the row reaches the leaf.
     """
-    columns = np.ascontiguousarray(matrix.astype(ens.input_dtype, copy=False).T)
+    columns = np.ascontiguousarray(matrix.astype(ens.split_dtype, copy=False).T)
     values = columns[ens.feature[table.used_nodes]]
     nodes = np.broadcast_to(table.used_nodes[:, None], values.shape)
     goes_left = ens._goes_left(nodes.ravel(), values.ravel()).reshape(values.shape)
@@ -382,23 +382,23 @@ def brute_partial_dependence(
     return np.concatenate(pieces, axis=0)
 
 
-def predictor_row_bytes(ens: TreeEnsemble | None, n_columns: int) -> int:
+def predictor_row_bytes(ens: ForestGraph | None, n_columns: int) -> int:
     """Working bytes per predicted row: the row, plus leaf indices and values per tree for an ensemble."""
     if ens is None:
         return 8 * max(n_columns, 1)
     return 8 * (n_columns + ens.n_trees * (1 + ens.value.shape[1]) + ens.n_outputs)
 
 
-def ensemble_predictor(ens: TreeEnsemble, scale: str) -> Callable[[np.ndarray], np.ndarray]:
+def ensemble_predictor(ens: ForestGraph, scale: str) -> Callable[[np.ndarray], np.ndarray]:
     """Predictor of ``ens`` on checked matrices: raw margin or the link's scale."""
-    if scale == "raw":
+    if scale == "margin":
         return lambda matrix: ens.predict_raw(matrix, checked=True)
     return ens.predict
 
 
 # --------------------------------------------------------------------------- exact
 def exact_partial_dependence(
-    ens: TreeEnsemble, background: np.ndarray, grid_rows: np.ndarray, columns: Sequence[int], output: int
+    ens: ForestGraph, background: np.ndarray, grid_rows: np.ndarray, columns: Sequence[int], output: int
 ) -> np.ndarray:
     """``F_S`` of raw output ``output`` at ``grid_rows`` (columns ``S`` used), background ``background``.
 
@@ -432,14 +432,14 @@ def partial_dependence(
     *,
     method: str = "auto",
     output: int | None = None,
-    scale: str = "raw",
+    scale: str = "margin",
 ) -> np.ndarray:
     """Partial dependence of a model on a set of features at given grid points.
 
     Parameters
     ----------
-    model : TreeEnsemble, model object, model file or callable
-        A :class:`~treeprobe.ensemble.TreeEnsemble`, anything
+    model : ForestGraph, model object, model file or callable
+        A :class:`~treeprobe.graph.ForestGraph`, anything
         :func:`treeprobe.load_model` reads, or a function ``predict(X) -> array``.
     X : ndarray or DataFrame of shape (n_rows, n_features)
         Background rows averaged over. For a callable, DataFrames are passed on
@@ -450,12 +450,12 @@ def partial_dependence(
         Values of the features in ``S`` at which to evaluate. Categorical
         features take their integer category codes.
     method : {"auto", "exact", "brute"}, default "auto"
-        "exact" reads the tree structure (tree ensembles, raw scale only);
+        "exact" reads the tree structure (tree ensembles, margin scale only);
         "brute" averages predictions over modified rows; "auto" picks "exact"
         whenever it applies.
     output : int, optional
         Output (class) of a multi-output model; None returns every output.
-    scale : {"raw", "probability"}, default "raw"
+    scale : {"margin", "probability"}, default "margin"
         Raw margin (log-odds for classifiers) or the link's scale (brute only).
 
     Returns
@@ -485,11 +485,11 @@ def partial_dependence(
     """
     if method not in ("auto", "exact", "brute"):
         raise DataError(f"method must be 'auto', 'exact' or 'brute', got {method!r}")
-    if scale not in ("raw", "probability"):
-        raise DataError(f"scale must be 'raw' or 'probability', got {scale!r}")
+    if scale not in ("margin", "probability"):
+        raise DataError(f"scale must be 'margin' or 'probability', got {scale!r}")
     fitted = resolve_model(model)
-    if method == "exact" and (not fitted.is_tree or scale != "raw"):
-        raise DataError("method='exact' needs a tree ensemble and scale='raw'")
+    if method == "exact" and (not fitted.is_tree or scale != "margin"):
+        raise DataError("method='exact' needs a tree ensemble and scale='margin'")
     data = prepare_rows(fitted, X, min_rows=1)
     if isinstance(features, (str, int, np.integer)) or len(features) == 0:
         raise DataError(f"features must be a non-empty sequence of feature names, got {features!r}")
@@ -506,7 +506,7 @@ def partial_dependence(
         raise DataError(f"output must lie in 0..{n_outputs - 1}, got {output}")
     grid_matrix = np.full((grid_values.shape[0], data.matrix.shape[1]), np.nan)
     grid_matrix[:, columns] = grid_values
-    if fitted.is_tree and method != "brute" and scale == "raw":
+    if fitted.is_tree and method != "brute" and scale == "margin":
         ens = fitted.ensemble
         outputs = [output] if output is not None else list(range(ens.n_outputs))
         values = [exact_partial_dependence(ens, data.matrix, grid_matrix, columns, k) for k in outputs]

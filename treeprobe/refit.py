@@ -2,7 +2,7 @@
 
 Later stages refit a model to test a hypothesis about it: the constraint
 validation of :mod:`treeprobe.constraints` refits with and without
-interaction constraints, and the noise floor of :mod:`treeprobe.triage`
+interaction constraints, and the noise floor of :mod:`treeprobe.verdicts`
 refits on synthetic targets with no interaction (Friedman and Popescu 2008,
 section 8.3). Both need the same thing: the training set-up read back from a
 saved model (LightGBM stores its parameters in the model text; a saved
@@ -20,8 +20,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError, MissingLibraryError, UnsupportedModelError
+from .graph import ForestGraph
 
 __all__ = [
     "LIBRARIES",
@@ -120,8 +120,8 @@ def task_of(library: str, objective: str) -> str:
     return REGRESSION
 
 
-def rounds_of(ensemble: TreeEnsemble) -> int:
-    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.tree_output >= 0))
+def rounds_of(ensemble: ForestGraph) -> int:
+    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
     parallel = max(int(ensemble.metadata.get("num_parallel_tree", 1) or 1), 1)
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 

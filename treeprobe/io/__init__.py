@@ -1,4 +1,4 @@
-"""Loaders: every supported source becomes one :class:`~treeprobe.ensemble.TreeEnsemble`.
+"""Loaders: every supported source becomes one :class:`~treeprobe.graph.ForestGraph`.
 
 One module per source library: :mod:`.xgboost` (JSON and UBJSON files, Booster
 and scikit-learn wrappers), :mod:`.lightgbm` (model text, Booster and wrappers),
@@ -13,8 +13,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from ..ensemble import TreeEnsemble
 from ..errors import ModelFormatError, UnsafeModelError, UnsupportedModelError
+from ..graph import ForestGraph
 
 __all__ = ["load_model", "read_model_file", "MAX_FILE_BYTES"]
 
@@ -53,8 +53,8 @@ def _load_pickle(path: Path, data: bytes) -> Any:
         raise ModelFormatError(f"{path}: cannot unpickle the file: {type(exc).__name__}: {exc}") from None
 
 
-def read_model_file(path: Path, trust_pickle: bool = False) -> TreeEnsemble | Any:
-    """Read a model file: a parsed :class:`TreeEnsemble`, or the unpickled object (only with ``trust_pickle``)."""
+def read_model_file(path: Path, trust_pickle: bool = False) -> ForestGraph | Any:
+    """Read a model file: a parsed :class:`ForestGraph`, or the unpickled object (only with ``trust_pickle``)."""
     path = Path(path)
     data = _read_file(path)
     if not data.strip():
@@ -86,7 +86,7 @@ def read_model_file(path: Path, trust_pickle: bool = False) -> TreeEnsemble | An
     )
 
 
-def _from_object(obj: Any, source: str) -> TreeEnsemble:
+def _from_object(obj: Any, source: str) -> ForestGraph:
     module = type(obj).__module__.split(".")[0]
     if module == "xgboost":
         from .xgboost import from_xgboost
@@ -102,7 +102,7 @@ def _from_object(obj: Any, source: str) -> TreeEnsemble:
         return from_sklearn(obj, source=source)
     raise UnsupportedModelError(
         f"{source}: cannot read a {type(obj).__module__}.{type(obj).__name__}; expected an XGBoost, LightGBM or "
-        "scikit-learn tree model, a saved model file, or a TreeEnsemble"
+        "scikit-learn tree model, a saved model file, or a ForestGraph"
     )
 
 
@@ -111,17 +111,17 @@ def load_model(
     feature_names: Sequence[str] | None = None,
     *,
     trust_pickle: bool = False,
-) -> TreeEnsemble:
+) -> ForestGraph:
     """Load a fitted tree ensemble into the common graph.
 
     Parameters
     ----------
-    source : str, path, model object or TreeEnsemble
+    source : str, path, model object or ForestGraph
         A saved XGBoost model (``.json`` or ``.ubj`` from ``save_model``), a
         LightGBM model text file, a pickle/joblib file of any supported model
         (only with ``trust_pickle=True``), an XGBoost ``Booster`` /
         ``XGBModel``, a LightGBM ``Booster`` / ``LGBMModel``, a scikit-learn
-        tree estimator, or a :class:`TreeEnsemble` (returned as is).
+        tree estimator, or a :class:`ForestGraph` (returned as is).
     feature_names : sequence of str, optional
         Names for the model's input columns, overriding (or supplying) the
         ones the model stores. Its length must equal the model's feature count.
@@ -131,7 +131,7 @@ def load_model(
 
     Returns
     -------
-    TreeEnsemble
+    ForestGraph
 
     Raises
     ------
@@ -142,12 +142,12 @@ def load_model(
     UnsupportedModelError
         A model object treeprobe does not read.
     """
-    if isinstance(source, TreeEnsemble):
+    if isinstance(source, ForestGraph):
         ens = source
     elif isinstance(source, (str, os.PathLike)):
         path = Path(source)
         loaded = read_model_file(path, trust_pickle)
-        ens = loaded if isinstance(loaded, TreeEnsemble) else _from_object(loaded, source=str(path))
+        ens = loaded if isinstance(loaded, ForestGraph) else _from_object(loaded, source=str(path))
     else:
         ens = _from_object(source, source=f"<{type(source).__name__} object>")
     if feature_names is not None:

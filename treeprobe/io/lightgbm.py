@@ -7,7 +7,7 @@ block per tree whose per-node arrays are space-separated numbers, an
 parameters (``[name: value]`` lines up to ``end of parameters``) and, from the
 Python package, the pandas category lists. This module parses that text
 without importing LightGBM and turns it into the common
-:class:`~treeprobe.ensemble.TreeEnsemble`; :func:`from_lightgbm` runs a live
+:class:`~treeprobe.graph.ForestGraph`; :func:`from_lightgbm` runs a live
 ``Booster`` or ``LGBMModel`` through the same parser via ``model_to_string``.
 
 Node layout
@@ -46,7 +46,7 @@ margin, so that the link reproduces ``predict``.
 
 Raw output and links
 --------------------
-:meth:`TreeEnsemble.predict_raw` equals ``Booster.predict(X, raw_score=True)``
+:meth:`ForestGraph.predict_raw` equals ``Booster.predict(X, raw_score=True)``
 (random forests: see above).
 The link follows the objective: ``binary``, ``cross_entropy`` and
 ``multiclassova`` use "logit", ``multiclass`` "softmax", ``poisson``,
@@ -76,8 +76,8 @@ from typing import Any
 
 import numpy as np
 
-from ..ensemble import TreeEnsemble
 from ..errors import ModelFormatError, UnsupportedModelError
+from ..graph import ForestGraph
 
 __all__ = ["load_lightgbm_text", "from_lightgbm"]
 
@@ -352,8 +352,8 @@ def _link(objective: str) -> str:
     return "identity"
 
 
-def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
-    """Parse LightGBM model text into a :class:`~treeprobe.ensemble.TreeEnsemble`.
+def load_lightgbm_text(data: bytes | str, *, source: str) -> ForestGraph:
+    """Parse LightGBM model text into a :class:`~treeprobe.graph.ForestGraph`.
 
     Reading the text does not import LightGBM.
 
@@ -364,12 +364,12 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
         (bytes are decoded as UTF-8).
     source : str
         Where the text came from (a path, or a description); it heads every
-        error message and is stored as ``TreeEnsemble.source``.
+        error message and is stored as ``ForestGraph.source``.
 
     Returns
     -------
-    TreeEnsemble
-        ``library="lightgbm"``, ``threshold_rule="<="``, ``input_dtype="float64"``.
+    ForestGraph
+        ``library="lightgbm"``, ``threshold_rule="<="``, ``split_dtype="float64"``.
         ``gain`` is LightGBM's ``split_gain``, ``cover`` its ``internal_weight`` /
         ``leaf_weight`` (hessian sums), ``n_samples`` its ``internal_count`` /
         ``leaf_count``. ``metadata`` holds ``parameters`` (the training
@@ -629,7 +629,7 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
             metadata["link_scale"] = float(objective_options.get("sigmoid", 1.0))
         except ValueError:
             raise ModelFormatError(f"{source}: objective option sigmoid={objective_options['sigmoid']!r} is not a number") from None
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         feature=feature,
         threshold=node_threshold,
         left=left,
@@ -646,13 +646,13 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
         gain=gain,
         cover=cover,
         n_samples=n_samples,
-        tree_output=np.arange(n_trees) % per_iteration,
+        output_of_tree=np.arange(n_trees) % per_iteration,
         tree_weight=tree_weight,
         base_score=0.0,
         n_outputs=per_iteration,
         link=_link(objective),
         threshold_rule="<=",
-        input_dtype="float64",
+        split_dtype="float64",
         library="lightgbm",
         objective=objective,
         source=source,
@@ -661,7 +661,7 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> TreeEnsemble:
     )
 
 
-def from_lightgbm(obj: Any, *, source: str) -> TreeEnsemble:
+def from_lightgbm(obj: Any, *, source: str) -> ForestGraph:
     """Read a fitted LightGBM ``Booster``, ``LGBMRegressor``, ``LGBMClassifier`` or other ``LGBMModel``.
 
     The model is written out with ``Booster.model_to_string()`` and parsed by
@@ -674,11 +674,11 @@ def from_lightgbm(obj: Any, *, source: str) -> TreeEnsemble:
     obj : lightgbm.Booster or lightgbm.LGBMModel
         A fitted model.
     source : str
-        Description of the model for messages and ``TreeEnsemble.source``.
+        Description of the model for messages and ``ForestGraph.source``.
 
     Returns
     -------
-    TreeEnsemble
+    ForestGraph
         See :func:`load_lightgbm_text`.
 
     Raises

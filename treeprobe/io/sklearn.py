@@ -3,7 +3,7 @@
 scikit-learn keeps every classic tree as columnar arrays (``tree_.feature``,
 ``tree_.threshold``, ``tree_.children_left`` ...) and every histogram
 gradient-boosting tree as a structured ``nodes`` array; both map directly onto
-:class:`~treeprobe.ensemble.TreeEnsemble`. This module reads
+:class:`~treeprobe.graph.ForestGraph`. This module reads
 
 * single CART trees [1]_ (``DecisionTree*``, ``ExtraTree*``),
 * random forests [2]_ and extremely randomised trees [3]_ (``RandomForest*``,
@@ -46,8 +46,8 @@ from typing import Any
 
 import numpy as np
 
-from ..ensemble import TreeEnsemble
 from ..errors import UnsupportedModelError
+from ..graph import ForestGraph
 
 __all__ = ["from_sklearn", "sklearn_feature_importances"]
 
@@ -179,7 +179,7 @@ def _single_output_classes(estimator: Any, source: str) -> int:
 
 
 # ------------------------------------------------------------ classic trees
-def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool) -> TreeEnsemble:
+def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool) -> ForestGraph:
     from sklearn.base import is_classifier
 
     names, generic = _feature_names(estimator)
@@ -194,18 +194,18 @@ def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool
     n_values = nodes["value"].shape[1]
     meta = _common_metadata(estimator, generic)
     meta["importance_pooling"] = _POOL_NORMALISED
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
         feature_names=names,
         feature_types=["numeric"] * len(names),
-        tree_output=np.full(len(trees), -1 if n_values > 1 else 0),
+        output_of_tree=np.full(len(trees), -1 if n_values > 1 else 0),
         tree_weight=np.full(len(trees), 1.0 / len(trees) if averaged else 1.0),
         base_score=0.0,
         n_outputs=n_values,
         link=link,
         threshold_rule="<=",
-        input_dtype="float32",
+        split_dtype="float32",
         library="sklearn",
         objective=str(estimator.criterion),
         source=source,
@@ -239,7 +239,7 @@ def _boosting_base_score(estimator: Any, source: str) -> np.ndarray:
     return base
 
 
-def _from_gradient_boosting(estimator: Any, *, source: str) -> TreeEnsemble:
+def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
     from sklearn.base import is_classifier
 
     names, generic = _feature_names(estimator)
@@ -267,18 +267,18 @@ def _from_gradient_boosting(estimator: Any, *, source: str) -> TreeEnsemble:
             base = 2.0 * base
             weight = 2.0 * weight
             meta["margin_scale"] = 2.0
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
         feature_names=names,
         feature_types=["numeric"] * len(names),
-        tree_output=np.tile(np.arange(n_per_stage), n_stages),
+        output_of_tree=np.tile(np.arange(n_per_stage), n_stages),
         tree_weight=weight,
         base_score=base,
         n_outputs=n_per_stage,
         link=link,
         threshold_rule="<=",
-        input_dtype="float32",
+        split_dtype="float32",
         library="sklearn",
         objective=loss,
         source=source,
@@ -394,7 +394,7 @@ def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, c
     }
 
 
-def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> TreeEnsemble:
+def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
     from sklearn.base import is_classifier
     from sklearn.ensemble._hist_gradient_boosting.common import X_DTYPE
 
@@ -420,18 +420,18 @@ def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> TreeEnsemble
     meta = _common_metadata(estimator, generic)
     if labels:
         meta["category_levels"] = labels
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
         feature_names=names,
         feature_types=["categorical" if c else "numeric" for c in cat_columns],
-        tree_output=np.tile(np.arange(n_per_iteration), len(estimator._predictors)),
+        output_of_tree=np.tile(np.arange(n_per_iteration), len(estimator._predictors)),
         tree_weight=np.ones(len(predictors)),
         base_score=np.asarray(estimator._baseline_prediction, dtype=np.float64).ravel(),
         n_outputs=n_per_iteration,
         link=link,
         threshold_rule="<=",
-        input_dtype=np.dtype(X_DTYPE).name,
+        split_dtype=np.dtype(X_DTYPE).name,
         library="sklearn",
         objective=loss,
         source=source,
@@ -440,8 +440,8 @@ def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> TreeEnsemble
 
 
 # ------------------------------------------------------------------ public
-def from_sklearn(estimator: Any, *, source: str) -> TreeEnsemble:
-    """Convert a fitted scikit-learn tree estimator into a :class:`TreeEnsemble`.
+def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
+    """Convert a fitted scikit-learn tree estimator into a :class:`ForestGraph`.
 
     Parameters
     ----------
@@ -457,7 +457,7 @@ def from_sklearn(estimator: Any, *, source: str) -> TreeEnsemble:
 
     Returns
     -------
-    TreeEnsemble
+    ForestGraph
         With ``library="sklearn"``; ``objective`` is the criterion (trees,
         forests) or the loss (boosting); ``metadata`` holds ``estimator`` (class
         name), ``params`` (JSON-serialisable ``get_params()``), ``classes``
@@ -565,12 +565,12 @@ def from_sklearn(estimator: Any, *, source: str) -> TreeEnsemble:
     return _from_hist_gradient_boosting(estimator, source=source)
 
 
-def sklearn_feature_importances(ensemble: TreeEnsemble) -> np.ndarray:
+def sklearn_feature_importances(ensemble: ForestGraph) -> np.ndarray:
     """scikit-learn's impurity-based ``feature_importances_``, recomputed from ``ensemble.gain``.
 
     Parameters
     ----------
-    ensemble : TreeEnsemble
+    ensemble : ForestGraph
         Built by :func:`from_sklearn` from a tree, forest or classic gradient
         boosting estimator (``metadata["importance_pooling"]`` present).
 
@@ -614,8 +614,8 @@ def sklearn_feature_importances(ensemble: TreeEnsemble) -> np.ndarray:
     >>> bool(np.allclose(sklearn_feature_importances(ens), model.feature_importances_))
     True
     """
-    if not isinstance(ensemble, TreeEnsemble):
-        raise TypeError(f"ensemble must be a TreeEnsemble, got {type(ensemble).__name__}")
+    if not isinstance(ensemble, ForestGraph):
+        raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
     pooling = ensemble.metadata.get("importance_pooling")
     if pooling not in (_POOL_NORMALISED, _POOL_RAW):
         raise UnsupportedModelError(

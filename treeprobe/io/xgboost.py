@@ -4,10 +4,10 @@ XGBoost (Chen & Guestrin, 2016) saves a model as one JSON document (or its
 UBJSON twin) holding, per tree, columnar node arrays: children, split feature
 and condition, default direction, loss change (gain) and hessian sum (cover).
 This module checks that document strictly and turns it into a
-:class:`~treeprobe.ensemble.TreeEnsemble` whose ``predict_raw`` reproduces
+:class:`~treeprobe.graph.ForestGraph` whose ``predict_raw`` reproduces
 XGBoost's ``predict(..., output_margin=True)``.
 
-Mapping to the common semantics (see :mod:`treeprobe.ensemble`):
+Mapping to the common semantics (see :mod:`treeprobe.graph`):
 
 * numeric splits send ``x < split_condition`` left, comparing in float32;
   a missing value follows ``default_left``;
@@ -34,7 +34,7 @@ Limits: a categorical value is the category's integer code in the training
 data's category list. XGBoost >= 3.1 stores that list (kept here as
 ``metadata["category_names"]`` and ``metadata["category_levels"]``) and
 re-codes pandas categories by name when predicting, as
-:meth:`TreeEnsemble.check_X` then does; for older files give data whose
+:meth:`ForestGraph.check_X` then does; for older files give data whose
 categorical columns use the training categories in the training order, or
 integer codes. Linear boosters
 (``gblinear``) have no trees and are refused.
@@ -54,8 +54,8 @@ from typing import Any
 
 import numpy as np
 
-from ..ensemble import TreeEnsemble
 from ..errors import ModelFormatError, UnsupportedModelError
+from ..graph import ForestGraph
 from .ubjson import decode_ubjson
 
 __all__ = ["load_xgboost_json", "load_xgboost_ubjson", "from_xgboost"]
@@ -555,7 +555,7 @@ def _version_string(version: Any) -> str | None:
     return None
 
 
-def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> TreeEnsemble:
+def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> ForestGraph:
     """Check an XGBoost model document (decoded JSON/UBJSON) and build the ensemble.
 
     The document's per-tree node arrays are consumed (removed) on the way, to
@@ -567,10 +567,10 @@ def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> TreeE
     n_outputs = params["n_outputs"]
     sizes, vector_leaves = _tree_sizes(trees, n_outputs, source)
     nodes = _tree_nodes(trees, sizes, vector_leaves, params["n_features"], n_outputs, source)
-    tree_output = np.full(len(trees), -1) if vector_leaves else tree_info
-    if not vector_leaves and np.any(tree_output >= n_outputs):
-        t = int(np.flatnonzero(tree_output >= n_outputs)[0])
-        raise ModelFormatError(f"{source}: tree_info sends tree {t} to output {tree_output[t]}, the model has {n_outputs}")
+    output_of_tree = np.full(len(trees), -1) if vector_leaves else tree_info
+    if not vector_leaves and np.any(output_of_tree >= n_outputs):
+        t = int(np.flatnonzero(output_of_tree >= n_outputs)[0])
+        raise ModelFormatError(f"{source}: tree_info sends tree {t} to output {output_of_tree[t]}, the model has {n_outputs}")
 
     names, kinds = _feature_names_and_types(learner, params["n_features"], source)
     if kinds is not None:
@@ -598,7 +598,7 @@ def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> TreeE
         metadata["category_levels"] = category_names
         # XGBoost codes an unseen label as no known category: it takes the unlisted branch, not the missing one.
         metadata["unseen_category"] = "unlisted"
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         feature=nodes["feature"],
         threshold=nodes["threshold"],
         left=nodes["left"],
@@ -615,13 +615,13 @@ def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> TreeE
         categories=nodes["categories"],
         gain=nodes["gain"],
         cover=nodes["cover"],
-        tree_output=tree_output,
+        output_of_tree=output_of_tree,
         tree_weight=tree_weight,
         base_score=params["base_score"],
         n_outputs=n_outputs,
         link=params["link"],
         threshold_rule="<",
-        input_dtype="float32",
+        split_dtype="float32",
         library="xgboost",
         objective=params["objective"],
         source=source,
@@ -651,7 +651,7 @@ def _vector_leaf_values(trees: list, leaf: np.ndarray, right: np.ndarray, sizes:
     return value
 
 
-def load_xgboost_json(data: bytes | str, *, source: str) -> TreeEnsemble:
+def load_xgboost_json(data: bytes | str, *, source: str) -> ForestGraph:
     """Read an XGBoost model saved as JSON (``Booster.save_model("model.json")``).
 
     Parameters
@@ -664,8 +664,8 @@ def load_xgboost_json(data: bytes | str, *, source: str) -> TreeEnsemble:
 
     Returns
     -------
-    TreeEnsemble
-        With ``threshold_rule="<"``, ``input_dtype="float32"``, ``gain`` from
+    ForestGraph
+        With ``threshold_rule="<"``, ``split_dtype="float32"``, ``gain`` from
         ``loss_changes`` (0 at leaves) and ``cover`` from ``sum_hessian``.
 
     Raises
@@ -707,7 +707,7 @@ def load_xgboost_json(data: bytes | str, *, source: str) -> TreeEnsemble:
     return _ensemble_from_document(doc, source=source, file_format="json")
 
 
-def load_xgboost_ubjson(data: bytes, *, source: str) -> TreeEnsemble:
+def load_xgboost_ubjson(data: bytes, *, source: str) -> ForestGraph:
     """Read an XGBoost model saved as UBJSON (``Booster.save_model("model.ubj")``).
 
     Same document and checks as :func:`load_xgboost_json`; numeric node
@@ -722,7 +722,7 @@ def load_xgboost_ubjson(data: bytes, *, source: str) -> TreeEnsemble:
 
     Returns
     -------
-    TreeEnsemble
+    ForestGraph
 
     Raises
     ------
@@ -737,7 +737,7 @@ def load_xgboost_ubjson(data: bytes, *, source: str) -> TreeEnsemble:
     return _ensemble_from_document(doc, source=source, file_format="ubjson")
 
 
-def from_xgboost(obj: Any, *, source: str) -> TreeEnsemble:
+def from_xgboost(obj: Any, *, source: str) -> ForestGraph:
     """Read a fitted XGBoost ``Booster`` or scikit-learn wrapper (``XGBRegressor``, ``XGBClassifier``, ...).
 
     The booster is serialised with ``save_raw("ubj")`` and read by
@@ -752,7 +752,7 @@ def from_xgboost(obj: Any, *, source: str) -> TreeEnsemble:
 
     Returns
     -------
-    TreeEnsemble
+    ForestGraph
         Feature names and types are those the booster holds.
 
     Raises

@@ -1,6 +1,6 @@
 """One self-contained HTML page with the whole picture of a model's feature interactions.
 
-:func:`report` runs (or takes) the triage of :mod:`treeprobe.triage` and the
+:func:`report` runs (or takes) the triage of :mod:`treeprobe.verdicts` and the
 constraint suggestion of :mod:`treeprobe.constraints`, draws the figures with
 matplotlib, and writes a single HTML file: inline CSS, figures as inline SVG,
 no scripts and no link to anything outside the file, so it opens from disk,
@@ -67,8 +67,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError, MissingLibraryError
+from .graph import ForestGraph
 from .output import Progress, atomic_write
 
 __all__ = ["report", "SECTIONS", "VERDICT_STYLES"]
@@ -79,7 +79,7 @@ SECTIONS = ("summary", "pairs", "pair-map", "graph", "dependence", "rounds", "co
 # line style (graph edges), so a verdict never rests on colour alone.
 VERDICT_STYLES = {
     "interaction": {"colour": "#D55E00", "marker": "o", "filled": True, "glyph": "\u25cf", "line": "solid"},
-    "confounded": {"colour": "#E69F00", "marker": "^", "filled": True, "glyph": "\u25b2", "line": "dashed"},
+    "dependent": {"colour": "#E69F00", "marker": "^", "filled": True, "glyph": "\u25b2", "line": "dashed"},
     "co-split": {"colour": "#0072B2", "marker": "s", "filled": False, "glyph": "\u25a1", "line": "dotted"},
     "absent": {"colour": "#7F7F7F", "marker": "x", "filled": True, "glyph": "\u00d7", "line": "none"},
 }
@@ -116,7 +116,7 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 table.facts th { background: none; width: 16em; }
 .verdict { white-space: nowrap; font-weight: 600; padding-left: 6px; }
 .verdict-interaction { border-left: 5px solid #D55E00; }
-.verdict-confounded { border-left: 5px dashed #E69F00; }
+.verdict-dependent { border-left: 5px dashed #E69F00; }
 .verdict-co-split { border-left: 5px dotted #0072B2; }
 .verdict-absent { border-left: 5px double #7F7F7F; }
 .glyph { display: inline-block; width: 1.1em; text-align: center; }
@@ -298,12 +298,12 @@ def _features_of(X: Any, y: Any) -> Any:
 
 
 # ------------------------------------------------------------------ data for the figures
-def _category_labels(ens: TreeEnsemble, feature: int) -> list[str] | None:
+def _category_labels(ens: ForestGraph, feature: int) -> list[str] | None:
     levels = (ens.metadata.get("category_levels") or {}).get(ens.feature_names[feature])
     return [str(level) for level in levels] if levels is not None else None
 
 
-def _axis_values(ens: TreeEnsemble, matrix: np.ndarray, feature: int, points: int) -> tuple[np.ndarray, bool]:
+def _axis_values(ens: ForestGraph, matrix: np.ndarray, feature: int, points: int) -> tuple[np.ndarray, bool]:
     """Grid values of one feature: its most frequent categories, or quantiles of its observed values."""
     column = matrix[:, feature]
     column = column[~np.isnan(column)]
@@ -316,7 +316,7 @@ def _axis_values(ens: TreeEnsemble, matrix: np.ndarray, feature: int, points: in
     return np.unique(np.quantile(column, np.linspace(0.02, 0.98, points))), False
 
 
-def _fixed_values(ens: TreeEnsemble, matrix: np.ndarray, feature: int) -> tuple[np.ndarray, list[str]]:
+def _fixed_values(ens: ForestGraph, matrix: np.ndarray, feature: int) -> tuple[np.ndarray, list[str]]:
     """Values at which the second feature is held: quantiles (numeric) or the most frequent categories."""
     column = matrix[:, feature]
     column = column[~np.isnan(column)]
@@ -337,15 +337,15 @@ def _pair_key(a: Any, b: Any) -> frozenset:
 
 
 def _leading_pairs(pairs: pd.DataFrame, count: int) -> pd.DataFrame:
-    """Interaction and confounded pairs by strength, then the other pairs sharing paths in triage order."""
-    strong = pairs[pairs["verdict"].isin(["interaction", "confounded"])].sort_values("strength", ascending=False,
+    """Interaction and dependent pairs by strength, then the other pairs sharing paths in triage order."""
+    strong = pairs[pairs["verdict"].isin(["interaction", "dependent"])].sort_values("strength", ascending=False,
                                                                                    kind="stable")
-    rest = pairs[~pairs["verdict"].isin(["interaction", "confounded", "absent"])]
+    rest = pairs[~pairs["verdict"].isin(["interaction", "dependent", "absent"])]
     return pd.concat([strong, rest]).head(count)
 
 
 # ------------------------------------------------------------------ sections
-def _summary_section(ens: TreeEnsemble, result: Any, X_rows: int, target_text: str, steps: list[tuple[str, float]],
+def _summary_section(ens: ForestGraph, result: Any, X_rows: int, target_text: str, steps: list[tuple[str, float]],
                      computed_here: bool) -> str:
     facts = result.facts
     info = ens.summary()
@@ -354,7 +354,7 @@ def _summary_section(ens: TreeEnsemble, result: Any, X_rows: int, target_text: s
         ("Library / objective", f"{_e(info['library'])} / {_e(info['objective'] or '-')} (link: {_e(info['link'])})"),
         ("Trees", f"{info['n_trees']:,} ({_num(info['mean_leaves'])} leaves on average, at most {info['max_leaves']:,})"),
         ("Outputs", f"{info['n_outputs']}" + (f" (this report: output {facts.get('output', 0)})" if info["n_outputs"] > 1 else "")),
-        ("Depth", f"at most {info['max_depth']}, {_num(info['mean_depth'])} on average"),
+        ("Depth", f"at most {info['max_depth']}, {_num(info['mean_tree_depth'])} on average"),
         ("Features", f"{info['n_features_used']} used of {info['n_features']}"
                      + (f" ({info['n_categorical_features']} categorical)" if info["n_categorical_features"] else "")),
     ]
@@ -380,7 +380,7 @@ def _summary_section(ens: TreeEnsemble, result: Any, X_rows: int, target_text: s
     tally = result.pairs["verdict"].value_counts()
     tally_text = " · ".join(
         f'<span class="verdict-{v}" style="padding-left:4px">{VERDICT_STYLES[v]["glyph"]} {int(tally.get(v, 0))} {v}</span>'
-        for v in ("interaction", "confounded", "co-split", "absent"))
+        for v in ("interaction", "dependent", "co-split", "absent"))
 
     def facts_table(rows: list[tuple[str, str]]) -> str:
         return '<table class="facts"><tbody>' + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows) + \
@@ -433,7 +433,7 @@ def _pairs_section(result: Any) -> str:
     for rank, row in enumerate(shown.to_dict(orient="records"), start=1):
         verdict = str(row["verdict"])
         verdict_cell = _verdict_cell(verdict)
-        if verdict == "confounded" and "leans" in row:
+        if verdict == "dependent" and "leans" in row:
             verdict_cell = verdict_cell[: -len("</td>")] + f'<br><span class="note">leans {_e(row["leans"])}</span></td>'
         rows.append([str(rank), _e(row["feature_a"]), _e(row["feature_b"]), verdict_cell]
                     + [show(row) for _, show in columns])
@@ -500,15 +500,15 @@ def _graph_figure(canvas: _Canvas, result: Any) -> tuple[str, str]:
 
     from .constraints import interaction_graph
 
-    graph = interaction_graph(result, include=("interaction", "confounded"))
+    graph = interaction_graph(result, include=("interaction", "dependent"))
     used = [n for n, data in graph.nodes(data=True) if data.get("used")]
     graph = graph.subgraph(used).copy()
     edges = {v: [(a, b) for a, b, d in graph.edges(data=True) if d.get("verdict") == v]
-             for v in ("interaction", "confounded", "co-split")}
+             for v in ("interaction", "dependent", "co-split")}
     omit_dotted = len(edges["co-split"]) > _MAX_DOTTED_EDGES
     drawn = nx.Graph()
     drawn.add_nodes_from(graph.nodes)
-    drawn.add_edges_from(edges["interaction"] + edges["confounded"] + ([] if omit_dotted else edges["co-split"]))
+    drawn.add_edges_from(edges["interaction"] + edges["dependent"] + ([] if omit_dotted else edges["co-split"]))
     # Features on a circle, each group of connected features side by side: a force layout pulls
     # interacting features on top of each other and hides the very edges the figure is for.
     components = sorted(nx.connected_components(drawn), key=lambda c: (-len(c), sorted(c)))
@@ -517,8 +517,8 @@ def _graph_figure(canvas: _Canvas, result: Any) -> tuple[str, str]:
     gain = np.array([max(float(graph.nodes[n].get("gain", 0.0)), 0.0) for n in drawn.nodes])
     size = 120 + 900 * (gain / gain.max() if gain.size and gain.max() > 0 else np.zeros_like(gain))
     fig, ax = canvas.figure(figsize=(8.4, 6.0))
-    widths = {"interaction": 3.2, "confounded": 2.2, "co-split": 1.0}
-    for verdict in ("co-split", "confounded", "interaction"):
+    widths = {"interaction": 3.2, "dependent": 2.2, "co-split": 1.0}
+    for verdict in ("co-split", "dependent", "interaction"):
         if verdict == "co-split" and omit_dotted:
             continue
         style = VERDICT_STYLES[verdict]
@@ -531,7 +531,7 @@ def _graph_figure(canvas: _Canvas, result: Any) -> tuple[str, str]:
     from matplotlib.lines import Line2D
 
     handles = [Line2D([], [], color=VERDICT_STYLES[v]["colour"], linestyle=VERDICT_STYLES[v]["line"],
-                      linewidth=widths[v], label=v) for v in ("interaction", "confounded", "co-split")
+                      linewidth=widths[v], label=v) for v in ("interaction", "dependent", "co-split")
                if not (v == "co-split" and omit_dotted)]
     ax.legend(handles=handles, loc="lower left", frameon=False, fontsize=8)
     ax.set_axis_off()
@@ -541,7 +541,7 @@ def _graph_figure(canvas: _Canvas, result: Any) -> tuple[str, str]:
     return canvas.svg(fig), note
 
 
-def _dependence_figure(canvas: _Canvas, ens: TreeEnsemble, matrix: np.ndarray, row: Any, output: int | None) -> str:
+def _dependence_figure(canvas: _Canvas, ens: ForestGraph, matrix: np.ndarray, row: Any, output: int | None) -> str:
     from .pdp import partial_dependence
 
     names = list(ens.feature_names)
@@ -598,7 +598,7 @@ def _dependence_figure(canvas: _Canvas, ens: TreeEnsemble, matrix: np.ndarray, r
     return canvas.svg(fig)
 
 
-def _dependence_section(canvas: _Canvas, ens: TreeEnsemble, matrix: np.ndarray, leading: pd.DataFrame,
+def _dependence_section(canvas: _Canvas, ens: ForestGraph, matrix: np.ndarray, leading: pd.DataFrame,
                         output: int | None, max_dependence: float) -> str:
     if leading.empty:
         return '<p class="note">No pair shares a path, so there is no joint effect to draw.</p>'
@@ -623,8 +623,8 @@ def _dependence_section(canvas: _Canvas, ens: TreeEnsemble, matrix: np.ndarray, 
     return "".join(parts)
 
 
-def _rounds_section(canvas: _Canvas, ens: TreeEnsemble, leading: pd.DataFrame, output: int | None) -> str:
-    from .structure import structure_by_round
+def _rounds_section(canvas: _Canvas, ens: ForestGraph, leading: pd.DataFrame, output: int | None) -> str:
+    from .cooccurrence import structure_by_round
 
     if leading.empty:
         return '<p class="note">No pair shares a path, so no pair ever entered the model.</p>'
@@ -728,7 +728,7 @@ def _cautions_section(result: Any) -> str:
         "<li><strong>H-statistics extrapolate when features are dependent.</strong> Partial dependence combines "
         "values of one feature with rows of the others; where features are correlated, many such combinations never "
         "occur, and the model's answer there is a guess (Friedman &amp; Popescu 2008, section 8.1). Pairs with high "
-        "dependence are marked confounded for this reason.</li>"
+        "dependence are marked dependent for this reason.</li>"
         "<li><strong>Structure is not causation.</strong> These are the interactions this model uses, found in its "
         "trees and its predictions; they are not claims about how the world works. Another model fitted to the same "
         "data may use different ones, and dependent features can stand in for each other.</li>"
@@ -760,10 +760,10 @@ def report(
 
     Parameters
     ----------
-    model : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+    model : ForestGraph or anything :func:`treeprobe.load_model` accepts
         The fitted model.
     X : DataFrame or ndarray of shape (n_rows, n_features)
-        Data with the model's feature columns, as for :func:`treeprobe.triage.triage`.
+        Data with the model's feature columns, as for :func:`treeprobe.verdicts.triage`.
     y : array-like of shape (n_rows,) or str, optional
         Target, or the name of its column in ``X`` (enables the noise floor).
     out : str or path, default "treeprobe-report.html"
@@ -781,7 +781,7 @@ def report(
     title : str, optional
         Page title; default names the model source.
     triage_options : dict, optional
-        Keyword arguments for :func:`treeprobe.triage.triage` (``sample``,
+        Keyword arguments for :func:`treeprobe.verdicts.triage` (``sample``,
         ``resamples``, ``null_refits``, ...).
     progress : bool, optional
         Progress bars on standard error; default only on a terminal.
@@ -800,7 +800,7 @@ def report(
 
     Notes
     -----
-    The leading pairs are the pairs with verdict interaction or confounded,
+    The leading pairs are the pairs with verdict interaction or dependent,
     by ``strength``, then the other pairs sharing a path in triage order, up
     to ``top_pairs``. The dependence plots show Friedman's partial dependence
     ([1]_, eq. 9) ``F_ab(z_a, z_b) = (1/n) sum_i f(z_a, z_b, x_i,rest)`` on
@@ -829,8 +829,8 @@ def report(
     >>> import tempfile
     >>> from pathlib import Path
     >>> import numpy as np, pandas as pd
-    >>> from treeprobe.ensemble import TreeEnsemble
-    >>> ens = TreeEnsemble.from_arrays(
+    >>> from treeprobe.graph import ForestGraph
+    >>> ens = ForestGraph.from_arrays(
     ...     feature=[0, -1, 1, -1, -1], threshold=[0.5, 0, 0.5, 0, 0], left=[1, -1, 3, -1, -1],
     ...     right=[2, -1, 4, -1, -1], value=[0, 0.0, 0, 0.0, 1.0], tree_offsets=[0, 5], local_children=True,
     ...     gain=[4.0, 0, 2.0, 0, 0], cover=[100.0, 50, 50, 25, 25], feature_names=["fuel_price", "shift_length"])
@@ -842,7 +842,7 @@ def report(
     from . import __version__
     from .constraints import ConstraintSuggestion, ValidationResult, suggest_constraints
     from .io import load_model
-    from .triage import TriageResult, triage
+    from .verdicts import TriageResult, triage
 
     target = _check_out(out)
     if isinstance(top_pairs, (bool, np.bool_)) or not isinstance(top_pairs, (int, np.integer)) or top_pairs < 1:
@@ -877,7 +877,7 @@ def report(
         steps.append((name, time.perf_counter() - started))
         return value
 
-    ens = model if isinstance(model, TreeEnsemble) else timed("load the model", lambda: load_model(model))
+    ens = model if isinstance(model, ForestGraph) else timed("load the model", lambda: load_model(model))
     features_X = _features_of(X, y)
     matrix_all = ens.check_X(features_X)
     computed_here = triage_result is None
@@ -948,7 +948,7 @@ def report(
                                           "split on both without a joint effect. Pairs high up interact. The leading "
                                           "pairs are labelled; the dashed line is the convention min_h2."),
             "graph": _figure(graph_svg, "Used features (area by total gain) joined by their pairs: interaction as thick "
-                                        "solid lines, confounded as dashed lines, co-split as thin dotted lines. "
+                                        "solid lines, dependent as dashed lines, co-split as thin dotted lines. "
                                         "Features sit on a circle, connected groups side by side." + _e(graph_note)),
             "dependence": dependence,
             "rounds": rounds,

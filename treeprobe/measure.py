@@ -69,8 +69,8 @@ import numpy as np
 import pandas as pd
 from scipy.sparse import csr_matrix
 
-from .ensemble import TreeEnsemble
 from .errors import DataError
+from .graph import ForestGraph
 from .output import to_jsonable
 from .pdp import (
     CELL_BUDGET,
@@ -92,7 +92,7 @@ from .pdp import (
     tree_chunks,
 )
 
-__all__ = ["HStatResult", "h_statistic", "LIMITS"]
+__all__ = ["MeasureResult", "h_statistic", "LIMITS"]
 
 LIMITS = (
     "H-statistics describe the fitted model, not the world: a model's interactions are not the data's, and "
@@ -101,12 +101,12 @@ LIMITS = (
 )
 # Callables have no tree structure to pick triples from; take them among the strongest pairs.
 AUTO_TRIPLE_TOP_PAIRS = 10
-_SCHEMA = "treeprobe.hstat/1"
+_SCHEMA = "treeprobe.measure/2"
 
 
 # --------------------------------------------------------------------------- result
 @dataclass(frozen=True)
-class HStatResult:
+class MeasureResult:
     """H-statistics of one model on one set of rows.
 
     Attributes
@@ -117,7 +117,7 @@ class HStatResult:
         (eq. 44), ``h`` (root mean square of the interaction part, output units),
         ``pd_variance`` (variance of the centred ``F_jk`` over the rows),
         ``shares_path`` (the features meet on a root-to-leaf path; missing for callables).
-    overall : DataFrame
+    against_rest : DataFrame
         ``feature``, ``h2`` (eq. 45), ``h``, ``pd_variance`` (variance of ``F_j``).
     triples : DataFrame
         ``feature_a``, ``feature_b``, ``feature_c``, ``h2`` (eq. 46), ``h``,
@@ -125,7 +125,7 @@ class HStatResult:
     method : {"exact", "brute"}
     n_rows : int
         Rows the statistics were computed on (after sampling).
-    scale : {"raw", "probability"}
+    scale : {"margin", "probability"}
     output : int or None
         The output analysed, or None for all outputs.
     seconds : float
@@ -133,7 +133,7 @@ class HStatResult:
     """
 
     pairs: pd.DataFrame
-    overall: pd.DataFrame
+    against_rest: pd.DataFrame
     triples: pd.DataFrame
     method: str
     n_rows: int
@@ -154,7 +154,7 @@ class HStatResult:
                 "seconds": float(self.seconds),
                 "limits": self.limits,
                 "pairs": self.pairs,
-                "overall": self.overall,
+                "against_rest": self.against_rest,
                 "triples": self.triples,
             }
         )
@@ -227,7 +227,7 @@ def _lookup(keys: np.ndarray, known: np.ndarray) -> np.ndarray:
     return np.where(known[position] == keys, position, -1)
 
 
-def _shared_path_keys(ens: TreeEnsemble, trees: np.ndarray, order: int) -> np.ndarray:
+def _shared_path_keys(ens: ForestGraph, trees: np.ndarray, order: int) -> np.ndarray:
     """Sorted keys of the feature sets of size ``order`` that meet on some root-to-leaf path."""
     links = parent_links(ens)
     node_value = np.zeros(ens.n_nodes)
@@ -248,13 +248,13 @@ def _decode(key: int, order: int, n_features: int) -> tuple[int, ...]:
 
 # --------------------------------------------------------------------------- exact sums
 def _exact_sums(
-    ens: TreeEnsemble,
+    ens: ForestGraph,
     matrix: np.ndarray,
     trees: np.ndarray,
     output: int,
     pair_keys: np.ndarray,
     triple_keys: np.ndarray,
-    want_overall: bool,
+    want_against_rest: bool,
 ) -> dict[str, np.ndarray]:
     """Leaf-wise sums of one group of trees (see the module docstring); all are additive over trees.
 
@@ -284,7 +284,7 @@ def _exact_sums(
         share_one = reach_apart.mean(axis=1)
         passed = (~fail).astype(np.float64)
         sums["main"] += _grouping(table.entry_feature, entry_value * share_one, n_features) @ passed
-        if want_overall:
+        if want_against_rest:
             sums["prediction"] += table.leaf_value @ (n_failed == 0)
             centred_pass = reach_apart * (passed - passed.mean(axis=1, keepdims=True))
             sums["rest"] += _grouping(table.entry_feature, entry_value, n_features) @ centred_pass
@@ -416,17 +416,17 @@ class _Functions:
     """Centred numerators and totals of every requested statistic, for one output."""
 
     pair: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
-    overall: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=dict)
+    against_rest: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=dict)
     triple: dict[tuple[int, int, int], tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
 
 
 def _exact_functions(
-    ens: TreeEnsemble,
+    ens: ForestGraph,
     matrix: np.ndarray,
     output: int,
     pairs: list[tuple[int, int]],
     triples: list[tuple[int, int, int]],
-    overall: list[int],
+    against_rest: list[int],
     n_jobs: int,
     progress: bool | None,
 ) -> _Functions:
@@ -437,7 +437,7 @@ def _exact_functions(
     trees = ens.trees_of_output(output)
     chunks = tree_chunks(ens, trees, matrix.shape[0])
     bar = _Progress(len(chunks), f"H-statistics (exact, output {output})", progress)
-    tasks = [(ens, matrix, chunk, output, pair_keys, triple_keys, bool(overall)) for chunk in chunks]
+    tasks = [(ens, matrix, chunk, output, pair_keys, triple_keys, bool(against_rest)) for chunk in chunks]
     total: dict[str, np.ndarray] | None = None
     for part in _run_tasks(_exact_sums, tasks, n_jobs, bar):
         total = part if total is None else {k: total[k] + part[k] for k in total}
@@ -458,8 +458,8 @@ def _exact_functions(
         functions.triple[(a, b, c)] = (numerator, full)
     prediction = _centre(total["prediction"])
     rest = _centre(total["rest"].T)
-    for j in overall:
-        functions.overall[j] = (rest[:, j] - main[:, j], prediction, main[:, j])
+    for j in against_rest:
+        functions.against_rest[j] = (rest[:, j] - main[:, j], prediction, main[:, j])
     return functions
 
 
@@ -469,18 +469,18 @@ def _brute_functions(
     output: int | None,
     pairs: list[tuple[int, int]],
     triples: list[tuple[int, int, int]],
-    overall: list[int],
+    against_rest: list[int],
     n_jobs: int,
     progress: bool | None,
     row_bytes: int,
 ) -> list[_Functions]:
     """Brute-force partial dependence of every needed set, then the statistics' parts per output."""
     n_features = data.matrix.shape[1]
-    singles = sorted({j for s in list(pairs) + list(triples) for j in s} | set(overall))
+    singles = sorted({j for s in list(pairs) + list(triples) for j in s} | set(against_rest))
     sets: list[tuple[int, ...]] = [(j,) for j in singles]
     sets += sorted(set(pairs) | {sub for t in triples for sub in itertools.combinations(t, 2)})
     sets += list(triples)
-    sets += [tuple(k for k in range(n_features) if k != j) for j in overall]
+    sets += [tuple(k for k in range(n_features) if k != j) for j in against_rest]
     # Predicting the rows themselves first checks the model's output shape on the user's own data.
     prediction = model_output(predict(data.frame if data.frame is not None else data.matrix), data.n_rows, output)
     bar = _Progress(len(sets), "H-statistics (brute)", progress)
@@ -507,10 +507,10 @@ def _brute_functions(
                 numerator += column(pd_of[(j,)])
             functions.triple[t] = (numerator, full)
         centred_prediction = column(prediction)
-        for j in overall:
+        for j in against_rest:
             rest = column(pd_of[tuple(i for i in range(n_features) if i != j)])
             main = column(pd_of[(j,)])
-            functions.overall[j] = (centred_prediction - main - rest, centred_prediction, main)
+            functions.against_rest[j] = (centred_prediction - main - rest, centred_prediction, main)
         result.append(functions)
     return result
 
@@ -518,20 +518,20 @@ def _brute_functions(
 def _tables(
     functions: _Functions, names: Sequence[str], output: int | None, shared: Callable[[tuple[int, ...]], Any]
 ) -> tuple[list[dict], list[dict], list[dict]]:
-    pair_rows, overall_rows, triple_rows = [], [], []
+    pair_rows, rest_rows, triple_rows = [], [], []
     extra = {} if output is None else {"output": output}
     for (a, b), (numerator, full) in functions.pair.items():
         h2, h, variance = _ratio(numerator, full)
         pair_rows.append({"feature_a": names[a], "feature_b": names[b], **extra, "h2": h2, "h": h,
                           "pd_variance": variance, "shares_path": shared((a, b))})
-    for j, (numerator, total, main) in functions.overall.items():
+    for j, (numerator, total, main) in functions.against_rest.items():
         h2, h, _ = _ratio(numerator, total)
-        overall_rows.append({"feature": names[j], **extra, "h2": h2, "h": h, "pd_variance": float(np.mean(main**2))})
+        rest_rows.append({"feature": names[j], **extra, "h2": h2, "h": h, "pd_variance": float(np.mean(main**2))})
     for (a, b, c), (numerator, full) in functions.triple.items():
         h2, h, variance = _ratio(numerator, full)
         triple_rows.append({"feature_a": names[a], "feature_b": names[b], "feature_c": names[c], **extra,
                             "h2": h2, "h": h, "pd_variance": variance, "shares_path": shared((a, b, c))})
-    return pair_rows, overall_rows, triple_rows
+    return pair_rows, rest_rows, triple_rows
 
 
 def _frame(rows: list[dict], columns: list[str], multi: bool) -> pd.DataFrame:
@@ -544,21 +544,21 @@ def _frame(rows: list[dict], columns: list[str], multi: bool) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- parameters
-def _check_options(method, sample, random_state, scale, n_jobs, progress, overall) -> None:
+def _check_options(method, sample, random_state, scale, n_jobs, progress, against_rest) -> None:
     if method not in ("auto", "exact", "brute"):
         raise DataError(f"method must be 'auto', 'exact' or 'brute', got {method!r}")
     if sample is not None and (isinstance(sample, bool) or not isinstance(sample, (int, np.integer)) or sample < 2):
         raise DataError(f"sample must be None or an integer of at least 2, got {sample!r}")
     if random_state is not None and (isinstance(random_state, bool) or not isinstance(random_state, (int, np.integer))):
         raise DataError(f"random_state must be an integer or None, got {random_state!r}")
-    if scale not in ("raw", "probability"):
-        raise DataError(f"scale must be 'raw' or 'probability', got {scale!r}")
+    if scale not in ("margin", "probability"):
+        raise DataError(f"scale must be 'margin' or 'probability', got {scale!r}")
     if isinstance(n_jobs, bool) or not isinstance(n_jobs, (int, np.integer)) or n_jobs == 0:
         raise DataError(f"n_jobs must be a non-zero integer (-1 for all cores), got {n_jobs!r}")
     if progress is not None and not isinstance(progress, bool):
         raise DataError(f"progress must be None (on a terminal only), True or False, got {progress!r}")
-    if not isinstance(overall, bool):
-        raise DataError(f"overall must be True or False, got {overall!r}")
+    if not isinstance(against_rest, bool):
+        raise DataError(f"against_rest must be True or False, got {against_rest!r}")
 
 
 def _feature_sets(spec: Any, order: int, names: Sequence[str], parameter: str) -> list[tuple[int, ...]]:
@@ -606,26 +606,26 @@ def h_statistic(
     *,
     pairs: Sequence[Sequence[Any]] | None = None,
     triples: Any = None,
-    overall: bool = True,
+    against_rest: bool = True,
     method: str = "auto",
     sample: int | None = 1000,
     random_state: int | None = 0,
     output: int | None = None,
-    scale: str = "raw",
+    scale: str = "margin",
     n_jobs: int = 1,
     progress: bool | None = None,
-) -> HStatResult:
+) -> MeasureResult:
     """Friedman and Popescu's H-statistics of a fitted model on data.
 
     Parameters
     ----------
-    model : TreeEnsemble, model object, model file or callable
-        A :class:`~treeprobe.ensemble.TreeEnsemble`, anything
+    model : ForestGraph, model object, model file or callable
+        A :class:`~treeprobe.graph.ForestGraph`, anything
         :func:`treeprobe.load_model` reads (loaded here), or any function
         ``predict(X) -> array`` (then ``method`` must be "brute" or "auto").
     X : ndarray or DataFrame of shape (n_rows, n_features)
         The rows both averaged over and evaluated at. For a tree ensemble the
-        columns are matched by :meth:`TreeEnsemble.check_X` (categorical dtypes
+        columns are matched by :meth:`ForestGraph.check_X` (categorical dtypes
         become codes); a callable receives DataFrames (dtypes kept) when ``X`` is
         one, arrays otherwise. Array columns of a callable are named ``x0``, ``x1``, ...
     pairs : list of (feature, feature), optional
@@ -636,11 +636,11 @@ def h_statistic(
         of features that meet on one root-to-leaf path; for a callable, the
         triples whose three pairs are all among the ``AUTO_TRIPLE_TOP_PAIRS`` (10)
         pairs with the largest ``h2``.
-    overall : bool, default True
+    against_rest : bool, default True
         Also score each feature against all others (eq. 45): the features the
         model splits on (tree ensembles) or every column (callables).
     method : {"auto", "exact", "brute"}, default "auto"
-        "exact" uses the tree structure (tree ensembles on the raw scale);
+        "exact" uses the tree structure (tree ensembles on the margin scale);
         "brute" predicts ``n`` modified rows per point and set; "auto" picks
         "exact" when it applies.
     sample : int or None, default 1000
@@ -651,9 +651,9 @@ def h_statistic(
     output : int, optional
         Output (class) of a multi-output model; None scores every output and adds
         an ``output`` column.
-    scale : {"raw", "probability"}, default "raw"
+    scale : {"margin", "probability"}, default "margin"
         Raw margin (log-odds for classifiers, as in [1]_) or the link's scale
-        (probabilities; brute force through ``TreeEnsemble.predict``).
+        (probabilities; brute force through ``ForestGraph.predict``).
     n_jobs : int, default 1
         Parallel jobs (joblib) over partial dependence functions (brute) or tree
         chunks (exact); -1 uses every core.
@@ -662,8 +662,8 @@ def h_statistic(
 
     Returns
     -------
-    HStatResult
-        Tables ``pairs``, ``overall`` and ``triples`` and the facts of the run.
+    MeasureResult
+        Tables ``pairs``, ``against_rest`` and ``triples`` and the facts of the run.
 
     Raises
     ------
@@ -711,23 +711,23 @@ def h_statistic(
     >>> import numpy as np
     >>> rng = np.random.default_rng(0)
     >>> X = rng.uniform(-1, 1, size=(200, 2))
-    >>> result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, overall=False)
+    >>> result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, against_rest=False)
     >>> bool(abs(result.pairs["h2"][0] - 1.0) < 0.1)  # x0 * x1 is pure interaction: H2 = 1 up to sampling
     True
     """
     started = time.perf_counter()
-    _check_options(method, sample, random_state, scale, n_jobs, progress, overall)
+    _check_options(method, sample, random_state, scale, n_jobs, progress, against_rest)
     fitted: FittedModel = resolve_model(model)
     if not fitted.is_tree and method == "exact":
         raise DataError("method='exact' needs a tree ensemble; a callable model needs method='brute' or 'auto'")
-    if method == "exact" and scale != "raw":
-        raise DataError("method='exact' computes raw-scale statistics; use scale='raw' or method='brute'")
+    if method == "exact" and scale != "margin":
+        raise DataError("method='exact' computes margin-scale statistics; use scale='margin' or method='brute'")
     data = prepare_rows(fitted, X, min_rows=2)
     data = _sample_rows(data, sample, random_state)
     _warn_constant(data)
     names = data.names
     ens = fitted.ensemble
-    use_exact = fitted.is_tree and method != "brute" and scale == "raw"
+    use_exact = fitted.is_tree and method != "brute" and scale == "margin"
     if ens is not None:
         if output is not None and (isinstance(output, bool) or not isinstance(output, (int, np.integer))
                                    or not 0 <= output < ens.n_outputs):
@@ -762,11 +762,11 @@ def h_statistic(
     else:
         auto_triples = False
         triple_list = _feature_sets(triples, 3, names, "triples")
-    if overall:
-        overall_list = sorted(set(np.unique(ens.feature[ens.feature >= 0]).tolist())) if ens is not None else list(
+    if against_rest:
+        rest_list = sorted(set(np.unique(ens.feature[ens.feature >= 0]).tolist())) if ens is not None else list(
             range(n_features))
     else:
-        overall_list = []
+        rest_list = []
 
     def shares_path(members: tuple[int, ...]) -> Any:
         if ens is None:
@@ -779,12 +779,12 @@ def h_statistic(
     per_output: list[tuple[int | None, _Functions]] = []
     if use_exact:
         for k in outputs:
-            functions = _exact_functions(ens, data.matrix, k, pair_list, triple_list, overall_list, n_jobs, progress)
+            functions = _exact_functions(ens, data.matrix, k, pair_list, triple_list, rest_list, n_jobs, progress)
             per_output.append((k, functions))
     else:
         predict = ensemble_predictor(ens, scale) if ens is not None else fitted.predict
         row_bytes = predictor_row_bytes(ens, data.matrix.shape[1])
-        results = _brute_functions(predict, data, output, pair_list, triple_list, overall_list, n_jobs, progress,
+        results = _brute_functions(predict, data, output, pair_list, triple_list, rest_list, n_jobs, progress,
                                    row_bytes)
         if auto_triples:
             results = _add_auto_triples(predict, data, output, results, n_jobs, progress, row_bytes)
@@ -797,13 +797,13 @@ def h_statistic(
             bucket.extend(new)
     lead = ["output"] if multi else []
     pair_frame = _frame(rows[0], ["feature_a", "feature_b", *lead, "h2", "h", "pd_variance", "shares_path"], multi)
-    overall_frame = _frame(rows[1], ["feature", *lead, "h2", "h", "pd_variance"], multi)
+    rest_frame = _frame(rows[1], ["feature", *lead, "h2", "h", "pd_variance"], multi)
     triple_frame = _frame(
         rows[2], ["feature_a", "feature_b", "feature_c", *lead, "h2", "h", "pd_variance", "shares_path"], multi
     )
-    return HStatResult(
+    return MeasureResult(
         pairs=pair_frame,
-        overall=overall_frame,
+        against_rest=rest_frame,
         triples=triple_frame,
         method="exact" if use_exact else "brute",
         n_rows=data.n_rows,

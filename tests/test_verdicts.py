@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 
 from treeprobe import DataError
-from treeprobe.triage import VERDICTS, triage
+from treeprobe.verdicts import VERDICTS, triage
 
 xgb = pytest.importorskip("xgboost")
 
@@ -114,10 +114,10 @@ def test_correlated_additive_pair_is_never_interaction():
     y = a + b + c + 0.1 * rng.normal(size=800)
     result = triage(_fit(X, y), X, y, sample=400, resamples=5, null_refits=3)
     row = result.pairs.set_index(["feature_a", "feature_b"]).loc[("a", "b")]
-    assert row["verdict"] in ("confounded", "co-split")
+    assert row["verdict"] in ("dependent", "co-split")
     assert row["verdict"] != "interaction"
     assert row["dependence"] > 0.9
-    assert row["verdict"] == "confounded" and row["leans"] in ("interaction", "co-split")
+    assert row["verdict"] == "dependent" and row["leans"] in ("interaction", "co-split")
 
 
 def test_constrained_model_pairs_across_groups_are_absent():

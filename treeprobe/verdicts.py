@@ -3,8 +3,8 @@
 Sharing root-to-leaf paths is necessary for a tree ensemble to make two
 features interact, not sufficient: an additive effect split in sequence
 shares paths too, and two dependent features can stand in for each other.
-This module joins, per pair, the path structure of :mod:`treeprobe.structure`,
-Friedman and Popescu's H-statistic of :mod:`treeprobe.hstat` with a resampling
+This module joins, per pair, the path structure of :mod:`treeprobe.cooccurrence`,
+Friedman and Popescu's H-statistic of :mod:`treeprobe.measure` with a resampling
 interval and a noise floor, and the dependence of the two features in the
 data, and gives each pair one verdict:
 
@@ -15,7 +15,7 @@ data, and gives each pair one verdict:
 ``co-split``
     The pair shares paths but H or its size stays within the noise: the trees
     split on both without a joint effect worth the name.
-``confounded``
+``dependent``
     The pair shares paths and the two features are strongly dependent in the
     data, so partial dependence extrapolates and H cannot be trusted; the
     column ``leans`` says which verdict H alone would give.
@@ -73,20 +73,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError
+from .graph import ForestGraph
 from .output import Progress, to_jsonable
 
 __all__ = ["TriageResult", "triage", "VERDICTS", "VERDICT_RULES", "LIMITS"]
 
-VERDICTS = ("interaction", "co-split", "confounded", "absent")
+VERDICTS = ("interaction", "co-split", "dependent", "absent")
 LIMITS = (
     "Verdicts rest on conventions (the thresholds in the verdict rules) and on H-statistics, which extrapolate when features are "
     "dependent. They describe this model, not the world: structure is not causation, and a model's interactions "
     "are not the data-generating process's. Where the model decides about people (credit, health, hiring), this "
     "supports, and does not replace, the model-risk review that local rules require."
 )
-_SCHEMA = "treeprobe.triage/1"
+_SCHEMA = "treeprobe.triage/2"
 
 
 def _rules(min_h2: float, min_effect: float, max_dependence: float, null_quantile: float, refits: bool) -> dict:
@@ -105,7 +105,7 @@ def _rules(min_h2: float, min_effect: float, max_dependence: float, null_quantil
             "Shares paths, but H² or its size h stays within the noise or is negligible: the trees split on both "
             "without a joint effect."
         ),
-        "confounded": (
+        "dependent": (
             f"Shares paths, but the two features are strongly dependent in the data (|rank correlation| or information "
             f"correlation at least {max_dependence:g}), so partial dependence extrapolates and H cannot be trusted; "
             "'leans' gives the verdict H alone would give."
@@ -125,9 +125,9 @@ class TriageResult:
     ----------
     pairs : DataFrame
         One row per pair of used features, sorted by verdict (interaction,
-        confounded, co-split, absent) then ``strength``. Columns:
+        dependent, co-split, absent) then ``strength``. Columns:
         ``feature_a``, ``feature_b``; structure (:func:`treeprobe.structure`):
-        ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``min_depth``,
+        ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``first_level``,
         ``first_tree``; H (:func:`treeprobe.h_statistic`): ``h2``, ``h``,
         ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (subsampling intervals
         over ``resamples`` half-size row subsamples, NaN without; see Notes), ``effect`` =
@@ -136,7 +136,7 @@ class TriageResult:
         the noise floor); dependence: ``rank_correlation``
         (Spearman), ``information_correlation`` (``sqrt(1 - exp(-2 I))``),
         ``dependence`` = the larger of their absolute values; ``verdict``,
-        ``leans`` (for ``confounded``: the verdict H alone gives, else equal to
+        ``leans`` (for ``dependent``: the verdict H alone gives, else equal to
         ``verdict``), ``strength`` = ``effect`` (0 for ``absent``), the score
         to rank by.
     triples : DataFrame
@@ -145,9 +145,9 @@ class TriageResult:
         ``h``, ``effect``, ``dependence`` (largest of the three pairs'),
         ``verdict``, ``leans``, ``strength``; no interval or null refits.
     features : DataFrame
-        ``feature``, ``used``, ``splits``, ``gain``, ``cover``, ``h2_overall``,
-        ``h_overall`` (H of the feature against all others, eq. 45 of [1]).
-    ensemble : TreeEnsemble
+        ``feature``, ``used``, ``splits``, ``gain``, ``cover``, ``h2_rest``,
+        ``h_rest`` (H of the feature against all others, eq. 45 of [1]).
+    ensemble : ForestGraph
     rules : dict
         The rule of each verdict in one sentence, with the thresholds used.
     thresholds : dict
@@ -160,7 +160,7 @@ class TriageResult:
     pairs: pd.DataFrame
     triples: pd.DataFrame
     features: pd.DataFrame
-    ensemble: TreeEnsemble
+    ensemble: ForestGraph
     rules: dict
     thresholds: dict
     facts: dict
@@ -241,15 +241,15 @@ def _dependence(matrix: np.ndarray, pairs: list[tuple[int, int]], categorical: n
 
 
 # ------------------------------------------------------------------ H pieces
-def _pair_h(model: TreeEnsemble, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
+def _pair_h(model: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
             output: int | None) -> np.ndarray:
     """H² and h of the given pairs on ``rows`` (background = evaluation rows), shape (2, n_pairs)."""
-    from .hstat import h_statistic
+    from .measure import h_statistic
 
     out = np.zeros((2, len(names)))
     if not names:
         return out
-    result = h_statistic(model, rows, pairs=names, overall=False, sample=None, output=output, progress=False)
+    result = h_statistic(model, rows, pairs=names, against_rest=False, sample=None, output=output, progress=False)
     table = result.pairs.set_index(["feature_a", "feature_b"])
     for i, (a, b) in enumerate(names):
         key = (a, b) if (a, b) in table.index else (b, a)
@@ -263,7 +263,7 @@ def _take_rows(X: Any, index: np.ndarray) -> Any:
     return X.iloc[index].reset_index(drop=True) if isinstance(X, pd.DataFrame) else np.asarray(X)[index]
 
 
-def _null_h(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *, refits: int,
+def _null_h(ens: ForestGraph, source: Any, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *, refits: int,
              params: dict | None, output: int | None, random_state: int, n_jobs: int,
              progress: bool | None) -> tuple[np.ndarray, list[str]]:
     """H² and h of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3).
@@ -285,7 +285,7 @@ def _null_h(ens: TreeEnsemble, source: Any, X: Any, y: np.ndarray, rows: Any, na
     )
 
     # A live booster reports its full training configuration; the loaded graph keeps only what files store.
-    setup_from = source if not isinstance(source, (TreeEnsemble, str)) and not hasattr(source, "__fspath__") else ens
+    setup_from = source if not isinstance(source, (ForestGraph, str)) and not hasattr(source, "__fspath__") else ens
     library, run_params, rounds, model_names, notes = training_setup(setup_from, None, params, None)
     matrix, target, columns = design_matrix(X, y, model_names)
     module = import_library(library)
@@ -350,11 +350,11 @@ def triage(
     n_jobs: int = 1,
     progress: bool | None = None,
 ) -> TriageResult:
-    """Give every feature pair a verdict: interaction, co-split, confounded or absent.
+    """Give every feature pair a verdict: interaction, co-split, dependent or absent.
 
     Parameters
     ----------
-    model : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+    model : ForestGraph or anything :func:`treeprobe.load_model` accepts
         The fitted tree ensemble.
     X : DataFrame or ndarray of shape (n_rows, n_features)
         Data holding the model's feature columns (matched by name for a
@@ -386,7 +386,7 @@ def triage(
         spread rarely matters in practice).
     max_dependence : float, default 0.7
         Dependence (|Spearman| or information correlation) from which a pair is
-        ``confounded``; 0.7 as "strong correlation" is common practice.
+        ``dependent``; 0.7 as "strong correlation" is common practice.
     params : dict, optional
         Training parameters for the refits, overriding those read from the model
         (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_setup`).
@@ -413,7 +413,7 @@ def triage(
     and ``D`` the dependence::
 
         absent       if paths == 0
-        confounded   if D >= max_dependence          (leans: what H alone says)
+        dependent   if D >= max_dependence          (leans: what H alone says)
         interaction  if L2 > min_h2 and Lh > q_h and effect >= min_effect
         co-split     otherwise
 
@@ -431,12 +431,12 @@ def triage(
     .. [2] D. N. Politis, J. P. Romano and M. Wolf, "Subsampling", Springer,
        1999 (the interval of section 2.2, rate sqrt(n)).
     """
-    from .hstat import h_statistic
+    from .cooccurrence import structure
     from .io import load_model
-    from .structure import structure
+    from .measure import h_statistic
 
     started = time.perf_counter()
-    ens = model if isinstance(model, TreeEnsemble) else load_model(model)
+    ens = model if isinstance(model, ForestGraph) else load_model(model)
     null_quantile = _check_fraction(null_quantile, "null_quantile", low=0.5)
     confidence = _check_fraction(confidence, "confidence", low=0.5, open_high=True)
     min_h2 = _check_fraction(min_h2, "min_h2")
@@ -468,7 +468,7 @@ def triage(
     pair_list = list(combinations(used_names, 2)) if include_absent else [tuple(k) for k in shared.index]
     h_out = output if ens.n_outputs > 1 else None
     hres = h_statistic(ens, rows, pairs=[tuple(k) for k in shared.index] or None, triples=bool(triples) or None,
-                       overall=True, sample=None, output=h_out, progress=progress)
+                       against_rest=True, sample=None, output=h_out, progress=progress)
     hp = hres.pairs.set_index(["feature_a", "feature_b"])
     raw = ens.predict_raw(matrix, checked=True)
     prediction_sd = float(np.std(raw if raw.ndim == 1 else raw[:, output]))
@@ -476,7 +476,7 @@ def triage(
 
     frame = pd.DataFrame(pair_list, columns=["feature_a", "feature_b"])
     for col, default in (("paths", 0), ("trees", 0), ("cover_share", 0.0), ("nested_gain", 0.0),
-                         ("min_depth", -1), ("first_tree", -1)):
+                         ("first_level", -1), ("first_tree", -1)):
         frame[col] = [shared[col].get(k, default) if k in shared.index else default for k in pair_list]
     frame["h2"] = [float(hp["h2"].get(k, 0.0)) if k in hp.index else 0.0 for k in pair_list]
     frame["h"] = [float(hp["h"].get(k, 0.0)) if k in hp.index else 0.0 for k in pair_list]
@@ -529,10 +529,10 @@ def triage(
               & (frame["effect"].to_numpy() >= min_effect))
     leans = np.where(~sharing, "absent", np.where(clears, "interaction", "co-split"))
     dependent = sharing & (np.nan_to_num(frame["dependence"].to_numpy()) >= max_dependence)
-    frame["verdict"] = np.where(dependent, "confounded", leans)
+    frame["verdict"] = np.where(dependent, "dependent", leans)
     frame["leans"] = leans
     frame["strength"] = np.where(sharing, frame["effect"], 0.0)
-    order = {"interaction": 0, "confounded": 1, "co-split": 2, "absent": 3}
+    order = {"interaction": 0, "dependent": 1, "co-split": 2, "absent": 3}
     frame = (frame.assign(_rank=frame["verdict"].map(order))
              .sort_values(["_rank", "strength", "paths"], ascending=[True, False, False], kind="stable")
              .drop(columns="_rank").reset_index(drop=True))
@@ -540,11 +540,11 @@ def triage(
     triple_frame = _triple_verdicts(walked, hres, frame, scale, min_h2, min_effect, max_dependence) if triples else \
         pd.DataFrame(columns=["feature_a", "feature_b", "feature_c", "verdict", "strength"])
 
-    overall = hres.overall.set_index("feature") if len(hres.overall) else pd.DataFrame(columns=["h2", "h"])
+    rest = hres.against_rest.set_index("feature") if len(hres.against_rest) else pd.DataFrame(columns=["h2", "h"])
     features = walked.features[["feature", "splits", "gain", "cover"]].copy()
     features.insert(1, "used", used)
-    features["h2_overall"] = [float(overall["h2"].get(n, np.nan)) if n in overall.index else np.nan for n in names]
-    features["h_overall"] = [float(overall["h"].get(n, np.nan)) if n in overall.index else np.nan for n in names]
+    features["h2_rest"] = [float(rest["h2"].get(n, np.nan)) if n in rest.index else np.nan for n in names]
+    features["h_rest"] = [float(rest["h"].get(n, np.nan)) if n in rest.index else np.nan for n in names]
 
     thresholds = {"min_h2": min_h2, "min_effect": min_effect, "max_dependence": max_dependence,
                   "null_quantile": null_quantile, "confidence": confidence}
@@ -557,7 +557,7 @@ def triage(
         "has_target": target is not None,
         "prediction_sd": prediction_sd,
         "output": output,
-        "scale": "raw",
+        "scale": "margin",
         "seconds": time.perf_counter() - started,
         "refit_notes": refit_notes,
     }
@@ -586,7 +586,7 @@ def _triple_verdicts(walked: Any, hres: Any, pairs: pd.DataFrame, scale: float, 
     frame["dependence"] = [max(np.nan_to_num(dep.get(frozenset(p), 0.0)) for p in combinations(k, 2)) for k in keys]
     clears = (frame["h2"] > min_h2) & (frame["effect"] >= min_effect)
     leans = np.where(clears, "interaction", "co-split")
-    frame["verdict"] = np.where(frame["dependence"] >= max_dependence, "confounded", leans)
+    frame["verdict"] = np.where(frame["dependence"] >= max_dependence, "dependent", leans)
     frame["leans"] = leans
     frame["strength"] = frame["effect"]
     return frame.sort_values("strength", ascending=False, kind="stable").reset_index(drop=True)

@@ -42,19 +42,19 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import TreeEnsemble
 from .errors import DataError
+from .graph import ForestGraph
 
 __all__ = ["StructureResult", "structure", "structure_by_round", "MAX_ORDER", "LIMITS"]
 
 MAX_ORDER = 8
 _MEMBER_COLUMNS = tuple(f"feature_{letter}" for letter in string.ascii_lowercase[:MAX_ORDER])
-_SET_COLUMNS = ("paths", "trees", "leaf_cover", "cover_share", "nested_gain", "min_depth", "first_tree")
-_FEATURE_COLUMNS = ("feature", "splits", "gain", "cover", "root_splits", "mean_depth", "leaf_paths", "first_tree")
+_SET_COLUMNS = ("paths", "trees", "leaf_cover", "cover_share", "nested_gain", "first_level", "first_tree")
+_FEATURE_COLUMNS = ("feature", "splits", "gain", "cover", "tree_openings", "mean_level", "leaf_paths", "first_tree")
 # Nodes per walked chunk: bounds the (nodes x words) path masks and the subset
 # expansion (at most C(depth, k) rows per distinct path) to tens of megabytes.
 _CHUNK_NODES = 1 << 15
-_SCHEMA = "treeprobe.structure/1"
+_SCHEMA = "treeprobe.structure/2"
 LIMITS = (
     "Path co-occurrence shows which feature sets the trees can combine, not that the prediction varies jointly "
     "in them (check with the H-statistic); it describes the model, not the world, and is not causation."
@@ -62,8 +62,8 @@ LIMITS = (
 
 
 # --------------------------------------------------------------------- validation
-def _as_ensemble(ensemble: Any) -> TreeEnsemble:
-    if isinstance(ensemble, TreeEnsemble):
+def _as_ensemble(ensemble: Any) -> ForestGraph:
+    if isinstance(ensemble, ForestGraph):
         return ensemble
     from .io import load_model
 
@@ -78,7 +78,7 @@ def _check_order(value: Any, name: str) -> int:
     return int(value)
 
 
-def _selected_trees(ensemble: TreeEnsemble, trees: Any, output: Any) -> np.ndarray:
+def _selected_trees(ensemble: ForestGraph, trees: Any, output: Any) -> np.ndarray:
     """Original indices of the walked trees, ascending."""
     n_trees = ensemble.n_trees
     if trees is None:
@@ -108,7 +108,7 @@ def _selected_trees(ensemble: TreeEnsemble, trees: Any, output: Any) -> np.ndarr
 
 
 # --------------------------------------------------------------------- helpers
-def _parents(ensemble: TreeEnsemble) -> np.ndarray:
+def _parents(ensemble: ForestGraph) -> np.ndarray:
     parent = np.full(ensemble.n_nodes, -1, dtype=np.int64)
     inner = np.flatnonzero(ensemble.feature >= 0)
     parent[ensemble.left[inner]] = inner
@@ -188,7 +188,7 @@ class _SetRecords:
     paths: np.ndarray
     leaf_cover: np.ndarray
     nested_gain: np.ndarray
-    min_depth: np.ndarray
+    first_level: np.ndarray
     trees: np.ndarray
     first_position: np.ndarray
 
@@ -210,7 +210,7 @@ class _SetRecords:
             paths=np.add.reduceat(self.paths[order], starts),
             leaf_cover=np.add.reduceat(self.leaf_cover[order], starts),
             nested_gain=np.add.reduceat(self.nested_gain[order], starts),
-            min_depth=np.minimum.reduceat(self.min_depth[order], starts),
+            first_level=np.minimum.reduceat(self.first_level[order], starts),
             trees=np.add.reduceat(self.trees[order], starts),
             first_position=np.minimum.reduceat(self.first_position[order], starts),
         )
@@ -243,13 +243,13 @@ def _aggregate_chunk(key, bucket_of_position, position, paths, leaf_cover, neste
         paths=np.add.reduceat(paths[order], starts),
         leaf_cover=np.add.reduceat(leaf_cover[order], starts),
         nested_gain=np.add.reduceat(nested_gain[order], starts),
-        min_depth=np.minimum.reduceat(depth[order], starts),
+        first_level=np.minimum.reduceat(depth[order], starts),
         trees=np.diff(np.append(group_start, tree_start.size)),
         first_position=tree_position[group_start],
     )
 
 
-def _leaf_weights(ensemble: TreeEnsemble, leaves: np.ndarray) -> tuple[np.ndarray, str]:
+def _leaf_weights(ensemble: ForestGraph, leaves: np.ndarray) -> tuple[np.ndarray, str]:
     cover = ensemble.cover[leaves]
     if np.all(np.isfinite(cover)):
         return cover, "cover"
@@ -260,7 +260,7 @@ def _leaf_weights(ensemble: TreeEnsemble, leaves: np.ndarray) -> tuple[np.ndarra
 
 
 def _walk(
-    ensemble: TreeEnsemble,
+    ensemble: ForestGraph,
     walked: np.ndarray,
     bucket_of_position: np.ndarray,
     max_order: int,
@@ -360,7 +360,7 @@ def _walk(
     return records, leaf_paths
 
 
-def _prepare(ensemble: TreeEnsemble, walked: np.ndarray, max_order: int) -> tuple[np.ndarray, np.ndarray, int]:
+def _prepare(ensemble: ForestGraph, walked: np.ndarray, max_order: int) -> tuple[np.ndarray, np.ndarray, int]:
     """Dense ranks of the features the walked trees split on, so masks and keys stay small."""
     nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
     used = np.unique(ensemble.feature[nodes][ensemble.feature[nodes] >= 0])
@@ -374,7 +374,7 @@ def _prepare(ensemble: TreeEnsemble, walked: np.ndarray, max_order: int) -> tupl
 
 
 def _set_frame(
-    ensemble: TreeEnsemble,
+    ensemble: ForestGraph,
     records: _SetRecords,
     used: np.ndarray,
     size: int,
@@ -391,13 +391,13 @@ def _set_frame(
         leaf_cover=records.leaf_cover[order],
         cover_share=records.leaf_cover[order] / total_cover if total_cover > 0 else np.full(order.size, np.nan),
         nested_gain=records.nested_gain[order],
-        min_depth=records.min_depth[order].astype(np.int64),
+        first_level=records.first_level[order].astype(np.int64),
         first_tree=walked[records.first_position[order]].astype(np.int64),
     )
     return pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
 
 
-def _feature_frame(ensemble: TreeEnsemble, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:
+def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:
     nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
     position = np.repeat(np.arange(walked.size), np.diff(ensemble.tree_offsets)[walked])
     inner = ensemble.feature[nodes] >= 0
@@ -412,15 +412,15 @@ def _feature_frame(ensemble: TreeEnsemble, walked: np.ndarray, leaf_paths: np.nd
     all_leaf_paths = np.zeros(k, dtype=np.int64)
     all_leaf_paths[used] = leaf_paths
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean_depth = np.where(splits > 0, depth_sum / np.maximum(splits, 1), np.nan)
+        mean_level = np.where(splits > 0, depth_sum / np.maximum(splits, 1), np.nan)
     return pd.DataFrame(
         {
             "feature": list(ensemble.feature_names),
             "splits": splits,
             "gain": np.bincount(feature, weights=np.nan_to_num(ensemble.gain[split_nodes]), minlength=k),
             "cover": np.bincount(feature, weights=np.nan_to_num(ensemble.cover[split_nodes]), minlength=k),
-            "root_splits": np.bincount(roots[roots >= 0], minlength=k).astype(np.int64),
-            "mean_depth": mean_depth,
+            "tree_openings": np.bincount(roots[roots >= 0], minlength=k).astype(np.int64),
+            "mean_level": mean_level,
             "leaf_paths": all_leaf_paths,
             "first_tree": np.where(splits > 0, np.append(walked, -1)[np.minimum(first_position, walked.size)], -1),
         },
@@ -428,7 +428,7 @@ def _feature_frame(ensemble: TreeEnsemble, walked: np.ndarray, leaf_paths: np.nd
     )
 
 
-def _total_leaf_cover(ensemble: TreeEnsemble, walked: np.ndarray) -> tuple[float, str, np.ndarray]:
+def _total_leaf_cover(ensemble: ForestGraph, walked: np.ndarray) -> tuple[float, str, np.ndarray]:
     nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
     leaves = nodes[ensemble.feature[nodes] < 0]
     weight, basis = _leaf_weights(ensemble, leaves)
@@ -468,7 +468,7 @@ class StructureResult:
     sets : dict of int to DataFrame
         Tables of orders 4..``max_order`` (empty dict when ``max_order <= 3``).
     ensemble_summary : dict
-        ``TreeEnsemble.summary()`` of the whole model.
+        ``ForestGraph.summary()`` of the whole model.
     n_trees_walked : int
         Number of trees walked.
     tree_indices : ndarray of int64
@@ -537,7 +537,7 @@ def structure(
 
     Parameters
     ----------
-    ensemble : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+    ensemble : ForestGraph or anything :func:`treeprobe.load_model` accepts
         The fitted model (a file path is parsed; no data are needed).
     max_order : int, default 3
         Largest feature-set size to count, 2..``MAX_ORDER``. The work grows as
@@ -553,7 +553,7 @@ def structure(
     -------
     StructureResult
         With the tables below. Depths count splits: the root split has depth 1,
-        so a node's depth is ``TreeEnsemble.depth + 1``. Gains that the model
+        so a node's depth is ``ForestGraph.depth + 1``. Gains that the model
         does not store (NaN) count as 0. Trees are walked in ascending index
         order; ``first_tree`` is always an original tree index.
 
@@ -561,11 +561,11 @@ def structure(
 
         - ``feature``: name; ``splits``: number of split nodes on ``j``;
         - ``gain`` = sum of ``gain`` over those nodes, ``cover`` = sum of their
-          ``cover``: equal to ``TreeEnsemble.feature_totals()`` on the walked
+          ``cover``: equal to ``ForestGraph.feature_totals()`` on the walked
           trees (XGBoost ``get_score`` weight/total_gain/total_cover, LightGBM
           ``feature_importance`` split/gain);
-        - ``root_splits``: number of walked trees whose root splits on ``j``;
-        - ``mean_depth``: mean depth of the split nodes on ``j`` (NaN if unused);
+        - ``tree_openings``: number of walked trees whose root splits on ``j``;
+        - ``mean_level``: mean depth of the split nodes on ``j`` (NaN if unused);
         - ``leaf_paths``: number of leaves whose root path splits on ``j``;
         - ``first_tree``: smallest tree index with a split on ``j`` (-1 if unused).
 
@@ -585,7 +585,7 @@ def structure(
           features of the strict ancestors of ``s``: the loss reduction earned
           inside regions the other members already cut (each node counted
           once per set);
-        - ``min_depth``: smallest depth of such a node ``s``, i.e. the depth at
+        - ``first_level``: smallest depth of such a node ``s``, i.e. the depth at
           which ``S`` first completes on a path (always >= ``len(S)``);
         - ``first_tree``: smallest tree index holding a path through ``S``.
 
@@ -620,7 +620,7 @@ def structure(
     expanding leaves. Memory stays bounded by walking ``_CHUNK_NODES`` nodes
     at a time.
 
-    ``to_dict()`` returns ``{"schema": "treeprobe.structure/1", "limits":
+    ``to_dict()`` returns ``{"schema": "treeprobe.structure/2", "limits":
     LIMITS (one-sentence caveat for readers), "model":
     summary dict, "max_order": int, "n_trees_walked": int, "tree_indices":
     [int], "total_leaf_cover": float or null, "cover_basis": str, "features":
@@ -637,16 +637,16 @@ def structure(
     One tree: the root splits on ``fuel_price``, its left child on
     ``shift_length``; leaves 2, 3 and 4 carry cover 30, 20 and 50.
 
-    >>> from treeprobe.ensemble import TreeEnsemble
-    >>> ens = TreeEnsemble.from_arrays(
+    >>> from treeprobe.graph import ForestGraph
+    >>> ens = ForestGraph.from_arrays(
     ...     feature=[0, 1, -1, -1, -1], threshold=[0.5, 2.0, 0, 0, 0],
     ...     left=[1, 2, -1, -1, -1], right=[4, 3, -1, -1, -1],
     ...     value=[0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 5],
     ...     gain=[10.0, 4.0, 0, 0, 0], cover=[100.0, 50.0, 30.0, 20.0, 50.0],
     ...     feature_names=["fuel_price", "shift_length"])
     >>> result = structure(ens, max_order=2)
-    >>> result.pairs[["feature_a", "feature_b", "paths", "cover_share", "nested_gain", "min_depth"]]
-        feature_a     feature_b  paths  cover_share  nested_gain  min_depth
+    >>> result.pairs[["feature_a", "feature_b", "paths", "cover_share", "nested_gain", "first_level"]]
+        feature_a     feature_b  paths  cover_share  nested_gain  first_level
     0  fuel_price  shift_length      2          0.5          4.0          2
     """
     ensemble = _as_ensemble(ensemble)
@@ -675,8 +675,8 @@ def structure(
     )
 
 
-def _trees_per_round(ensemble: TreeEnsemble) -> int:
-    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.tree_output >= 0))
+def _trees_per_round(ensemble: ForestGraph) -> int:
+    per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
     parallel = int(ensemble.metadata.get("num_parallel_tree", 1) or 1)
     return (ensemble.n_outputs if per_class else 1) * max(parallel, 1)
 
@@ -692,7 +692,7 @@ def structure_by_round(
 
     Parameters
     ----------
-    ensemble : TreeEnsemble or anything :func:`treeprobe.load_model` accepts
+    ensemble : ForestGraph or anything :func:`treeprobe.load_model` accepts
         The fitted model.
     step : int, optional
         Report every ``step`` rounds (and always the last round). Default: the
@@ -726,8 +726,8 @@ def structure_by_round(
 
     Examples
     --------
-    >>> from treeprobe.ensemble import TreeEnsemble
-    >>> ens = TreeEnsemble.from_arrays(
+    >>> from treeprobe.graph import ForestGraph
+    >>> ens = ForestGraph.from_arrays(
     ...     feature=[0, -1, -1, 0, 1, -1, -1, -1], threshold=[0.5, 0, 0, 0.5, 2.0, 0, 0, 0],
     ...     left=[1, -1, -1, 1, 2, -1, -1, -1], right=[2, -1, -1, 4, 3, -1, -1, -1],
     ...     value=[0, 1.0, 2.0, 0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 3, 8], local_children=True,

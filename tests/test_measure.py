@@ -1,4 +1,4 @@
-"""H-statistics (treeprobe.hstat) against closed forms, brute force, benchmarks and constrained models.
+"""H-statistics (treeprobe.measure) against closed forms, brute force, benchmarks and constrained models.
 
 References used below: Friedman and Popescu (2008), "Predictive learning via
 rule ensembles", AOAS 2(3), eqs. 44-46 (the statistics); Friedman (1991),
@@ -17,7 +17,7 @@ import pytest
 from sklearn.datasets import make_friedman1
 
 from treeprobe import DataError, load_model
-from treeprobe.hstat import HStatResult, h_statistic
+from treeprobe.measure import MeasureResult, h_statistic
 
 
 # --------------------------------------------------------------------------- closed forms
@@ -25,7 +25,7 @@ def _uniform(n, low, high, seed):
     return np.random.default_rng(seed).uniform(low, high, size=(n, 2))
 
 
-def _pair_h2(result: HStatResult) -> float:
+def _pair_h2(result: MeasureResult) -> float:
     return float(result.pairs["h2"].iloc[0])
 
 
@@ -37,7 +37,7 @@ def test_closed_form_additive_plus_product():
     (cross terms vanish). H^2 = 1/7.
     """
     X = _uniform(600, -1, 1, 0)
-    result = h_statistic(lambda A: A[:, 0] + A[:, 1] + A[:, 0] * A[:, 1], X, overall=False)
+    result = h_statistic(lambda A: A[:, 0] + A[:, 1] + A[:, 0] * A[:, 1], X, against_rest=False)
     assert result.method == "brute"
     assert abs(_pair_h2(result) - 1 / 7) < 0.03
 
@@ -45,10 +45,10 @@ def test_closed_form_additive_plus_product():
 def test_closed_form_pure_product():
     """f = x1*x2 on U(-1,1)^2: both main effects are 0 (E x = 0), so F_12 is all interaction and H^2 = 1."""
     X = _uniform(500, -1, 1, 1)
-    result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, overall=True)
+    result = h_statistic(lambda A: A[:, 0] * A[:, 1], X, against_rest=True)
     assert abs(_pair_h2(result) - 1.0) < 0.02
     # eq. 45: F_notj = 0 as well, so one-vs-rest H^2_j = 1 too.
-    assert np.all(np.abs(result.overall["h2"] - 1.0) < 0.02)
+    assert np.all(np.abs(result.against_rest["h2"] - 1.0) < 0.02)
 
 
 def test_closed_form_separable_log():
@@ -56,7 +56,7 @@ def test_closed_form_separable_log():
     X = _uniform(400, 0.5, 3.0, 2)
     result = h_statistic(lambda A: np.log(A[:, 0] * A[:, 1]), X)
     assert _pair_h2(result) < 1e-20
-    assert np.all(result.overall["h2"] < 1e-20)
+    assert np.all(result.against_rest["h2"] < 1e-20)
 
 
 def test_closed_form_three_way():
@@ -64,7 +64,7 @@ def test_closed_form_three_way():
     while the pairwise statistics are near 0. The lower-order functions are 0 only in expectation; their
     cross terms with F_123 leave an O(n^-1/2) sampling error, hence the loose tolerance."""
     X = np.random.default_rng(4).uniform(-1, 1, size=(600, 3))
-    result = h_statistic(lambda A: A[:, 0] * A[:, 1] * A[:, 2], X, triples=[("x0", "x1", "x2")], overall=False)
+    result = h_statistic(lambda A: A[:, 0] * A[:, 1] * A[:, 2], X, triples=[("x0", "x1", "x2")], against_rest=False)
     assert abs(float(result.triples["h2"].iloc[0]) - 1.0) < 0.12
     assert result.pairs["h"].max() < 0.05
 
@@ -87,9 +87,9 @@ def fleet_frame():
     return frame, cost.to_numpy(), classes
 
 
-def _compare(exact: HStatResult, brute: HStatResult, rtol: float) -> None:
+def _compare(exact: MeasureResult, brute: MeasureResult, rtol: float) -> None:
     """h2 agree to rtol; pairs whose exact numerator is exactly 0 may carry rounding noise in brute force."""
-    for table, keys in (("pairs", ["feature_a", "feature_b"]), ("overall", ["feature"]),
+    for table, keys in (("pairs", ["feature_a", "feature_b"]), ("against_rest", ["feature"]),
                         ("triples", ["feature_a", "feature_b", "feature_c"])):
         left, right = getattr(exact, table), getattr(brute, table)
         if "output" in left:
@@ -154,8 +154,8 @@ def test_exact_equals_brute_through_native_xgboost(fleet_frame):
     exact = h_statistic(model, frame, sample=80)
     native = h_statistic(lambda rows: model.predict(rows, output_margin=True), frame, sample=80,
                          pairs=exact.pairs[["feature_a", "feature_b"]].to_numpy().tolist())
-    native_overall = native.overall[native.overall.feature.isin(exact.overall.feature)]
-    _compare(exact, HStatResult(native.pairs, native_overall, native.triples, "brute", 80, "raw", None, 0.0),
+    native_rest = native.against_rest[native.against_rest.feature.isin(exact.against_rest.feature)]
+    _compare(exact, MeasureResult(native.pairs, native_rest, native.triples, "brute", 80, "margin", None, 0.0),
              rtol=2e-5)
 
 
@@ -166,8 +166,8 @@ def test_probability_scale_matches_native_predict_proba(fleet_frame):
     label = (cost > np.median(cost)).astype(int)
     model = xgb.XGBClassifier(n_estimators=15, max_depth=3, enable_categorical=True, tree_method="hist",
                               n_jobs=1).fit(frame, label)
-    ours = h_statistic(model, frame, sample=60, scale="probability", overall=False)
-    native = h_statistic(lambda rows: model.predict_proba(rows)[:, 1], frame, sample=60, overall=False,
+    ours = h_statistic(model, frame, sample=60, scale="probability", against_rest=False)
+    native = h_statistic(lambda rows: model.predict_proba(rows)[:, 1], frame, sample=60, against_rest=False,
                          pairs=ours.pairs[["feature_a", "feature_b"]].to_numpy().tolist())
     assert ours.method == "brute" and ours.scale == "probability"
     merged = ours.pairs.merge(native.pairs, on=["feature_a", "feature_b"])
@@ -182,7 +182,7 @@ def test_friedman1_ranks_the_true_interaction_first():
     xgb = pytest.importorskip("xgboost")
     X, y = make_friedman1(n_samples=1500, n_features=8, noise=0.5, random_state=0)
     model = xgb.XGBRegressor(n_estimators=200, max_depth=4, learning_rate=0.1, n_jobs=1, random_state=0).fit(X, y)
-    result = h_statistic(model, X, sample=400, overall=False)
+    result = h_statistic(model, X, sample=400, against_rest=False)
     top = result.pairs.iloc[0]
     assert {top.feature_a, top.feature_b} == {"f0", "f1"}
     assert top.h2 > result.pairs.h2.iloc[1]
@@ -207,7 +207,7 @@ def test_interaction_constraints_give_exact_zero(library):
     ensemble = load_model(model)
     names = ensemble.feature_names
     everything = [(names[a], names[b]) for a in range(4) for b in range(a + 1, 4)]
-    result = h_statistic(ensemble, X, pairs=everything, sample=200, overall=False)
+    result = h_statistic(ensemble, X, pairs=everything, sample=200, against_rest=False)
     within = result.pairs.apply(lambda r: {r.feature_a, r.feature_b} in ({names[0], names[1]}, {names[2], names[3]}),
                                 axis=1)
     assert (result.pairs.h2[~within] == 0.0).all() and (result.pairs.h[~within] == 0.0).all()
@@ -248,13 +248,13 @@ def test_parallel_matches_serial(fleet_frame):
     small_budget = pdp.CELL_BUDGET
     try:
         pdp.CELL_BUDGET = 2000  # many chunks, so the parallel sum really combines parts
-        import treeprobe.hstat as hstat_module
+        import treeprobe.measure as measure_module
 
-        hstat_module.CELL_BUDGET = 2000
+        measure_module.CELL_BUDGET = 2000
         chunked = h_statistic(ensemble, frame, sample=50, n_jobs=2)
     finally:
         pdp.CELL_BUDGET = small_budget
-        hstat_module.CELL_BUDGET = small_budget
+        measure_module.CELL_BUDGET = small_budget
     _compare(chunked, serial, rtol=1e-9)
 
 
@@ -331,7 +331,7 @@ def test_callable_receives_frames_with_their_dtypes():
         assert isinstance(rows, pd.DataFrame) and rows.crew.dtype == frame.crew.dtype
         return (rows.crew == "night").to_numpy() * rows.shift_length.to_numpy()
 
-    result = h_statistic(model, frame, overall=False)
+    result = h_statistic(model, frame, against_rest=False)
     night = (frame.crew == "night").to_numpy(dtype=float)
     expected = np.std((night - night.mean()) * (frame.shift_length - frame.shift_length.mean()))
     assert abs(float(result.pairs.h.iloc[0]) - expected) < 1e-9

@@ -1,4 +1,4 @@
-"""Tests of :mod:`treeprobe.structure`, the path walker.
+"""Tests of :mod:`treeprobe.cooccurrence`, the path walker.
 
 Outside references: hand counts on hand-built trees; a naive recursive walker
 written here from the definitions; XGBoost's and LightGBM's own importances
@@ -11,7 +11,6 @@ values (Lundberg, Erion & Lee 2018); XGBoost's hessian sums for squared error
 from __future__ import annotations
 
 import json
-import sys
 from itertools import combinations
 from unittest import mock
 
@@ -22,19 +21,17 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import treeprobe
-import treeprobe.structure  # noqa: F401  (the module; the package attribute is the function)
-from treeprobe.ensemble import TreeEnsemble
+import treeprobe.cooccurrence as structure_module
+from treeprobe.cooccurrence import structure, structure_by_round
 from treeprobe.errors import DataError, TreeprobeError
-from treeprobe.structure import structure, structure_by_round
-
-structure_module = sys.modules["treeprobe.structure"]
+from treeprobe.graph import ForestGraph
 
 NAMES = ["fuel_price", "shift_length", "crew_size"]
 
 
 # --------------------------------------------------------------------- hand-built trees
 @pytest.fixture
-def two_trees() -> TreeEnsemble:
+def two_trees() -> ForestGraph:
     """Two hand-built trees over fuel_price (0), shift_length (1), crew_size (2).
 
     Tree 0                                   Tree 1
@@ -46,7 +43,7 @@ def two_trees() -> TreeEnsemble:
       n2 f2 gain 3 cover 40                    n2 leaf 30
         n5 leaf 15, n6 leaf 25
     """
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         feature=[0, 1, 2, 0, -1, -1, -1, -1, -1, 1, 2, -1, 0, -1, -1, -1],
         threshold=[1, 1, 1, 2, 0, 0, 0, 0, 0, 1, 1, 0, 1, 0, 0, 0],
         left=[1, 3, 5, 7, -1, -1, -1, -1, -1, 1, 3, -1, 5, -1, -1, -1],
@@ -72,8 +69,8 @@ def test_hand_counted_features(two_trees):
             "splits": [3, 2, 2],
             "gain": [13.0, 10.0, 8.0],
             "cover": [185.0, 160.0, 110.0],
-            "root_splits": [1, 1, 0],
-            "mean_depth": [7 / 3, 1.5, 2.0],
+            "tree_openings": [1, 1, 0],
+            "mean_level": [7 / 3, 1.5, 2.0],
             "leaf_paths": [7, 7, 5],
             "first_tree": [0, 0, 0],
         },
@@ -101,7 +98,7 @@ def test_hand_counted_pairs_and_triple(two_trees):
             "leaf_cover": [110.0, 70.0, 90.0],
             "cover_share": [0.55, 0.35, 0.45],
             "nested_gain": [7.0, 5.0, 4.0],
-            "min_depth": [2, 2, 2],
+            "first_level": [2, 2, 2],
             "first_tree": [0, 1, 0],
         },
         index=pd.MultiIndex.from_tuples(
@@ -115,7 +112,7 @@ def test_hand_counted_pairs_and_triple(two_trees):
     assert len(result.triples) == 1
     assert triple == {
         "feature_a": "fuel_price", "feature_b": "shift_length", "feature_c": "crew_size", "paths": 2, "trees": 1,
-        "leaf_cover": 50.0, "cover_share": 0.25, "nested_gain": 1.0, "min_depth": 3, "first_tree": 1,
+        "leaf_cover": 50.0, "cover_share": 0.25, "nested_gain": 1.0, "first_level": 3, "first_tree": 1,
     }
 
 
@@ -127,7 +124,7 @@ def test_tree_subset_keeps_original_indices(two_trees):
     assert pairs.loc[("shift_length", "crew_size"), "cover_share"] == pytest.approx(0.70)
     assert pairs.loc[("fuel_price", "shift_length"), "nested_gain"] == pytest.approx(1.0)
     assert set(pairs["first_tree"]) == {1}
-    assert result.features.set_index("feature").loc["fuel_price", "root_splits"] == 0
+    assert result.features.set_index("feature").loc["fuel_price", "tree_openings"] == 0
     assert len(structure(two_trees, trees=slice(0, 1)).triples) == 0
 
 
@@ -147,12 +144,12 @@ def test_cover_falls_back_to_sample_counts(two_trees):
 def test_to_dict_is_json(two_trees):
     """to_dict round-trips through the standard json module with the documented keys."""
     payload = json.loads(json.dumps(structure(two_trees, max_order=4).to_dict()))
-    assert payload["schema"] == "treeprobe.structure/1"
+    assert payload["schema"] == "treeprobe.structure/2"
     assert set(payload) == {"schema", "limits", "model", "max_order", "n_trees_walked", "tree_indices", "total_leaf_cover",
                             "cover_basis", "features", "pairs", "triples", "sets"}
     assert payload["pairs"][0]["feature_a"] == "fuel_price" and payload["pairs"][0]["nested_gain"] == 7.0
     assert payload["sets"] == {"4": []}
-    assert payload["features"][0]["mean_depth"] == pytest.approx(7 / 3)
+    assert payload["features"][0]["mean_level"] == pytest.approx(7 / 3)
 
 
 @pytest.mark.parametrize(
@@ -186,7 +183,7 @@ def test_bad_step_and_bad_source(two_trees, tmp_path):
 
 
 # --------------------------------------------------------------------- naive reference walker
-def _random_ensemble(seed: int, n_features: int, n_trees: int, max_depth: int, n_outputs: int = 1) -> TreeEnsemble:
+def _random_ensemble(seed: int, n_features: int, n_trees: int, max_depth: int, n_outputs: int = 1) -> ForestGraph:
     rng = np.random.default_rng(seed)
     feature, left, right, gain, cover, offsets = [], [], [], [], [], [0]
     for _ in range(n_trees):
@@ -209,21 +206,21 @@ def _random_ensemble(seed: int, n_features: int, n_trees: int, max_depth: int, n
         grow(0, 64.0)
         offsets.append(len(feature))
     n = len(feature)
-    return TreeEnsemble.from_arrays(
+    return ForestGraph.from_arrays(
         feature=feature, threshold=np.zeros(n), left=left, right=right, value=np.zeros(n), tree_offsets=offsets,
         local_children=True, gain=gain, cover=cover, n_features=n_features,
-        tree_output=np.arange(n_trees) % n_outputs, n_outputs=n_outputs,
+        output_of_tree=np.arange(n_trees) % n_outputs, n_outputs=n_outputs,
     )
 
 
-def _naive_sets(ens: TreeEnsemble, walked: list[int], size: int) -> pd.DataFrame:
+def _naive_sets(ens: ForestGraph, walked: list[int], size: int) -> pd.DataFrame:
     """Recursive walk straight from the definitions in structure()'s docstring."""
     rows: dict[tuple, dict] = {}
     total = 0.0
 
     def entry(members):
         return rows.setdefault(members, {"paths": 0, "trees": set(), "leaf_cover": 0.0, "nested_gain": 0.0,
-                                         "min_depth": 10**9})
+                                         "first_level": 10**9})
 
     for t in walked:
         root = int(ens.tree_offsets[t])
@@ -242,7 +239,7 @@ def _naive_sets(ens: TreeEnsemble, walked: list[int], size: int) -> pd.DataFrame
             for others in combinations(sorted(ancestors - {j}), size - 1):
                 e = entry(tuple(sorted((*others, j))))
                 e["nested_gain"] += ens.gain[node]
-                e["min_depth"] = min(e["min_depth"], depth)
+                e["first_level"] = min(e["first_level"], depth)
             visit(int(ens.left[node]), ancestors | {j}, depth + 1)
             visit(int(ens.right[node]), ancestors | {j}, depth + 1)
 
@@ -252,14 +249,14 @@ def _naive_sets(ens: TreeEnsemble, walked: list[int], size: int) -> pd.DataFrame
         out.append({**{f"feature_{'abc'[i]}": ens.feature_names[m] for i, m in enumerate(members)},
                     "paths": e["paths"], "trees": len(e["trees"]), "leaf_cover": e["leaf_cover"],
                     "cover_share": e["leaf_cover"] / total, "nested_gain": e["nested_gain"],
-                    "min_depth": e["min_depth"], "first_tree": min(e["trees"])})
+                    "first_level": e["first_level"], "first_tree": min(e["trees"])})
     keys = [f"feature_{c}" for c in "abc"[:size]]
     if not out:
         return pd.DataFrame(columns=keys)
     return pd.DataFrame(out).sort_values(keys).reset_index(drop=True)
 
 
-def _naive_leaf_paths(ens: TreeEnsemble, walked: list[int]) -> np.ndarray:
+def _naive_leaf_paths(ens: ForestGraph, walked: list[int]) -> np.ndarray:
     counts = np.zeros(ens.n_features, dtype=np.int64)
     for t in walked:
         def visit(node: int, ancestors: frozenset) -> None:
@@ -310,7 +307,7 @@ def test_vectorised_walk_equals_naive_walk(seed, n_features, n_trees, max_depth,
     assert (pairs["paths"] <= np.minimum(leaf_paths[pairs["feature_a"]].to_numpy(),
                                         leaf_paths[pairs["feature_b"]].to_numpy())).all()
     assert pairs["cover_share"].between(0, 1).all() and result.triples["cover_share"].between(0, 1).all()
-    assert (pairs["min_depth"] >= 2).all() and (result.triples["min_depth"] >= 3).all()
+    assert (pairs["first_level"] >= 2).all() and (result.triples["first_level"] >= 3).all()
     pair_paths = {(a, b): p for a, b, p in pairs[["feature_a", "feature_b", "paths"]].itertuples(index=False)}
     for a, b, c, p in result.triples[["feature_a", "feature_b", "feature_c", "paths"]].itertuples(index=False):
         for sub in ((a, b), (a, c), (b, c)):
@@ -330,7 +327,7 @@ def test_order_four_matches_naive():
         assert paths == naive_rows[key][0] and gain == pytest.approx(naive_rows[key][1])
 
 
-def _naive_sets_generic(ens: TreeEnsemble, size: int) -> dict:
+def _naive_sets_generic(ens: ForestGraph, size: int) -> dict:
     out: dict = {}
     for t in range(ens.n_trees):
         def visit(node: int, ancestors: frozenset) -> None:
@@ -360,7 +357,7 @@ def _comparable(table: pd.DataFrame, mapping: np.ndarray | None = None) -> pd.Da
 
 
 def test_subsets_equal_walking_a_selected_copy():
-    """trees= and output= give the same tables as walking TreeEnsemble.select_trees copies
+    """trees= and output= give the same tables as walking ForestGraph.select_trees copies
     (reference: select_trees, which builds a new ensemble of just those trees)."""
     ens = _random_ensemble(11, 5, 12, 4, n_outputs=3)
     chosen = [2, 5, 7, 8, 11]
@@ -391,7 +388,7 @@ def test_rounds_accumulate_to_structure():
         for size, table in ((2, expected.pairs), (3, expected.triples)):
             got = by_round[(by_round["round"] == last_round) & (by_round["order"] == size)]
             got = got.drop(columns=["round", "order", "first_round"]).dropna(axis=1, how="all")
-            pd.testing.assert_frame_equal(_comparable(got), _comparable(table.drop(columns=["min_depth", "first_tree"])),
+            pd.testing.assert_frame_equal(_comparable(got), _comparable(table.drop(columns=["first_level", "first_tree"])),
                                           check_dtype=False)
             firsts = got.merge(table, on=[c for c in got.columns if c.startswith("feature_")])
             assert len(firsts) == len(table)
@@ -402,7 +399,7 @@ def test_rounds_accumulate_to_structure():
     per_output = structure_by_round(ens, step=1, output=1)
     expected = structure(ens, output=1).pairs
     got = per_output[per_output["round"] == 9].drop(columns=["round", "order", "first_round"])
-    pd.testing.assert_frame_equal(_comparable(got), _comparable(expected.drop(columns=["min_depth", "first_tree"])),
+    pd.testing.assert_frame_equal(_comparable(got), _comparable(expected.drop(columns=["first_level", "first_tree"])),
                                   check_dtype=False)
 
 
@@ -524,5 +521,5 @@ def test_rounds_match_xgboost_model_slices(interaction_data):
     for last_round in (3, 7):
         sliced = structure(treeprobe.load_model(booster[0:last_round + 1]), output=2).pairs
         got = by_round[by_round["round"] == last_round].drop(columns=["round", "order", "first_round"])
-        pd.testing.assert_frame_equal(_comparable(got), _comparable(sliced.drop(columns=["min_depth", "first_tree"])),
+        pd.testing.assert_frame_equal(_comparable(got), _comparable(sliced.drop(columns=["first_level", "first_tree"])),
                                       check_dtype=False, rtol=1e-6)

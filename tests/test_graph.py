@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from treeprobe import DataError, ModelFormatError, TreeEnsemble
+from treeprobe import DataError, ForestGraph, ModelFormatError
 
 
 def _two_trees(**overrides):
@@ -33,7 +33,7 @@ def _two_trees(**overrides):
         feature_names=["speed", "zone"],
     )
     spec.update(overrides)
-    return TreeEnsemble.from_arrays(**spec)
+    return ForestGraph.from_arrays(**spec)
 
 
 def test_predict_raw_hand_counted():
@@ -61,8 +61,8 @@ def test_threshold_rule_strict_and_float32_cast():
     # float32 input: a float64 value just above a float32 threshold rounds onto it
     t = float(np.float32(0.1))
     x = np.nextafter(t, 1.0)
-    ens32 = _two_trees(threshold=[t] + [np.nan, 2.0] + [np.nan] * 5, input_dtype="float32")
-    ens64 = _two_trees(threshold=[t] + [np.nan, 2.0] + [np.nan] * 5, input_dtype="float64")
+    ens32 = _two_trees(threshold=[t] + [np.nan, 2.0] + [np.nan] * 5, split_dtype="float32")
+    ens64 = _two_trees(threshold=[t] + [np.nan, 2.0] + [np.nan] * 5, split_dtype="float64")
     X = np.array([[x, 5.0]])
     assert ens32.predict_raw(X)[0] == pytest.approx(0.5 + 1 + 20)
     assert ens64.predict_raw(X)[0] == pytest.approx(0.5 + 3 + 20)
@@ -78,9 +78,9 @@ def test_float32_rule_matches_scikit_learn_tree():
     model = DecisionTreeRegressor(max_depth=1).fit(X, y)
     t = model.tree_.threshold[0]
     probe = np.array([[t], [np.nextafter(t, np.inf)], [np.nextafter(t, -np.inf)], [float(np.float32(t)) + 1e-9]])
-    ens = TreeEnsemble.from_arrays(
+    ens = ForestGraph.from_arrays(
         feature=[0, -1, -1], threshold=[t, np.nan, np.nan], left=[1, -1, -1], right=[2, -1, -1],
-        value=model.tree_.value[:, 0, 0], tree_offsets=[0, 3], input_dtype="float32",
+        value=model.tree_.value[:, 0, 0], tree_offsets=[0, 3], split_dtype="float32",
     )
     np.testing.assert_allclose(ens.predict_raw(probe), model.predict(probe))
 
@@ -94,16 +94,16 @@ def test_zero_as_missing():
 
 def test_multiclass_tree_per_output_and_vector_leaves():
     stump = dict(feature=[0, -1, -1], threshold=[0.0, np.nan, np.nan], left=[1, -1, -1], right=[2, -1, -1])
-    ens = TreeEnsemble.from_arrays(
+    ens = ForestGraph.from_arrays(
         feature=stump["feature"] * 2, threshold=stump["threshold"] * 2, left=stump["left"] * 2,
         right=stump["right"] * 2, local_children=True, value=[0, 1, 2, 0, 3, 4], tree_offsets=[0, 3, 6],
-        tree_output=[0, 1], tree_weight=[0.5, 2.0], base_score=[0.1, 0.2], n_outputs=2, link="softmax",
+        output_of_tree=[0, 1], tree_weight=[0.5, 2.0], base_score=[0.1, 0.2], n_outputs=2, link="softmax",
     )
     out = ens.predict_raw(np.array([[-1.0], [1.0]]))
     np.testing.assert_allclose(out, [[0.1 + 0.5, 0.2 + 6.0], [0.1 + 1.0, 0.2 + 8.0]])
     proba = ens.predict(np.array([[-1.0]]))
     np.testing.assert_allclose(proba.sum(axis=1), 1.0)
-    vec = TreeEnsemble.from_arrays(
+    vec = ForestGraph.from_arrays(
         feature=stump["feature"], threshold=stump["threshold"], left=stump["left"], right=stump["right"],
         value=[[0, 0], [0.25, 0.75], [0.9, 0.1]], tree_offsets=[0, 3], link="proba",
     )
@@ -132,7 +132,7 @@ def test_invalid_graphs_raise_model_format_error(change, message):
 def test_cycle_between_inner_nodes_is_reported():
     # node 2's right child points back to node 2's parent chain: 2 -> 4 -> 2
     with pytest.raises(ModelFormatError):
-        TreeEnsemble.from_arrays(
+        ForestGraph.from_arrays(
             feature=[0, -1, 1, -1, 1], threshold=[0, 0, 0, 0, 0], left=[1, -1, 3, -1, 2], right=[2, -1, 4, -1, 3],
             value=np.zeros(5), tree_offsets=[0, 5],
         )

@@ -9,7 +9,7 @@ pair than brute force. Peak memory is read from the process's resource usage.
 
 Usage::
 
-    .venv/bin/python scripts/bench_hstat.py [--trees 1000] [--rows 1000] [--brute-pairs 2]
+    .venv/bin/python scripts/bench_measure.py [--trees 1000] [--rows 1000] [--brute-pairs 2]
 """
 
 from __future__ import annotations
@@ -38,7 +38,7 @@ def main() -> None:
     import xgboost as xgb
 
     from treeprobe import load_model
-    from treeprobe.hstat import h_statistic
+    from treeprobe.measure import h_statistic
 
     rng = np.random.default_rng(0)
     n_train = 5000
@@ -61,14 +61,14 @@ def main() -> None:
           f"{args.features} features (trained and loaded in {time.perf_counter() - started:.1f} s)")
 
     rows = X[: args.rows]
-    exact = h_statistic(ensemble, rows, sample=None, overall=True, n_jobs=args.n_jobs, progress=False)
+    exact = h_statistic(ensemble, rows, sample=None, against_rest=True, n_jobs=args.n_jobs, progress=False)
     n_pairs = len(exact.pairs)
-    print(f"exact : {n_pairs} co-occurring pairs + {len(exact.overall)} one-vs-rest on {args.rows} rows "
+    print(f"exact : {n_pairs} co-occurring pairs + {len(exact.against_rest)} one-vs-rest on {args.rows} rows "
           f"in {exact.seconds:.2f} s ({exact.seconds / n_pairs * 1000:.2f} ms per pair incl. one-vs-rest), "
           f"peak RSS so far {_peak_mib():.0f} MiB")
 
     chosen = [tuple(p) for p in exact.pairs[["feature_a", "feature_b"]].head(args.brute_pairs).to_numpy()]
-    brute = h_statistic(ensemble, rows, sample=None, pairs=chosen, overall=False, method="brute", progress=False)
+    brute = h_statistic(ensemble, rows, sample=None, pairs=chosen, against_rest=False, method="brute", progress=False)
     # Per pair, brute force computes F_jk; F_j and F_k are shared between pairs, so count sets, not pairs.
     sets_evaluated = len(chosen) + len({f for p in chosen for f in p})
     per_set = brute.seconds / sets_evaluated

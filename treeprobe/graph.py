@@ -1,6 +1,6 @@
 """The common tree-ensemble graph every treeprobe stage works on.
 
-A fitted forest from any library becomes one :class:`TreeEnsemble`: columnar
+A fitted forest from any library becomes one :class:`ForestGraph`: columnar
 numpy arrays over all nodes of all trees (in the manner of scikit-learn's
 ``tree_`` object), plus a few ensemble-wide facts. Parsers in
 :mod:`treeprobe.io` produce it; the structure, H-statistic and report stages
@@ -13,7 +13,7 @@ Nodes are numbered globally; the nodes of tree ``t`` are the contiguous range
 A node is a leaf when ``feature == -1``.
 
 A row ``x`` reaches a node and is routed as follows, with ``v = x[feature]``
-cast to ``input_dtype`` (float32 for XGBoost and scikit-learn's classic trees,
+cast to ``split_dtype`` (float32 for XGBoost and scikit-learn's classic trees,
 which compare in single precision; float64 for LightGBM and scikit-learn's
 histogram gradient boosting):
 
@@ -36,8 +36,8 @@ The raw output (margin) of the ensemble for output ``k`` is::
 
     raw[k] = base_score[k] + sum_t tree_weight[t] * leaf_value_t(x)[k]
 
-where a tree with ``tree_output[t] == k`` contributes its scalar leaf value to
-output ``k`` only, and a tree with ``tree_output[t] == -1`` has vector leaves
+where a tree with ``output_of_tree[t] == k`` contributes its scalar leaf value to
+output ``k`` only, and a tree with ``output_of_tree[t] == -1`` has vector leaves
 (``value`` has ``n_outputs`` columns) and contributes to every output. The
 ``link`` maps the raw output to the prediction scale ("identity", "logit",
 "softmax", "log" for log-link objectives, "proba" for forests whose raw
@@ -63,7 +63,7 @@ import pandas as pd
 
 from .errors import DataError, ModelFormatError
 
-__all__ = ["TreeEnsemble", "UnseenCategoryWarning", "LINKS", "MAX_DEPTH"]
+__all__ = ["ForestGraph", "UnseenCategoryWarning", "LINKS", "MAX_DEPTH"]
 
 LINKS = ("identity", "logit", "softmax", "log", "proba")
 MAX_DEPTH = 512
@@ -139,7 +139,7 @@ def _numeric_values(series: pd.Series, col: str) -> tuple[np.ndarray, str | None
 
 
 @dataclass(frozen=True, eq=False)
-class TreeEnsemble:
+class ForestGraph:
     """A fitted tree ensemble as columnar arrays; see the module docstring for semantics.
 
     Build one with :meth:`from_arrays` (which validates) or through
@@ -164,7 +164,7 @@ class TreeEnsemble:
         Split loss reduction (0 at leaves), hessian sum and training row count (NaN when unknown).
     tree_offsets : ndarray of int64, shape (n_trees + 1,)
         First node of every tree, plus ``n_nodes``.
-    tree_output : ndarray of int32, shape (n_trees,)
+    output_of_tree : ndarray of int32, shape (n_trees,)
         Output column each tree adds to; -1 for vector-leaf trees.
     tree_weight : ndarray of float64, shape (n_trees,)
         Factor applied to each tree's leaf values (learning rate, forest averaging, DART weight).
@@ -174,7 +174,7 @@ class TreeEnsemble:
         One of ``LINKS``.
     threshold_rule : {"<", "<="}
         Comparison that sends a numeric value left.
-    input_dtype : {"float32", "float64"}
+    split_dtype : {"float32", "float64"}
         Precision in which the library compares feature values.
     feature_names, feature_types : tuple of str
         Names and kinds ("numeric" or "categorical") of the model's input columns.
@@ -198,12 +198,12 @@ class TreeEnsemble:
     cover: np.ndarray
     n_samples: np.ndarray
     tree_offsets: np.ndarray
-    tree_output: np.ndarray
+    output_of_tree: np.ndarray
     tree_weight: np.ndarray
     base_score: np.ndarray
     link: str
     threshold_rule: str
-    input_dtype: str
+    split_dtype: str
     feature_names: tuple[str, ...]
     feature_types: tuple[str, ...]
     library: str = "unknown"
@@ -233,19 +233,19 @@ class TreeEnsemble:
         gain: Sequence[float] | None = None,
         cover: Sequence[float] | None = None,
         n_samples: Sequence[float] | None = None,
-        tree_output: Sequence[int] | None = None,
+        output_of_tree: Sequence[int] | None = None,
         tree_weight: Sequence[float] | None = None,
         base_score: Sequence[float] | float = 0.0,
         n_outputs: int | None = None,
         link: str = "identity",
         threshold_rule: str = "<=",
-        input_dtype: str = "float64",
+        split_dtype: str = "float64",
         library: str = "unknown",
         objective: str = "",
         source: str = "<arrays>",
         metadata: dict | None = None,
         local_children: bool = False,
-    ) -> TreeEnsemble:
+    ) -> ForestGraph:
         """Build and validate an ensemble from per-node sequences.
 
         Children are global node indices, or indices local to each tree when
@@ -327,11 +327,11 @@ class TreeEnsemble:
             feature_types = types
         n_values = value_a.shape[1]
         if n_outputs is None:
-            n_outputs = n_values if n_values > 1 else int(np.max(tree_output, initial=0)) + 1 if tree_output is not None else 1
+            n_outputs = n_values if n_values > 1 else int(np.max(output_of_tree, initial=0)) + 1 if output_of_tree is not None else 1
         out_a = (
-            np.zeros(n_trees, dtype=np.int32) if tree_output is None else _as_array(tree_output, np.int32, "tree_output", src)
+            np.zeros(n_trees, dtype=np.int32) if output_of_tree is None else _as_array(output_of_tree, np.int32, "output_of_tree", src)
         )
-        if n_values > 1 and tree_output is None:
+        if n_values > 1 and output_of_tree is None:
             out_a = np.full(n_trees, -1, dtype=np.int32)
         weight_a = np.ones(n_trees) if tree_weight is None else _as_array(tree_weight, np.float64, "tree_weight", src)
         base_a = np.broadcast_to(np.asarray(base_score, dtype=np.float64), (n_outputs,)).copy()
@@ -352,12 +352,12 @@ class TreeEnsemble:
             cover=node_array(cover, np.float64, "cover", np.nan),
             n_samples=node_array(n_samples, np.float64, "n_samples", np.nan),
             tree_offsets=offsets,
-            tree_output=out_a,
+            output_of_tree=out_a,
             tree_weight=weight_a,
             base_score=base_a,
             link=link,
             threshold_rule=threshold_rule,
-            input_dtype=input_dtype,
+            split_dtype=split_dtype,
             feature_names=names,
             feature_types=tuple(feature_types),
             library=library,
@@ -386,17 +386,17 @@ class TreeEnsemble:
             raise ModelFormatError(f"{src}: unknown link {self.link!r}; expected one of {LINKS}")
         if self.threshold_rule not in ("<", "<="):
             raise ModelFormatError(f"{src}: threshold_rule must be '<' or '<=', got {self.threshold_rule!r}")
-        if self.input_dtype not in ("float32", "float64"):
-            raise ModelFormatError(f"{src}: input_dtype must be 'float32' or 'float64', got {self.input_dtype!r}")
+        if self.split_dtype not in ("float32", "float64"):
+            raise ModelFormatError(f"{src}: split_dtype must be 'float32' or 'float64', got {self.split_dtype!r}")
         if len(self.feature_types) != self.n_features:
             raise ModelFormatError(f"{src}: {len(self.feature_types)} feature types for {self.n_features} features")
-        if self.tree_output.shape != (self.n_trees,) or self.tree_weight.shape != (self.n_trees,):
+        if self.output_of_tree.shape != (self.n_trees,) or self.tree_weight.shape != (self.n_trees,):
             raise ModelFormatError(f"{src}: per-tree arrays do not match the {self.n_trees} trees")
-        if np.any(self.tree_output >= self.n_outputs) or np.any(self.tree_output < -1):
-            t = int(np.flatnonzero((self.tree_output >= self.n_outputs) | (self.tree_output < -1))[0])
-            raise ModelFormatError(f"{src}: tree {t} adds to output {self.tree_output[t]}, model has {self.n_outputs}")
+        if np.any(self.output_of_tree >= self.n_outputs) or np.any(self.output_of_tree < -1):
+            t = int(np.flatnonzero((self.output_of_tree >= self.n_outputs) | (self.output_of_tree < -1))[0])
+            raise ModelFormatError(f"{src}: tree {t} adds to output {self.output_of_tree[t]}, model has {self.n_outputs}")
         if self.value.shape[1] not in (1, self.n_outputs) or (
-            self.value.shape[1] == 1 and np.any(self.tree_output < 0) and self.n_outputs > 1
+            self.value.shape[1] == 1 and np.any(self.output_of_tree < 0) and self.n_outputs > 1
         ):
             raise ModelFormatError(f"{src}: leaf values have {self.value.shape[1]} columns for {self.n_outputs} outputs")
 
@@ -515,7 +515,7 @@ class TreeEnsemble:
         return self.cat_values[self.cat_offsets[node]:self.cat_offsets[node + 1]]
 
     # -------------------------------------------------------------- subsets
-    def select_trees(self, trees: Sequence[int] | np.ndarray | slice) -> TreeEnsemble:
+    def select_trees(self, trees: Sequence[int] | np.ndarray | slice) -> ForestGraph:
         """Return a new ensemble holding only the given trees (in the given order).
 
         The base score and links are kept, so predictions of the subset are the
@@ -559,7 +559,7 @@ class TreeEnsemble:
             cover=self.cover[nodes],
             n_samples=self.n_samples[nodes],
             tree_offsets=new_offsets.astype(np.int64),
-            tree_output=self.tree_output[idx],
+            output_of_tree=self.output_of_tree[idx],
             tree_weight=self.tree_weight[idx],
             metadata={**self.metadata, "selected_trees": idx},
         )
@@ -570,7 +570,7 @@ class TreeEnsemble:
         """Indices of the trees that add to raw output ``output`` (vector-leaf trees included)."""
         if not 0 <= output < self.n_outputs:
             raise DataError(f"output must lie in 0..{self.n_outputs - 1}, got {output}")
-        return np.flatnonzero((self.tree_output == output) | (self.tree_output == -1))
+        return np.flatnonzero((self.output_of_tree == output) | (self.output_of_tree == -1))
 
     # ------------------------------------------------------------ prediction
     def check_X(self, X: Any) -> np.ndarray:
@@ -725,7 +725,7 @@ class TreeEnsemble:
         ndarray of int64, shape (n_rows, n_trees)
         """
         arr = X if checked else self.check_X(X)
-        arr = arr.astype(self.input_dtype, copy=False)
+        arr = arr.astype(self.split_dtype, copy=False)
         n_rows = arr.shape[0]
         out = np.empty((n_rows, self.n_trees), dtype=np.int64)
         block = max(1, _ROW_BLOCK_CELLS // max(self.n_trees, 1))
@@ -768,7 +768,7 @@ class TreeEnsemble:
         if self.value.shape[1] == 1:
             contrib = self.value[leaves, 0] * self.tree_weight
             mix = np.zeros((self.n_trees, self.n_outputs))
-            mix[np.arange(self.n_trees), np.maximum(self.tree_output, 0)] = 1.0
+            mix[np.arange(self.n_trees), np.maximum(self.output_of_tree, 0)] = 1.0
             out += contrib @ mix
         else:
             out += np.einsum("rtk,t->rk", self.value[leaves], self.tree_weight)
@@ -829,7 +829,7 @@ class TreeEnsemble:
             "n_features_used": int(used.size),
             "n_categorical_features": int(sum(t == "categorical" for t in self.feature_types)),
             "max_depth": int(per_tree_depth.max(initial=0)),
-            "mean_depth": float(per_tree_depth.mean()) if self.n_trees else 0.0,
+            "mean_tree_depth": float(per_tree_depth.mean()) if self.n_trees else 0.0,
             "mean_leaves": float(per_tree_leaves.mean()) if self.n_trees else 0.0,
             "max_leaves": int(per_tree_leaves.max(initial=0)),
             "features_used": [self.feature_names[j] for j in used],
@@ -848,7 +848,7 @@ class TreeEnsemble:
         if not 0 <= tree_index < self.n_trees:
             raise DataError(f"tree_index must lie in 0..{self.n_trees - 1}, got {tree_index}")
         start, end = int(self.tree_offsets[tree_index]), int(self.tree_offsets[tree_index + 1])
-        g = nx.DiGraph(tree=tree_index, library=self.library, tree_output=int(self.tree_output[tree_index]))
+        g = nx.DiGraph(tree=tree_index, library=self.library, output_of_tree=int(self.output_of_tree[tree_index]))
         depth = self.depth
         for i in range(start, end):
             leaf = bool(self.feature[i] < 0)

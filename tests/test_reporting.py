@@ -26,8 +26,8 @@ import pytest
 from treeprobe import DataError, load_model
 from treeprobe.constraints import suggest_constraints, validate_constraints
 from treeprobe.errors import MissingLibraryError
-from treeprobe.report import SECTIONS, report
-from treeprobe.triage import triage
+from treeprobe.reporting import SECTIONS, report
+from treeprobe.verdicts import triage
 
 xgb = pytest.importorskip("xgboost")
 pytest.importorskip("matplotlib")
