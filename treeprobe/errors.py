@@ -11,6 +11,7 @@ Hierarchy::
         ├── ModelFormatError     model file or object corrupt, truncated, inconsistent
         ├── UnsafeModelError     a pickle without trust_pickle=True / --trust-pickle
         ├── UnsupportedModelError  well formed, but a kind treeprobe does not read
+        ├── ParameterError       an option has a value outside what it accepts
         ├── DataError            data do not fit the model (columns, types, values)
         └── MissingLibraryError  an optional library needed for this step is absent
 
@@ -27,6 +28,7 @@ __all__ = [
     "TreeprobeError",
     "ModelFormatError",
     "UnsafeModelError",
+    "ParameterError",
     "DataError",
     "UnsupportedModelError",
     "MissingLibraryError",
@@ -59,6 +61,15 @@ class UnsafeModelError(TreeprobeError):
 
 class UnsupportedModelError(TreeprobeError):
     """The model is well formed but uses a feature treeprobe does not handle."""
+
+
+class ParameterError(TreeprobeError):
+    """An option (keyword argument or command-line flag) has a value it does not accept.
+
+    Distinct from :class:`DataError`, which means the data do not fit the
+    model. The message names the parameter, what it accepts and the value
+    it got. Raised by the helpers of :mod:`treeprobe.checks`.
+    """
 
 
 class DataError(TreeprobeError):
