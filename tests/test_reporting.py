@@ -25,11 +25,12 @@ import pytest
 from markupsafe import escape
 
 from treeprobe import DataError, load_model
-from treeprobe.errors import ParameterError
 from treeprobe.constraints import suggest_constraints, validate_constraints
-from treeprobe.errors import MissingLibraryError
+from treeprobe.errors import MissingLibraryError, ParameterError
 from treeprobe.reporting import SECTIONS, report
-from treeprobe.verdicts import triage
+from treeprobe.reporting.figures import Canvas, arc_layout, draw_arc_diagram, pair_map_marks, pair_map_svg, pyplot
+from treeprobe.reporting.page import _PAIR_COLUMNS
+from treeprobe.verdicts import VERDICT_RULES, VERDICTS, triage
 
 xgb = pytest.importorskip("xgboost")
 pytest.importorskip("matplotlib")
@@ -163,11 +164,18 @@ def test_feature_names_and_title_are_escaped(fitted, tmp_path):
     assert "fuel&lt;price" in _sections(page)["dependence"]
 
 
-def test_given_results_are_used_and_validation_shown(fitted, triaged, tmp_path):
+@pytest.fixture(scope="module")
+def validated(fitted, triaged):
+    model, X, y = fitted
+    _, result = triaged
+    suggestion = suggest_constraints(result)
+    return suggestion, validate_constraints(model, X, y, suggestion.groups, folds=2)
+
+
+def test_given_results_are_used_and_validation_shown(fitted, triaged, validated, tmp_path):
     model, X, y = fitted
     ens, result = triaged
-    suggestion = suggest_constraints(result)
-    validation = validate_constraints(model, X, y, suggestion.groups, folds=2)
+    suggestion, validation = validated
     path = report(ens, X, y, out=tmp_path / "checked.html", triage_result=result, suggestion=suggestion,
                   validation=validation, top_pairs=2)
     sections = _sections(path.read_text(encoding="utf-8"))
@@ -267,3 +275,195 @@ def test_page_renders_in_headless_chromium(rendered, tmp_path):
     # Not a blank page: a real share of the pixels is ink, not white background.
     ink = (pixels[..., :3] < 0.9).any(axis=-1).mean()
     assert ink > 0.02, ink
+
+
+# ------------------------------------------------------------------ faults fixed in the reshape
+def _noise_pair_on_top(result):
+    """The triage with its absent noise pair turned into the map's highest point: H² 0.9 of a tiny h."""
+    pairs = result.pairs.copy()
+    row = pairs.index[(pairs["feature_a"] == "idle_minutes") | (pairs["feature_b"] == "idle_minutes")][0]
+    pairs.loc[row, ["verdict", "h2", "effect", "strength", "cover_share"]] = ["co-split", 0.9, 1e-4, 1e-4, 0.01]
+    return replace(result, pairs=pairs), pairs.loc[row]
+
+
+def test_pair_map_marks_a_high_pair_of_negligible_size(triaged):
+    # The generating formula gives idle_minutes no effect at all, so a high H² for it is a share of nothing.
+    _, result = triaged
+    noisy, top = _noise_pair_on_top(result)
+    marks = pair_map_marks(noisy.pairs, noisy.thresholds)
+    highest = marks.loc[marks["h2"].idxmax()]
+    assert (highest["feature_a"], highest["feature_b"]) == (top["feature_a"], top["feature_b"])
+    assert highest["negligible"] and highest["labelled"]
+    # The product pair is large in h (3 * fuel_price * shift_length): never marked negligible.
+    lead = marks[(marks["feature_a"] == "fuel_price") & (marks["feature_b"] == "shift_length")].iloc[0]
+    assert not lead["negligible"] and lead["labelled"]
+    # Low points (below min_h2) need no warning, whatever their size.
+    assert not marks.loc[marks["h2"] < noisy.thresholds["min_h2"], "negligible"].any()
+    svg = pair_map_svg(Canvas(pyplot()), noisy.pairs, noisy.thresholds)
+    assert f"{top['feature_a']} × {top['feature_b']} (h negligible)" in html.unescape(svg)
+
+
+def test_pair_map_caption_does_not_call_high_points_interactions(rendered):
+    _, page = rendered
+    pair_map = html.unescape(_sections(page)["pair-map"])
+    assert "Pairs high up interact" not in pair_map
+    assert "h negligible" in pair_map and "min_effect" in pair_map
+
+
+def test_summary_says_where_the_triage_came_from(fitted, triaged, tmp_path, capsys):
+    model, X, y = fitted
+    _, result = triaged
+    given = report(model, X, y, out=tmp_path / "given.html", triage_result=result, top_pairs=1,
+                   triage_origin="run by the fleet's nightly job", progress=True)
+    summary = html.unescape(_sections(given.read_text(encoding="utf-8"))["summary"])
+    assert "<th>Triage</th><td>run by the fleet's nightly job (it took" in summary
+    assert "supplied by the caller" not in summary
+    # Progress goes through treeprobe.progress (tqdm) on standard error.
+    assert "report figures" in capsys.readouterr().err
+    with pytest.raises(ParameterError, match="triage_origin"):
+        report(model, X, y, out=tmp_path / "never.html", triage_origin="somewhere")
+    assert not (tmp_path / "never.html").exists()
+
+
+def test_computed_triage_is_said_to_be_run_here(rendered):
+    _, page = rendered
+    assert "<th>Triage</th><td>run by this report (it took" in _sections(page)["summary"]
+
+
+def test_report_command_says_it_ran_the_triage(fitted, tmp_path):
+    from treeprobe.cli import main
+
+    model, X, y = fitted
+    saved = tmp_path / "fleet.json"
+    model.save_model(saved)
+    data = tmp_path / "fleet.csv"
+    X.assign(late_minutes=y).to_csv(data, index=False)
+    page = tmp_path / "cli.html"
+    assert main(["report", str(saved), "--data", str(data), "--target", "late_minutes", "--sample", "120",
+                 "--resamples", "0", "--null-refits", "0", "--top-pairs", "1", "-o", str(page), "--quiet"]) == 0
+    summary = _sections(page.read_text(encoding="utf-8"))["summary"]
+    assert "run by the treeprobe report command" in summary and "supplied by the caller" not in summary
+
+
+def test_fold_numbers_run_from_one_to_k(fitted, triaged, validated, tmp_path):
+    model, X, y = fitted
+    ens, result = triaged
+    suggestion, validation = validated
+    k = validation.summary["n_folds"]
+    for shift in (0, 1):
+        # The table reads 1..K whether the validation numbers its folds from 0 or from 1.
+        folds = validation.folds.assign(fold=validation.folds["fold"] - validation.folds["fold"].min() + shift)
+        path = report(ens, X, y, out=tmp_path / f"folds{shift}.html", triage_result=result, suggestion=suggestion,
+                      validation=replace(validation, folds=folds), top_pairs=1)
+        constraints = _sections(path.read_text(encoding="utf-8"))["constraints"]
+        numbers = re.findall(r"<tr><td class=\"num\">(\d+)</td><td>rmse</td>", constraints)
+        assert numbers == [str(i) for i in range(1, k + 1)], shift
+
+
+def test_pair_table_shows_only_columns_the_triage_has(rendered, triaged):
+    # Every column of the table is one the triage documents and returns: no dead column such as an unused floor.
+    _, result = triaged
+    _, page = rendered
+    assert all(field in result.pairs.columns for field, _, _ in _PAIR_COLUMNS)
+    headers = re.findall(r"<th>([^<]*)</th>", _sections(page)["pairs"])
+    assert "H² floor" not in headers
+    assert headers[4:] == [header for _, header, _ in _PAIR_COLUMNS]
+
+
+def test_tally_and_rules_follow_the_one_verdict_order(rendered):
+    _, page = rendered
+    summary, pairs = _sections(page)["summary"], _sections(page)["pairs"]
+    tally = re.findall(r'<span class="verdict verdict-([a-z-]+)">', summary)
+    assert tally == list(VERDICTS)
+    rules = re.findall(r'<dt class="verdict verdict-([a-z-]+)">', pairs)
+    assert rules == list(VERDICTS)
+
+
+def test_rule_texts_come_only_from_the_triage_result(triaged, fitted, tmp_path):
+    model, X, y = fitted
+    ens, result = triaged
+    own = {verdict: f"Rule text number {i} of this triage." for i, verdict in enumerate(VERDICTS)}
+    path = report(ens, X, y, out=tmp_path / "rules.html", triage_result=replace(result, rules=own), top_pairs=1)
+    page = html.unescape(path.read_text(encoding="utf-8"))
+    for text in own.values():
+        assert page.count(text) == 1
+    for text in list(VERDICT_RULES.values()) + list(result.rules.values()):
+        assert text not in page
+
+
+def test_arc_layout_orders_by_groups_and_puts_dependent_below():
+    pairs = pd.DataFrame({
+        "feature_a": ["fuel_price", "crew_size", "fuel_price", "route_km", "crew_size"],
+        "feature_b": ["shift_length", "route_km", "route_km", "idle_minutes", "idle_minutes"],
+        "verdict": ["interaction", "interaction", "interaction", "dependent", "co-split"],
+        "strength": [0.6, 0.3, 0.1, 0.2, 0.01]})
+    used = ["crew_size", "fuel_price", "idle_minutes", "route_km", "shift_length", "depot_code"]
+    # Overlapping groups (maximal cliques) and a group of one, as suggest_constraints can return them.
+    layout = arc_layout(pairs, used, [["fuel_price", "shift_length"], ["crew_size", "route_km"],
+                                      ["fuel_price", "route_km"], ["depot_code"]])
+    assert layout.features["feature"].tolist() == ["fuel_price", "shift_length", "crew_size", "route_km",
+                                                   "idle_minutes", "depot_code"]
+    assert layout.features["group"].tolist() == [1, 1, 2, 2, 0, 0]
+    # Group 3 (fuel_price, route_km) is not contiguous: one band per run of its members, none for the group of one.
+    assert layout.bands.values.tolist() == [[1, 0, 1], [2, 2, 3], [3, 0, 0], [3, 3, 3]]
+    arcs = layout.arcs.set_index(["feature_a", "feature_b"])
+    assert len(arcs) == 4  # the co-split pair is not drawn
+    assert arcs.loc[("route_km", "idle_minutes"), "side"] == -1
+    assert (arcs.loc[arcs["verdict"] == "interaction", "side"] == 1).all()
+    widths = arcs.loc[[("fuel_price", "shift_length"), ("crew_size", "route_km"), ("fuel_price", "route_km")],
+                      "width"].to_numpy()
+    assert widths[0] > widths[1] > widths[2]
+
+
+@pytest.mark.parametrize("names", [NAMES, [f"depot_{i}_average_load_kg" for i in range(24)]])
+def test_arc_diagram_names_do_not_touch_markers_or_each_other(names):
+    n = len(names)
+    pairs = pd.DataFrame({"feature_a": [names[0], names[1], names[2]], "feature_b": [names[1], names[n - 1], names[3]],
+                          "verdict": ["interaction", "interaction", "dependent"], "strength": [0.5, 0.2, 0.3]})
+    layout = arc_layout(pairs, names, [names[:2], names[2:4]])
+    fig = draw_arc_diagram(Canvas(pyplot()), layout)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    ax = fig.axes[0]
+    boxes = [t.get_window_extent(renderer) for t in ax.texts if t.get_text() in names]
+    assert len(boxes) == n
+    radius = 7.0 / 2 * fig.dpi / 72
+    markers = [line for line in ax.lines if line.get_marker() == "o" and line.get_markersize() == 7.0]
+    # No node sizing by importance: every feature marker has one size.
+    assert sum(len(line.get_xdata()) for line in markers) == n
+    centres = np.vstack([ax.transData.transform(np.column_stack([line.get_xdata(), line.get_ydata()]))
+                         for line in markers if len(line.get_xdata())])
+    for box in boxes:
+        near_x = (centres[:, 0] + radius > box.x0) & (centres[:, 0] - radius < box.x1)
+        near_y = (centres[:, 1] + radius > box.y0) & (centres[:, 1] - radius < box.y1)
+        assert not (near_x & near_y).any()
+    for i, first in enumerate(boxes):
+        for second in boxes[i + 1:]:
+            assert not first.overlaps(second)
+    pyplot().close(fig)
+
+
+def test_template_ships_with_the_package():
+    import tomllib
+
+    root = Path(__file__).resolve().parents[1]
+    patterns = tomllib.loads((root / "pyproject.toml").read_text())["tool"]["setuptools"]["package-data"]["treeprobe"]
+    shipped = {p.relative_to(root / "treeprobe").as_posix() for pattern in patterns
+               for p in (root / "treeprobe").glob(pattern)}
+    assert "reporting/templates/page.html.j2" in shipped
+
+
+def test_report_loads_the_model_once(fitted, monkeypatch, tmp_path):
+    import treeprobe.reporting as reporting
+
+    model, X, y = fitted
+    calls = []
+
+    def counting(source, *args, **kwargs):
+        calls.append(source)
+        return load_model(source, *args, **kwargs)
+
+    monkeypatch.setattr(reporting, "load_model", counting)
+    report(model, X, y, out=tmp_path / "once.html", top_pairs=1,
+           triage_options={"sample": 100, "resamples": 0, "null_refits": 0})
+    assert calls == [model]

@@ -379,8 +379,8 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
     suggestion = suggest_constraints(triage_result)
     validation = _validate(args, ens, data, suggestion) if args.validate else None
-    path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result, suggestion=suggestion,
-                  validation=validation,
+    path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result,
+                  triage_origin="run by the treeprobe report command", suggestion=suggestion, validation=validation,
                   top_pairs=args.top_pairs, title=args.title, progress=False if args.quiet else None)
     print(f"wrote {path}", file=sys.stderr)
     return 0

@@ -464,6 +464,7 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
         notes.append("The HTML report was skipped: treeprobe.reporting is not available in this installation.")
     else:
         files["report.html"] = Path(report(model, X, y, out=folder / "report.html", triage_result=result,
+                                           triage_origin="run by treeprobe demo",
                                            suggestion=suggestion, validation=validation,
                                            title="treeprobe demo: refrigerated warehouse energy use",
                                            progress=progress))

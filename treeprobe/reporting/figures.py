@@ -68,6 +68,9 @@ _MAX_CATEGORY_LINES = 6
 # Light tints of Okabe & Ito colours for the group bands; each band also carries its group number as text.
 _BAND_TINTS = ("#56B4E9", "#009E73", "#CC79A7", "#F0E442", "#0072B2", "#E69F00")
 _ARC_WIDTH = (1.2, 5.5)
+_NAME_SIZE = 9
+_NAME_GAP = 8.0  # points between a marker's centre and its name
+_MARKER_SIZE = 7.0
 _INK = "#333333"
 
 
@@ -153,9 +156,10 @@ def _verdict_handles(verdicts: Sequence[str]) -> list[Any]:
 def pair_map_marks(pairs: pd.DataFrame, thresholds: dict, *, leading: int = _MAP_LABELS) -> pd.DataFrame:
     """Where each pair sits on the pair map, which pairs carry a label, and which have a negligible size h.
 
-    A pair is ``negligible`` when its ``effect`` (h over the standard
-    deviation of the predictions) is below ``thresholds['min_effect']``: its
-    H² can be high while the joint effect is too small to matter. Labelled:
+    A pair is ``negligible`` when its H² reaches ``thresholds['min_h2']``
+    but its ``effect`` (h over the standard deviation of the predictions) is
+    below ``thresholds['min_effect']``: it sits high on the map while its
+    joint effect is too small to matter (low points need no such warning). Labelled:
     the first ``leading`` pairs sharing paths in table order, and the
     ``_MAP_HIGHEST`` highest by H², so the top of the map is never an
     anonymous point.
@@ -181,7 +185,8 @@ def pair_map_marks(pairs: pd.DataFrame, thresholds: dict, *, leading: int = _MAP
     sharing = (pairs["verdict"] != "absent").to_numpy()
     min_effect = float(thresholds.get("min_effect", 0.0))
     effect = pairs["effect"].to_numpy(dtype=np.float64) if "effect" in pairs.columns else np.full(len(pairs), np.nan)
-    marks["negligible"] = sharing & (np.nan_to_num(effect, nan=np.inf) < min_effect)
+    high = marks["h2"].to_numpy() >= float(thresholds.get("min_h2", 0.0))
+    marks["negligible"] = sharing & high & (np.nan_to_num(effect, nan=np.inf) < min_effect)
     labelled = np.zeros(len(pairs), dtype=bool)
     labelled[np.flatnonzero(sharing)[:leading]] = True
     highest = np.argsort(-np.where(sharing, marks["h2"].to_numpy(), -np.inf), kind="stable")[:_MAP_HIGHEST]
@@ -236,7 +241,8 @@ class ArcLayout:
     ----------
     features : DataFrame
         ``feature``, ``position`` (0, 1, ... along the baseline), ``group``
-        (number of the first suggested group holding it, 1-based; 0 = none).
+        (number of the first suggested group of two or more holding it,
+        1-based as in the suggestion's list; 0 = none).
     bands : DataFrame
         ``group`` (1-based), ``first``, ``last``: one row per run of
         neighbouring positions of a group's members.
@@ -266,8 +272,8 @@ def arc_layout(pairs: pd.DataFrame, used_features: Sequence[str], groups: Sequen
     """Order the used features by constraint group and turn interaction and dependent pairs into arcs.
 
     Features of the first group come first, then the new members of each
-    following group, then the used features in no group (in the order
-    given). Groups may overlap (maximal cliques); a group's band then covers
+    following group, then the used features in no group of two or more (in
+    the order given; a group of one gets no band). Groups may overlap (maximal cliques); a group's band then covers
     each run of neighbouring positions of its members.
 
     Examples
@@ -284,6 +290,8 @@ def arc_layout(pairs: pd.DataFrame, used_features: Sequence[str], groups: Sequen
     order: list[str] = []
     group_of: dict[str, int] = {}
     for number, group in enumerate(groups, start=1):
+        if len(group) < 2:
+            continue
         for name in map(str, group):
             if name in used and name not in group_of:
                 group_of[name] = number
@@ -292,7 +300,7 @@ def arc_layout(pairs: pd.DataFrame, used_features: Sequence[str], groups: Sequen
     position = {name: i for i, name in enumerate(order)}
     features = pd.DataFrame({"feature": order, "position": range(len(order)),
                              "group": [group_of.get(name, 0) for name in order]})
-    bands = [(number, first, last) for number, group in enumerate(groups, start=1)
+    bands = [(number, first, last) for number, group in enumerate(groups, start=1) if len(group) >= 2
              for first, last in _runs([position[str(n)] for n in group if str(n) in position])]
 
     drawn = pairs[pairs["verdict"].isin(["interaction", "dependent"])
@@ -321,73 +329,98 @@ def _arc_points(start: float, end: float, side: int) -> tuple[np.ndarray, np.nda
     return (start + end) / 2.0 - radius * np.cos(t), side * radius * np.sin(t)
 
 
+def _text_sizes(canvas: Canvas, texts: Sequence[str], fontsize: float) -> np.ndarray:
+    """Width and height in inches of each of ``texts`` as matplotlib draws them, shape (len(texts), 2)."""
+    fig = canvas.plt.figure()
+    renderer = fig.canvas.get_renderer()
+    sizes = np.zeros((len(texts), 2))
+    with canvas.plt.rc_context(canvas.style):
+        for i, text in enumerate(texts):
+            extent = fig.text(0, 0, text, fontsize=fontsize).get_window_extent(renderer)
+            sizes[i] = extent.width / fig.dpi, extent.height / fig.dpi
+    canvas.plt.close(fig)
+    return sizes
+
+
 def draw_arc_diagram(canvas: Canvas, layout: ArcLayout) -> Any:
-    """The matplotlib figure of the groups-and-links diagram (see :func:`arc_layout`)."""
+    """The matplotlib figure of the groups-and-links diagram (see :func:`arc_layout`).
+
+    The names hang under the baseline a fixed distance in points from the
+    markers, so no name runs into a marker; dependent arcs hang from a rail
+    below the longest name, joined to their features by faint guides.
+    """
     from matplotlib.lines import Line2D
+    from matplotlib.patches import Rectangle
 
     n = len(layout.features)
+    names = [str(f) for f in layout.features["feature"]]
     x = layout.features["position"].to_numpy(dtype=np.float64)
-    below = bool((layout.arcs["side"] < 0).any())
-    reach = max(0.5, float((layout.arcs["end"] - layout.arcs["start"]).max() / 2.0)) if len(layout.arcs) else 0.5
-    reach_up = max([0.5] + [(e - s) / 2.0 for s, e, side in
-                            zip(layout.arcs["start"], layout.arcs["end"], layout.arcs["side"]) if side > 0])
-    width = min(12.0, max(6.0, 0.42 * n + 2.0))
-    crowded = n * max((len(f) for f in layout.features["feature"]), default=1) * 0.075 > width
-    if below:
-        fig, (upper, lower) = canvas.figure(2, 1, figsize=(width, 5.6), sharex=True,
-                                            gridspec_kw={"height_ratios": [reach_up + 0.5, reach + 0.3],
-                                                         "hspace": 0.05}, layout="constrained")
-        axes = (upper, lower)
-    else:
-        fig, upper = canvas.figure(figsize=(width, 3.8), layout="constrained")
-        lower = None
-        axes = (upper,)
+    arcs = layout.arcs
+    up = arcs[arcs["side"] > 0]
+    down = arcs[arcs["side"] < 0]
+    unit = float(np.clip(11.0 / max(n, 1), 0.28, 0.8))  # inches between neighbouring features
+    sizes = _text_sizes(canvas, names, _NAME_SIZE)
+    upright = bool(sizes[:, 0].max(initial=0.0) > 0.9 * unit)
+    gap_in = _NAME_GAP / 72.0
+    # How far each name reaches below the baseline, in data units (one unit = the spacing of two features).
+    name_ends = -(gap_in + (sizes[:, 0] if upright else sizes[:, 1])) / unit
+    depth = gap_in / unit - name_ends.min(initial=0.0)
+    reach_up = max([0.5] + [(e - s) / 2.0 for s, e in zip(up["start"], up["end"])]) + 0.45
+    reach_down = max([0.0] + [(e - s) / 2.0 for s, e in zip(down["start"], down["end"])])
+    rail = -depth if len(down) else 0.0
+    bottom = rail - reach_down - 0.15
+    left_edge, right_edge = -0.7, n - 0.3
+    fig = canvas.plt.figure(figsize=((right_edge - left_edge) * unit, (reach_up - bottom) * unit))
+    with canvas.plt.rc_context(canvas.style):
+        ax = fig.add_axes((0.0, 0.0, 1.0, 1.0))
+    ax.set_axis_off()
+    ax.set_xlim(left_edge, right_edge)
+    ax.set_ylim(bottom, reach_up)
 
-    for ax in axes:
-        ax.grid(False)
-        for spine in ax.spines.values():
-            spine.set_visible(False)
-        ax.tick_params(left=False, labelleft=False, bottom=False)
-        ax.set_xlim(-0.7, n - 0.3)
-        for band in layout.bands.itertuples(index=False):
-            ax.axvspan(band.first - 0.42, band.last + 0.42, color=_BAND_TINTS[(band.group - 1) % len(_BAND_TINTS)],
-                       alpha=0.18, linewidth=0, zorder=0)
-    upper.set_ylim(0.0, reach_up + 0.45)
-    labelled_groups: set[int] = set()
     for band in layout.bands.itertuples(index=False):
-        if band.group not in labelled_groups:
-            labelled_groups.add(band.group)
-            upper.text((band.first + band.last) / 2.0, reach_up + 0.42, f"group {band.group}", ha="center",
-                       va="top", fontsize=8, color=_INK)
-    for arc in layout.arcs.itertuples(index=False):
+        floor = rail - 0.1 if len(down) else -depth
+        ax.add_patch(Rectangle((band.first - 0.44, floor), band.last - band.first + 0.88, reach_up - 0.05 - floor,
+                               facecolor=_BAND_TINTS[(band.group - 1) % len(_BAND_TINTS)], alpha=0.2, linewidth=0,
+                               zorder=0))
+    named: set[int] = set()
+    for band in layout.bands.itertuples(index=False):
+        if band.group not in named:
+            named.add(band.group)
+            ax.text((band.first + band.last) / 2.0, reach_up - 0.1, f"group {band.group}", ha="center", va="top",
+                    fontsize=8, color=_INK)
+    ax.plot([0, n - 1], [0, 0], color="#9a9a9a", linewidth=0.8, zorder=1)
+    for arc in arcs.itertuples(index=False):
         style = VERDICT_STYLES[arc.verdict]
-        ax = upper if arc.side > 0 else lower
         xs, ys = _arc_points(arc.start, arc.end, arc.side)
-        ax.plot(xs, ys, color=style["colour"], linestyle=style["line"], linewidth=arc.width,
-                solid_capstyle="butt", dash_capstyle="butt", zorder=2)
+        ax.plot(xs, ys + (0.0 if arc.side > 0 else rail), color=style["colour"], linestyle=style["line"],
+                linewidth=arc.width, solid_capstyle="butt", dash_capstyle="butt", zorder=2)
+    if len(down):
+        ends = np.unique(np.concatenate([down["start"].to_numpy(), down["end"].to_numpy()])).astype(np.float64)
+        ax.plot([0, n - 1], [rail, rail], color="#c4c4c4", linewidth=0.6, zorder=1)
+        for end in ends:
+            top = name_ends[int(end)] - 0.5 * gap_in / unit
+            ax.plot([end, end], [top, rail], color="#9a9a9a", linewidth=0.7, linestyle=(0, (1, 2)), zorder=1)
+        ax.plot(ends, np.full(ends.size, rail), linestyle="none", marker="o", markersize=4, color="#9a9a9a", zorder=3)
     grouped = layout.features["group"].to_numpy() > 0
-    for ax in axes:
-        ax.plot(x[grouped], np.zeros(grouped.sum()), linestyle="none", marker="o", markersize=7, color=_INK,
-                clip_on=False, zorder=3)
-        ax.plot(x[~grouped], np.zeros((~grouped).sum()), linestyle="none", marker="o", markersize=7,
-                markerfacecolor="white", markeredgecolor=_INK, markeredgewidth=1.4, clip_on=False, zorder=3)
-    # The names sit under the baseline, a marker's height away, so no label runs into a marker.
-    upper.set_xticks(x, list(layout.features["feature"]), rotation=90 if crowded else 0, fontsize=9)
-    upper.tick_params(axis="x", labelbottom=True, pad=8)
-    if lower is not None:
-        lower.set_ylim(-(reach + 0.25), 0.0)
-        lower.tick_params(axis="x", labelbottom=False)
+    ax.plot(x[grouped], np.zeros(grouped.sum()), linestyle="none", marker="o", markersize=_MARKER_SIZE, color=_INK,
+            zorder=3)
+    ax.plot(x[~grouped], np.zeros((~grouped).sum()), linestyle="none", marker="o", markersize=_MARKER_SIZE,
+            markerfacecolor="white", markeredgecolor=_INK, markeredgewidth=1.4, zorder=3)
+    for position, name in zip(x, names):
+        ax.annotate(name, xy=(position, 0.0), xytext=(0, -_NAME_GAP), textcoords="offset points", ha="center",
+                    va="top", rotation=90 if upright else 0, fontsize=_NAME_SIZE, color=_INK, zorder=4)
 
     handles = [
         Line2D([], [], color=VERDICT_STYLES["interaction"]["colour"], linestyle="solid", linewidth=3.0,
-               label="interaction (above; width: strength)"),
-        Line2D([], [], color=VERDICT_STYLES["dependent"]["colour"], linestyle="dashed", linewidth=3.0,
-               label="dependent (below; width: strength)"),
-        Line2D([], [], linestyle="none", marker="o", markersize=7, color=_INK, label="feature in a group"),
-        Line2D([], [], linestyle="none", marker="o", markersize=7, markerfacecolor="white", markeredgecolor=_INK,
-               label="feature in no group"),
+               label="interaction (arc above; width: strength)"),
+        Line2D([], [], color=VERDICT_STYLES["dependent"]["colour"], linestyle="dashed", linewidth=2.0,
+               label="dependent (dashed arc below)"),
+        Line2D([], [], linestyle="none", marker="o", markersize=_MARKER_SIZE, color=_INK, label="in a group"),
+        Line2D([], [], linestyle="none", marker="o", markersize=_MARKER_SIZE, markerfacecolor="white",
+               markeredgecolor=_INK, label="alone (a group of one)"),
     ]
-    fig.legend(handles=handles, loc="outside lower center", ncol=4, frameon=False, fontsize=8)
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, 0.0), ncol=2 if n < 8 else 4,
+              frameon=False, fontsize=8)
     return fig
 
 
