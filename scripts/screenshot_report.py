@@ -2,13 +2,17 @@
 
 Usage::
 
-    python scripts/screenshot_report.py report.html -o report.png [--width 1280] [--height 4000]
+    python scripts/screenshot_report.py report.html -o report.png [--width 1280] [--height 4000] [--skip 0]
+
+``--skip PX`` leaves out the first PX pixels of the page (the browser renders
+PX + height pixels and the top is cut off, with matplotlib), so a screenshot can
+show a part further down, such as the figures.
 
 Needs a Chromium binary (Debian package ``chromium``). The browser runs with a
 throw-away profile, no sandbox (for containers run as root), no GPU, and with
 every host name resolving to nothing, so a page that tried to reach the
 network would fail rather than leak a request. The functions here are also
-used by ``tests/test_report.py``.
+used by ``tests/test_reporting.py``.
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-__all__ = ["find_chromium", "chromium_flags", "screenshot", "dump_dom", "console_errors"]
+__all__ = ["find_chromium", "chromium_flags", "screenshot", "dump_dom", "console_errors", "cut_top"]
 
 _BROWSERS = ("chromium", "chromium-browser")
 
@@ -77,6 +81,16 @@ def screenshot(html_file: str | Path, png_file: str | Path, *, width: int = 1280
     return console_errors(done.stderr)
 
 
+def cut_top(png_file: str | Path, skip: int) -> None:
+    """Cut the first ``skip`` pixel rows off a PNG file, in place."""
+    from matplotlib.image import imread, imsave
+
+    pixels = imread(png_file)
+    if not 0 <= skip < pixels.shape[0]:
+        raise ValueError(f"skip={skip} is outside the image's {pixels.shape[0]} rows")
+    imsave(png_file, pixels[skip:])
+
+
 def dump_dom(html_file: str | Path, *, timeout: float = 120.0) -> tuple[str, list[str]]:
     """The DOM after loading the page, serialised, and the console error lines."""
     done = _run(Path(html_file), ["--dump-dom"], timeout)
@@ -91,12 +105,17 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("-o", "--output", type=Path, help="PNG file to write (default: next to the HTML)")
     parser.add_argument("--width", type=int, default=1280)
     parser.add_argument("--height", type=int, default=4000)
+    parser.add_argument("--skip", type=int, default=0, metavar="PX", help="leave out the first PX pixels of the page")
     args = parser.parse_args(argv)
     if not args.html.is_file():
         parser.error(f"{args.html} is not a file")
+    if args.skip < 0:
+        parser.error(f"--skip must be >= 0, got {args.skip}")
     output = args.output or args.html.with_suffix(".png")
     try:
-        errors = screenshot(args.html, output, width=args.width, height=args.height)
+        errors = screenshot(args.html, output, width=args.width, height=args.height + args.skip)
+        if args.skip:
+            cut_top(output, args.skip)
     except (FileNotFoundError, RuntimeError, subprocess.TimeoutExpired) as exc:
         print(f"screenshot failed: {exc}", file=sys.stderr)
         return 1
