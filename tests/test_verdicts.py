@@ -17,6 +17,7 @@ import pandas as pd
 import pytest
 
 from treeprobe import DataError
+from treeprobe.errors import ParameterError
 from treeprobe.verdicts import VERDICTS, triage
 
 xgb = pytest.importorskip("xgboost")
@@ -155,9 +156,12 @@ def test_bad_input_is_reported(friedman1):
         triage(model, X, "nope")
     with pytest.raises(DataError, match="one value per row"):
         triage(model, X, y[:10])
-    with pytest.raises(DataError, match="min_h2"):
+    # Bad options are parameter errors, not data errors (treeprobe.checks).
+    with pytest.raises(ParameterError, match="min_h2"):
         triage(model, X, min_h2=2.0)
-    with pytest.raises(DataError, match="resamples"):
+    with pytest.raises(ParameterError, match="resamples"):
         triage(model, X, resamples=-1)
+    with pytest.raises(ParameterError, match="output"):
+        triage(model, X, output=1)
     with pytest.raises(DataError, match="x3"):
         triage(model, X.drop(columns=["x3"]))
