@@ -30,7 +30,7 @@ from treeprobe.constraints import (
     write_graphml,
 )
 from treeprobe.cooccurrence import structure
-from treeprobe.errors import DataError, MissingLibraryError, TreeprobeError
+from treeprobe.errors import DataError, MissingLibraryError, ParameterError, TreeprobeError
 from treeprobe.io import load_model
 
 xgb = pytest.importorskip("xgboost")
@@ -279,7 +279,7 @@ def test_to_dict_json_and_snippet(small_ensemble):
         namespace = {"params": {}}
         exec(suggestion.python_snippet(library), namespace)  # noqa: S102 - the snippet is our own output
         assert namespace["params"]["interaction_constraints"] == expected
-    with pytest.raises(DataError, match="library"):
+    with pytest.raises(ParameterError, match="library"):
         suggestion.python_snippet("catboost")
 
 
@@ -339,9 +339,9 @@ def test_bad_triage_results(small_ensemble):
     negative = _stand_in(small_ensemble, [("fuel_price", "shift_length", "interaction", -1.0)])
     with pytest.raises(DataError, match="strength must be a number >= 0"):
         suggest_constraints(negative)
-    with pytest.raises(DataError, match="include holds 'strong'"):
+    with pytest.raises(ParameterError, match="include holds 'strong'"):
         suggest_constraints(good, include=("interaction", "strong"))
-    with pytest.raises(DataError, match="min_strength"):
+    with pytest.raises(ParameterError, match="min_strength"):
         suggest_constraints(good, min_strength=float("nan"))
     with pytest.raises(DataError, match="ensemble must be a ForestGraph"):
         suggest_constraints(SimpleNamespace(**{**vars(good), "ensemble": "model.json"}))
@@ -362,11 +362,11 @@ def test_bad_groups_and_data(three_way_data):
         validate_constraints(params, frame, y, [[0, 9]], **options)
     with pytest.raises(DataError, match="lists a feature twice"):
         validate_constraints(params, frame, y, [[0, 0]], **options)
-    with pytest.raises(DataError, match="params must not hold interaction_constraints"):
+    with pytest.raises(ParameterError, match="params must not hold interaction_constraints"):
         validate_constraints(params, frame, y, [[0, 1]], params={"interaction_constraints": "[[0]]"}, **options)
-    with pytest.raises(DataError, match="folds must be an integer >= 2"):
+    with pytest.raises(ParameterError, match="folds must be an integer >= 2"):
         validate_constraints(params, frame, y, [[0, 1]], library="xgboost", num_boost_round=2, folds=1)
-    with pytest.raises(DataError, match="num_boost_round is required"):
+    with pytest.raises(ParameterError, match="num_boost_round is required"):
         validate_constraints(params, frame, y, [[0, 1]], library="xgboost")
     y_bad = y.copy()
     y_bad[5] = np.nan
@@ -412,7 +412,7 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
 
     train, test = next(StratifiedKFold(3, shuffle=True, random_state=0).split(X, y.astype(int)))
     by_hand = lgb.train({**params, "seed": 0}, lgb.Dataset(X[train], y[train]), 12).predict(X[test])
-    first = checked.folds[checked.folds["fold"] == 0].set_index("metric")["unconstrained"]
+    first = checked.folds[checked.folds["fold"] == 1].set_index("metric")["unconstrained"]
     assert first["log_loss"] == pytest.approx(log_loss(y[test], by_hand), rel=1e-9)
     assert first["auc"] == pytest.approx(roc_auc_score(y[test], by_hand), rel=1e-9)
 
@@ -426,7 +426,7 @@ def test_saved_xgboost_file_notes_missing_parameters(tmp_path, three_way_data):
     assert checked.summary["params"]["max_depth"] == 3
     assert checked.summary["num_boost_round"] == 8
     assert any("does not store its training parameters" in note for note in checked.summary["notes"])
-    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/1"
+    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/2"
 
 
 def test_cross_group_check_finds_crossing_paths(three_way_data):
@@ -464,7 +464,7 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     train, test = next(StratifiedKFold(2, shuffle=True, random_state=0).split(X, y.astype(int)))
     by_hand = xgb.XGBClassifier(n_estimators=6, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0)
     probability = by_hand.fit(X[train], y[train]).predict_proba(X[test])
-    first = checked.folds.loc[checked.folds["fold"] == 0, "unconstrained"].iloc[0]
+    first = checked.folds.loc[checked.folds["fold"] == 1, "unconstrained"].iloc[0]
     assert first == pytest.approx(log_loss(y[test], probability), rel=1e-5)
 
 

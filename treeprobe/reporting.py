@@ -675,7 +675,7 @@ def _validation_html(validation: Any) -> str:
             f"(95% interval {_num(values['difference_low'], 3)} to {_num(values['difference_high'], 3)}; "
             f"{_num(100 * values['relative_change'], 3)}% relative; {better} is better)")
     for record in validation.folds.itertuples(index=False):
-        rows.append([_num(int(record.fold) + 1), _e(record.metric), _num(record.unconstrained, 4),
+        rows.append([_num(int(record.fold)), _e(record.metric), _num(record.unconstrained, 4),
                      _num(record.constrained, 4), _num(record.difference, 3)])
     n_folds = summary.get("n_folds", "?")
     crossing = validation.cross_group_pairs
