@@ -463,6 +463,51 @@ def _with_verdicts(frame: pd.DataFrame, thresholds: dict) -> pd.DataFrame:
             .drop(columns="_rank").reset_index(drop=True)[list(PAIR_COLUMNS)])
 
 
+def _sharing(frame: pd.DataFrame) -> tuple[np.ndarray, list[tuple[str, str]]]:
+    sharing = frame["paths"].to_numpy() > 0
+    return sharing, [tuple(k) for k in frame.loc[sharing, ["feature_a", "feature_b"]].to_numpy()]
+
+
+def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resamples: int, confidence: float,
+                    rng: np.random.Generator, output: int | None, progress: bool | None) -> pd.DataFrame:
+    """Add ``h2_low``, ``h2_high``, ``h_low``, ``h_high`` for pairs sharing a path (NaN elsewhere or without resamples)."""
+    sharing, names = _sharing(frame)
+    low, high = np.full((2, len(frame)), np.nan), np.full((2, len(frame)), np.nan)
+    if resamples and names:
+        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
+        low[:, sharing], high[:, sharing] = _subsample_intervals(graph, rows, point, names, resamples=resamples,
+                                                                 confidence=confidence, rng=rng, output=output,
+                                                                 progress=progress)
+    frame["h2_low"], frame["h2_high"], frame["h_low"], frame["h_high"] = low[0], high[0], low[1], high[1]
+    return frame
+
+
+def _with_noise_floor(frame: pd.DataFrame, graph: ForestGraph, live_params: dict, X: Any, target: np.ndarray | None,
+                      rows: Any, *, refits: int, quantile: float, params: dict | None, output: int | None,
+                      random_state: int, n_jobs: int, progress: bool | None) -> tuple[pd.DataFrame, list[str]]:
+    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits) and the refit notes."""
+    sharing, names = _sharing(frame)
+    null = np.full((2, len(frame)), np.nan)
+    notes: list[str] = []
+    if target is not None and refits and names:
+        values, notes = _null_h(graph, live_params, X, target, rows, names, refits=refits, params=params,
+                                output=output, random_state=random_state, n_jobs=n_jobs, progress=progress)
+        null[:, sharing] = np.quantile(values, quantile, axis=0)
+    frame["null_h2"], frame["null_h"] = null[0], null[1]
+    return frame, notes
+
+
+def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray, random_state: int) -> pd.DataFrame:
+    """Add ``rank_correlation``, ``information_correlation`` and ``dependence`` (the larger in absolute value)."""
+    index = {name: j for j, name in enumerate(graph.feature_names)}
+    categorical = np.array([kind == "categorical" for kind in graph.feature_types])
+    columns = [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"])]
+    rank, info = _dependence(matrix, columns, categorical, random_state)
+    frame["rank_correlation"], frame["information_correlation"] = rank, info
+    frame["dependence"] = np.fmax(np.abs(rank), info)
+    return frame
+
+
 def _checked_thresholds(*, min_h2: Any, min_effect: Any, max_dependence: Any, null_quantile: Any,
                         confidence: Any) -> dict:
     confidence = check_float("confidence", confidence, low=0.5, high=1.0)
@@ -621,32 +666,13 @@ def triage(
     scale = prediction_sd if prediction_sd > 0 else 1.0
 
     frame = _pair_frame(walked, hres, used_names, include_absent)
-    sharing = frame["paths"].to_numpy() > 0
-    share_names = [tuple(k) for k in frame.loc[sharing, ["feature_a", "feature_b"]].to_numpy()]
-    low, high = np.full((2, len(frame)), np.nan), np.full((2, len(frame)), np.nan)
-    if resamples and share_names:
-        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
-        low[:, sharing], high[:, sharing] = _subsample_intervals(
-            graph, rows, point, share_names, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
-            output=h_output, progress=progress)
-    frame["h2_low"], frame["h2_high"], frame["h_low"], frame["h_high"] = low[0], high[0], low[1], high[1]
+    frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
+                            output=h_output, progress=progress)
     frame["effect"] = frame["h"] / scale
-
-    null = np.full((2, len(frame)), np.nan)
-    refit_notes: list[str] = []
-    if target is not None and null_refits and share_names:
-        values, refit_notes = _null_h(graph, live_params, X, target, rows, share_names, refits=null_refits,
-                                      params=params, output=h_output, random_state=random_state, n_jobs=n_jobs,
-                                      progress=progress)
-        null[:, sharing] = np.quantile(values, thresholds["null_quantile"], axis=0)
-    frame["null_h2"], frame["null_h"] = null[0], null[1]
-
-    index = {name: j for j, name in enumerate(graph.feature_names)}
-    categorical = np.array([kind == "categorical" for kind in graph.feature_types])
-    rank, info = _dependence(matrix, [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"])],
-                             categorical, random_state)
-    frame["rank_correlation"], frame["information_correlation"] = rank, info
-    frame["dependence"] = np.fmax(np.abs(rank), info)
+    frame, refit_notes = _with_noise_floor(frame, graph, live_params, X, target, rows, refits=null_refits,
+                                           quantile=thresholds["null_quantile"], params=params, output=h_output,
+                                           random_state=random_state, n_jobs=n_jobs, progress=progress)
+    frame = _with_dependence(frame, graph, matrix, random_state)
     frame = _with_verdicts(frame, thresholds)
     triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
                     else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
