@@ -3,7 +3,8 @@
 XGBoost and LightGBM accept ``interaction_constraints``, a list of feature
 groups: a tree may only combine on one root-to-leaf path features that lie in
 a common group [1]_ [2]_. This module turns the triage of feature pairs into
-such groups, exports them in each library's accepted form, and checks them
+such groups, exports them in each library's accepted form (and as
+scikit-learn's ``interaction_cst`` for ``HistGradientBoosting*``), and checks them
 by retraining: cross-validated loss with and without the groups, and a walk
 of the constrained refit (:mod:`treeprobe.cooccurrence`) to confirm that no path
 crosses the groups.
