@@ -30,7 +30,7 @@ from treeprobe.constraints import (
     write_graphml,
 )
 from treeprobe.cooccurrence import structure
-from treeprobe.errors import DataError, MissingLibraryError, TreeprobeError
+from treeprobe.errors import DataError, MissingLibraryError, ParameterError, TreeprobeError
 from treeprobe.io import load_model
 
 xgb = pytest.importorskip("xgboost")
@@ -279,7 +279,7 @@ def test_to_dict_json_and_snippet(small_ensemble):
         namespace = {"params": {}}
         exec(suggestion.python_snippet(library), namespace)  # noqa: S102 - the snippet is our own output
         assert namespace["params"]["interaction_constraints"] == expected
-    with pytest.raises(DataError, match="library"):
+    with pytest.raises(ParameterError, match="library"):
         suggestion.python_snippet("catboost")
 
 
@@ -339,9 +339,9 @@ def test_bad_triage_results(small_ensemble):
     negative = _stand_in(small_ensemble, [("fuel_price", "shift_length", "interaction", -1.0)])
     with pytest.raises(DataError, match="strength must be a number >= 0"):
         suggest_constraints(negative)
-    with pytest.raises(DataError, match="include holds 'strong'"):
+    with pytest.raises(ParameterError, match="include holds 'strong'"):
         suggest_constraints(good, include=("interaction", "strong"))
-    with pytest.raises(DataError, match="min_strength"):
+    with pytest.raises(ParameterError, match="min_strength"):
         suggest_constraints(good, min_strength=float("nan"))
     with pytest.raises(DataError, match="ensemble must be a ForestGraph"):
         suggest_constraints(SimpleNamespace(**{**vars(good), "ensemble": "model.json"}))
@@ -362,11 +362,11 @@ def test_bad_groups_and_data(three_way_data):
         validate_constraints(params, frame, y, [[0, 9]], **options)
     with pytest.raises(DataError, match="lists a feature twice"):
         validate_constraints(params, frame, y, [[0, 0]], **options)
-    with pytest.raises(DataError, match="params must not hold interaction_constraints"):
+    with pytest.raises(ParameterError, match="params must not hold interaction_constraints"):
         validate_constraints(params, frame, y, [[0, 1]], params={"interaction_constraints": "[[0]]"}, **options)
-    with pytest.raises(DataError, match="folds must be an integer >= 2"):
+    with pytest.raises(ParameterError, match="folds must be an integer >= 2"):
         validate_constraints(params, frame, y, [[0, 1]], library="xgboost", num_boost_round=2, folds=1)
-    with pytest.raises(DataError, match="num_boost_round is required"):
+    with pytest.raises(ParameterError, match="num_boost_round is required"):
         validate_constraints(params, frame, y, [[0, 1]], library="xgboost")
     y_bad = y.copy()
     y_bad[5] = np.nan
@@ -412,7 +412,7 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
 
     train, test = next(StratifiedKFold(3, shuffle=True, random_state=0).split(X, y.astype(int)))
     by_hand = lgb.train({**params, "seed": 0}, lgb.Dataset(X[train], y[train]), 12).predict(X[test])
-    first = checked.folds[checked.folds["fold"] == 0].set_index("metric")["unconstrained"]
+    first = checked.folds[checked.folds["fold"] == 1].set_index("metric")["unconstrained"]
     assert first["log_loss"] == pytest.approx(log_loss(y[test], by_hand), rel=1e-9)
     assert first["auc"] == pytest.approx(roc_auc_score(y[test], by_hand), rel=1e-9)
 
@@ -426,7 +426,7 @@ def test_saved_xgboost_file_notes_missing_parameters(tmp_path, three_way_data):
     assert checked.summary["params"]["max_depth"] == 3
     assert checked.summary["num_boost_round"] == 8
     assert any("does not store its training parameters" in note for note in checked.summary["notes"])
-    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/1"
+    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/2"
 
 
 def test_cross_group_check_finds_crossing_paths(three_way_data):
@@ -464,7 +464,7 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     train, test = next(StratifiedKFold(2, shuffle=True, random_state=0).split(X, y.astype(int)))
     by_hand = xgb.XGBClassifier(n_estimators=6, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0)
     probability = by_hand.fit(X[train], y[train]).predict_proba(X[test])
-    first = checked.folds.loc[checked.folds["fold"] == 0, "unconstrained"].iloc[0]
+    first = checked.folds.loc[checked.folds["fold"] == 1, "unconstrained"].iloc[0]
     assert first == pytest.approx(log_loss(y[test], probability), rel=1e-5)
 
 
@@ -473,3 +473,83 @@ def test_used_column_must_be_boolean(small_ensemble):
     result.features["used"] = [True, "yes", True, True]
     with pytest.raises(DataError, match="row 1: used must be True or False"):
         suggest_constraints(result)
+
+
+# --------------------------------------------------------------------- faults fixed in the reshape
+def test_folds_are_numbered_one_to_k_and_results_compare(three_way_data):
+    X, y = three_way_data
+    params = {"max_depth": 3, "eta": 0.3, "nthread": 1}
+    checked = validate_constraints(params, X, y, [[0, 1]], library="xgboost", num_boost_round=5, folds=3)
+    assert sorted(set(checked.folds["fold"])) == [1, 2, 3]
+    assert sorted({row["fold"] for row in checked.to_dict()["folds"]}) == [1, 2, 3]
+    again = validate_constraints(params, X, y, [[0, 1]], library="xgboost", num_boost_round=5, folds=3)
+    other = validate_constraints(params, X, y, [[0, 2]], library="xgboost", num_boost_round=5, folds=3)
+    assert checked == again and checked != other and (checked == "folds") is False
+
+
+@pytest.mark.parametrize(("kind", "expected"), [
+    ("xgboost-binary", "xgboost.XGBClassifier"), ("xgboost-regression", "xgboost.XGBRegressor"),
+    ("lightgbm-binary", "lightgbm.LGBMClassifier"), ("lightgbm-regression", "lightgbm.LGBMRegressor"),
+])
+def test_snippet_estimator_class_follows_the_objective(kind, expected, three_way_data):
+    """The snippet names the estimator class the model's objective needs, and its value trains that class."""
+    X, y = three_way_data
+    library, task = kind.split("-")
+    target = (y > np.median(y)).astype(int) if task == "binary" else y
+    if library == "xgboost":
+        wrapper = (xgb.XGBClassifier if task == "binary" else xgb.XGBRegressor)(n_estimators=5, max_depth=3, n_jobs=1)
+    else:
+        wrapper = (lgb.LGBMClassifier if task == "binary" else lgb.LGBMRegressor)(n_estimators=5, verbose=-1,
+                                                                                   n_jobs=1)
+    graph = load_model(wrapper.fit(X, target))
+    names = list(graph.feature_names)
+    suggestion = suggest_constraints(_stand_in(graph, [(names[0], names[2], "interaction", 0.5)]))
+    snippet = suggestion.python_snippet()
+    assert f"{expected}(" in snippet
+    # The opposite class: a binary model must not get a regressor, nor a regression model a classifier.
+    wrong = expected.replace("Classifier", "@").replace("Regressor", "Classifier").replace("@", "Regressor")
+    assert f"{wrong}(" not in snippet
+    namespace = {"params": {}}
+    exec(snippet, namespace)  # noqa: S102 - the snippet is our own output
+    module = xgb if library == "xgboost" else lgb
+    estimator = getattr(module, expected.split(".")[1])
+    refit = estimator(n_estimators=10, max_depth=3, n_jobs=1, interaction_constraints=namespace["interaction_constraints"],
+                      **({} if library == "xgboost" else {"verbose": -1})).fit(X, target)
+    assert frozenset((names[0], names[1])) not in _pair_sets(load_model(refit))
+
+
+@pytest.mark.parametrize("task", ["regression", "binary"])
+def test_histgradientboosting_snippet_sets_interaction_cst(task, three_way_data):
+    """scikit-learn's own enforcement of ``interaction_cst``: fit the estimator the snippet builds, walk its trees."""
+    from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+
+    X, y = three_way_data
+    target = (y > np.median(y)).astype(int) if task == "binary" else y
+    estimator = HistGradientBoostingClassifier if task == "binary" else HistGradientBoostingRegressor
+    graph = load_model(estimator(max_iter=10, random_state=0).fit(X, target))
+    names = list(graph.feature_names)
+    # Overlapping groups [0, 1] and [1, 2] (x0 * x2 dominates the target), x3 alone.
+    suggestion = suggest_constraints(_stand_in(graph, [(names[0], names[1], "interaction", 0.5),
+                                                       (names[1], names[2], "interaction", 0.4)]))
+    assert suggestion.overlapping
+    snippet = suggestion.python_snippet()
+    assert f"model = {estimator.__name__}(interaction_cst=interaction_cst)" in snippet
+    assert suggestion.python_snippet("sklearn") == snippet
+    namespace: dict = {}
+    exec(snippet, namespace)  # noqa: S102 - the snippet is our own output
+    model = namespace["model"]
+    assert isinstance(model, estimator) and model.interaction_cst == suggestion.lightgbm_param
+    refit = load_model(model.set_params(max_iter=40, random_state=0).fit(X, target))
+    pairs = _pair_sets(refit)
+    assert frozenset((names[0], names[1])) in pairs and frozenset((names[1], names[2])) in pairs
+    assert pairs == {frozenset((names[0], names[1])), frozenset((names[1], names[2]))}
+    assert not _triple_sets(refit)
+
+
+def test_suggestions_compare_by_value(small_ensemble):
+    result = _stand_in(small_ensemble, [("fuel_price", "crew_size", "interaction", 0.5)])
+    assert suggest_constraints(result) == suggest_constraints(result)
+    assert suggest_constraints(result) != suggest_constraints(result, include=("interaction", "co-split"),
+                                                              min_strength=0.9)
+    with pytest.raises(ParameterError, match="library"):
+        suggest_constraints(result).python_snippet("catboost")

@@ -203,3 +203,29 @@ def test_missing_lightgbm_skips_its_part_without_writing(tmp_path, monkeypatch):
     X, y, _ = demo_data(100)
     assert _train_lightgbm(X, y, tmp_path / "model_lightgbm.txt") is None
     assert not list(tmp_path.iterdir())
+
+
+def test_cli_quiet_prints_the_summary_only(tmp_path, capsys):
+    """``treeprobe demo --quiet``: no progress, no step lines, no details on either stream; the summary on stdout."""
+    from treeprobe.cli import main
+
+    assert main(["demo", "--out", str(tmp_path / "quiet"), "--quiet"]) == 0
+    printed = capsys.readouterr()
+    assert printed.err == ""
+    assert printed.out.startswith("treeprobe demo:") and "Recovered 6 of 6 ground-truth items" in printed.out
+    assert "Ground truth (" not in printed.out
+    assert not [line for line in printed.out.splitlines() if line.startswith("demo: ")]
+    tally = next(line for line in printed.out.splitlines() if line.startswith("Pairs: "))
+    assert [part.split(" ", 1)[1] for part in tally[len("Pairs: "):].rstrip(".").split(", ")] == list(VERDICTS)
+    assert len(printed.out.splitlines()) < 15
+
+
+def test_demo_without_quiet_tells_each_step_then_details_and_summary(tmp_path, capsys):
+    shown = io.StringIO()
+    result = run_demo(tmp_path / "loud", stream=shown)
+    err = capsys.readouterr().err
+    steps = [line for line in err.splitlines() if line.startswith("demo: ")]
+    assert len(steps) == len(result.timings) and len(steps) >= 7
+    text = shown.getvalue()
+    assert text == result.details + "\n" + result.summary
+    assert "Ground truth (" in result.details and "Ground truth (" not in result.summary

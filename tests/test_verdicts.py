@@ -17,6 +17,7 @@ import pandas as pd
 import pytest
 
 from treeprobe import DataError
+from treeprobe.errors import ParameterError
 from treeprobe.verdicts import VERDICTS, triage
 
 xgb = pytest.importorskip("xgboost")
@@ -155,9 +156,63 @@ def test_bad_input_is_reported(friedman1):
         triage(model, X, "nope")
     with pytest.raises(DataError, match="one value per row"):
         triage(model, X, y[:10])
-    with pytest.raises(DataError, match="min_h2"):
+    # Bad options are parameter errors, not data errors (treeprobe.checks).
+    with pytest.raises(ParameterError, match="min_h2"):
         triage(model, X, min_h2=2.0)
-    with pytest.raises(DataError, match="resamples"):
+    with pytest.raises(ParameterError, match="resamples"):
         triage(model, X, resamples=-1)
+    with pytest.raises(ParameterError, match="output"):
+        triage(model, X, output=1)
     with pytest.raises(DataError, match="x3"):
         triage(model, X.drop(columns=["x3"]))
+
+
+def test_one_verdict_order_and_rules_from_the_thresholds(friedman1):
+    """One tuple in table order; constraints uses the same object; rules follow it and quote the thresholds."""
+    from treeprobe import constraints
+
+    _, _, _, result = friedman1
+    assert VERDICTS == ("interaction", "dependent", "co-split", "absent")
+    assert constraints.VERDICTS is VERDICTS
+    assert tuple(result.rules) == VERDICTS
+    ranks = result.pairs["verdict"].map({v: i for i, v in enumerate(VERDICTS)}).to_numpy()
+    assert (np.diff(ranks) >= 0).all()
+    model, X, y, _ = friedman1
+    other = triage(model, X, sample=200, resamples=0, min_h2=0.125, min_effect=0.25, max_dependence=0.625)
+    assert "0.125" in other.rules["interaction"] and "25%" in other.rules["interaction"]
+    assert "0.625" in other.rules["dependent"]
+
+
+def test_verdict_is_a_function_of_the_numbers():
+    """The rule of the triage docstring, on hand-made rows (no model): one row per branch of the rule."""
+    from treeprobe.verdicts import _verdict
+
+    thresholds = {"min_h2": 0.05, "min_effect": 0.05, "max_dependence": 0.7}
+    #            clears   low H²  within floor  small effect  dependent  no path  no floor, dependence unknown
+    h2_low = np.array([0.2, 0.04, 0.2, 0.2, 0.2, 0.0, 0.2])
+    h_low = np.array([1.0, 1.0, 0.3, 1.0, 1.0, 0.0, 1.0])
+    null_h = np.array([0.5, 0.5, 0.5, 0.5, 0.5, np.nan, np.nan])
+    effect = np.array([0.1, 0.1, 0.1, 0.01, 0.1, 0.0, 0.1])
+    dependence = np.array([0.1, 0.1, 0.1, 0.1, 0.9, 0.95, np.nan])
+    shares = np.array([True, True, True, True, True, False, True])
+    verdict, leans = _verdict(h2_low, h_low, null_h, effect, dependence, shares, thresholds)
+    assert verdict.tolist() == ["interaction", "co-split", "co-split", "co-split", "dependent", "absent", "interaction"]
+    assert leans.tolist() == ["interaction", "co-split", "co-split", "co-split", "interaction", "absent", "interaction"]
+
+
+def test_tables_have_fixed_columns_and_results_compare(friedman1):
+    from treeprobe.verdicts import FEATURE_COLUMNS, PAIR_COLUMNS, TRIPLE_COLUMNS
+
+    model, X, y, _ = friedman1
+    plain = triage(model, X, sample=150, resamples=0, null_refits=0)
+    with_triples = triage(model, X, sample=150, resamples=0, null_refits=0, triples=True)
+    assert tuple(plain.triples.columns) == tuple(with_triples.triples.columns) == TRIPLE_COLUMNS
+    assert len(plain.triples) == 0 and len(with_triples.triples) > 0
+    assert tuple(plain.pairs.columns) == tuple(with_triples.pairs.columns) == PAIR_COLUMNS
+    assert tuple(plain.features.columns) == FEATURE_COLUMNS
+    # Comparing never raises: equal to itself, unequal to another run or another type.
+    assert plain == plain
+    assert (plain == with_triples) is False
+    assert (plain == "a result") is False
+    same = triage(plain.ensemble, X, sample=150, resamples=0, null_refits=0)
+    assert same.pairs.equals(plain.pairs) and same.rules == plain.rules

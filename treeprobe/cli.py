@@ -392,8 +392,8 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
     result = run_demo(args.out, quiet=args.quiet)
     if args.quiet:
-        # quiet silences progress bars; the summary is what the command is for.
-        sys.stdout.write(result.summary if result.summary.endswith("\n") else result.summary + "\n")
+        # run_demo printed nothing: no bars, no step lines, no details; the summary is what is left.
+        sys.stdout.write(result.summary)
     return 0
 
 
@@ -526,7 +526,7 @@ def build_parser() -> argparse.ArgumentParser:
                                    "triage and constraints on them; writes the report, JSON and CSV into DIR.")
     p.add_argument("--out", default="treeprobe-demo", metavar="DIR",
                    help="folder for the models, data and results (default: ./treeprobe-demo)")
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    p.add_argument("--quiet", action="store_true", help="print only the summary: no progress bars, step lines or details")
     p.set_defaults(handler=_cmd_demo)
     return parser
 

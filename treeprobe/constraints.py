@@ -3,7 +3,8 @@
 XGBoost and LightGBM accept ``interaction_constraints``, a list of feature
 groups: a tree may only combine on one root-to-leaf path features that lie in
 a common group [1]_ [2]_. This module turns the triage of feature pairs into
-such groups, exports them in each library's accepted form, and checks them
+such groups, exports them in each library's accepted form (and as
+scikit-learn's ``interaction_cst`` for ``HistGradientBoosting*``), and checks them
 by retraining: cross-validated loss with and without the groups, and a walk
 of the constrained refit (:mod:`treeprobe.cooccurrence`) to confirm that no path
 crosses the groups.
@@ -76,10 +77,16 @@ from typing import Any
 import networkx as nx
 import numpy as np
 import pandas as pd
+from scipy.stats import t as student_t
+from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
+from sklearn.model_selection import KFold, StratifiedKFold
 
-from .errors import DataError, MissingLibraryError, UnsupportedModelError
+from .checks import check_choice, check_float, check_int, check_progress, check_seed
+from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
-from .output import Progress, atomic_write, dumps_json, to_jsonable
+from .io import load_model
+from .output import atomic_write, dumps_json, to_jsonable
+from .progress import progress_bar
 from .refit import (
     BINARY,
     LIBRARIES,
@@ -88,11 +95,13 @@ from .refit import (
     design_matrix,
     fit_model,
     import_library,
+    live_training_params,
     predict_model,
     task_of,
     training_setup,
     xgboost_constraint_text,
 )
+from .verdicts import VERDICTS
 
 __all__ = [
     "VERDICTS",
@@ -106,7 +115,6 @@ __all__ = [
     "validate_constraints",
 ]
 
-VERDICTS = ("interaction", "co-split", "dependent", "absent")
 LIMITS = (
     "Groups follow the model's evidence: H-statistics extrapolate when features are dependent, path structure "
     "is not causation, and a model's interactions are not the world's."
@@ -115,7 +123,18 @@ _PAIR_COLUMNS = ("feature_a", "feature_b", "verdict", "strength")
 _TRIPLE_COLUMNS = ("feature_a", "feature_b", "feature_c", "verdict", "strength")
 _FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_rest", "used")
 _SCHEMA = "treeprobe.constraints/2"
-_VALIDATION_SCHEMA = "treeprobe.constraints.validation/1"
+_VALIDATION_SCHEMA = "treeprobe.constraints.validation/2"
+_FOLD_COLUMNS = ("fold", "metric", "unconstrained", "constrained", "difference")
+# Where each library's snippet puts the groups: the estimator class by task, and its keyword.
+_SNIPPET_LIBRARIES = (*LIBRARIES, "sklearn")
+_ESTIMATORS = {
+    "xgboost": {"regression": "xgboost.XGBRegressor", "classification": "xgboost.XGBClassifier",
+                "ranking": "xgboost.XGBRanker"},
+    "lightgbm": {"regression": "lightgbm.LGBMRegressor", "classification": "lightgbm.LGBMClassifier",
+                 "ranking": "lightgbm.LGBMRanker"},
+    "sklearn": {"regression": "HistGradientBoostingRegressor", "classification": "HistGradientBoostingClassifier",
+                "ranking": "HistGradientBoostingRegressor"},
+}
 
 
 # --------------------------------------------------------------------- reading the triage result
@@ -143,10 +162,10 @@ def _feature_names(result: Any) -> tuple[str, ...]:
 def _check_include(include: Any) -> tuple[str, ...]:
     verdicts = (include,) if isinstance(include, str) else include
     if not isinstance(verdicts, (tuple, list)) or not verdicts:
-        raise DataError(f"include must be a verdict or a non-empty tuple of verdicts from {VERDICTS}, got {include!r}")
+        raise ParameterError(f"include must be a verdict or a non-empty tuple of verdicts from {VERDICTS}, got {include!r}")
     unknown = [v for v in verdicts if v not in VERDICTS]
     if unknown:
-        raise DataError(f"include holds {unknown[0]!r}, which is not a verdict; expected some of {VERDICTS}")
+        raise ParameterError(f"include holds {unknown[0]!r}, which is not a verdict; expected some of {VERDICTS}")
     return tuple(dict.fromkeys(verdicts))
 
 
@@ -308,6 +327,11 @@ def _named(pairs: Sequence[tuple[int, int]], names: Sequence[str]) -> str:
     return ", ".join(f"({names[a]}, {names[b]})" for a, b in pairs)
 
 
+def _estimator_name(model: ForestGraph) -> str:
+    # The one read of the loaders' free-form facts here; graph.provenance.estimator once the graph carries it.
+    return str(model.metadata.get("estimator", "") or "")
+
+
 @dataclass(frozen=True)
 class ConstraintSuggestion:
     """Feature groups allowed to interact, with the libraries' parameters.
@@ -339,6 +363,12 @@ class ConstraintSuggestion:
         pairs) when ``groups`` overlap, else None.
     feature_names : tuple of str
         The model's input columns, which the indices refer to.
+    library, objective, estimator : str
+        The triaged model's library, objective and scikit-learn class name
+        ("" when none), which choose the estimator class of
+        :meth:`python_snippet`.
+
+    Results compare by value (every field is plain data).
     """
 
     groups: list[list[str]]
@@ -351,6 +381,9 @@ class ConstraintSuggestion:
     lightgbm_param: list[list[int]]
     alternative: list[list[str]] | None
     feature_names: tuple[str, ...] = field(default=())
+    library: str = ""
+    objective: str = ""
+    estimator: str = ""
 
     def to_dict(self) -> dict:
         """JSON-ready dict: ``schema``, ``limits`` and every attribute."""
@@ -359,34 +392,126 @@ class ConstraintSuggestion:
             "unused": self.unused, "overlapping": self.overlapping, "notes": self.notes,
             "xgboost_param": self.xgboost_param, "xgboost_param_by_name": self.xgboost_param_by_name,
             "lightgbm_param": self.lightgbm_param, "alternative": self.alternative,
-            "feature_names": list(self.feature_names),
+            "feature_names": list(self.feature_names), "library": self.library, "objective": self.objective,
+            "estimator": self.estimator,
         })
 
     def to_json(self) -> str:
         """:meth:`to_dict` as indented JSON text."""
         return dumps_json(self.to_dict())
 
-    def python_snippet(self, library: str) -> str:
-        """Python lines to paste into a training script of ``library`` ("xgboost" or "lightgbm")."""
-        if library not in LIBRARIES:
-            raise DataError(f"library must be one of {LIBRARIES}, got {library!r}")
+    def _task(self) -> str:
+        """"classification", "regression" or "ranking", read from the model's estimator class or objective."""
+        if self.estimator:
+            return "classification" if self.estimator.endswith("Classifier") else "regression"
+        if self.objective.startswith(("rank:", "lambdarank", "rank_xendcg")):
+            return "ranking"
+        try:
+            task = task_of(self.library, self.objective) if self.library in LIBRARIES else REGRESSION
+        except UnsupportedModelError:
+            task = REGRESSION
+        return "regression" if task == REGRESSION else "classification"
+
+    def python_snippet(self, library: str | None = None) -> str:
+        """Python lines to paste into a training script: the groups in ``library``'s accepted form.
+
+        ``library`` is "xgboost", "lightgbm" or "sklearn" (scikit-learn's
+        ``HistGradientBoosting*``, keyword ``interaction_cst``); default the
+        model's own library. The estimator class (regressor, classifier or
+        ranker) follows the model's objective.
+        """
+        library = check_choice("library", self.library if library is None else library, _SNIPPET_LIBRARIES)
+        estimator = _ESTIMATORS[library][self._task()]
         legend = [f"#   group {i}: {', '.join(group)}" for i, group in enumerate(self.groups)]
         if self.unused:
             legend.append(f"#   unused, kept alone: {', '.join(self.unused)}")
         header = ["# Feature groups allowed to interact (indices into the training columns):", *legend]
-        if library == "xgboost":
+        if library == "sklearn":
+            # Features missing from interaction_cst would form one extra group together: list every feature.
+            body = [
+                f"from sklearn.ensemble import {estimator}",
+                "",
+                f"interaction_cst = {self.lightgbm_param!r}",
+                f"model = {estimator}(interaction_cst=interaction_cst)",
+            ]
+        elif library == "xgboost":
             body = [
                 f"interaction_constraints = {self.xgboost_param!r}",
                 'params["interaction_constraints"] = interaction_constraints  # xgboost.train(params, dtrain, ...)',
-                "# or: xgboost.XGBRegressor(..., interaction_constraints=interaction_constraints)",
+                f"# or: {estimator}(..., interaction_constraints=interaction_constraints)",
             ]
         else:
             body = [
                 f"interaction_constraints = {self.lightgbm_param!r}",
                 'params["interaction_constraints"] = interaction_constraints  # lightgbm.train(params, train_set, ...)',
-                "# or: lightgbm.LGBMRegressor(..., interaction_constraints=interaction_constraints)",
+                f"# or: {estimator}(..., interaction_constraints=interaction_constraints)",
             ]
         return "\n".join(header + body) + "\n"
+
+
+def _used_features(triage_result: Any, known: dict[str, int]) -> set[int]:
+    """Indices of the features the model splits on (``features.used``)."""
+    features = _frame_of(triage_result, "features", ("feature", "used"))
+    _check_members(features, ["feature"], known, "features")
+    used_column = features["used"]
+    if not (pd.api.types.is_bool_dtype(used_column) or used_column.isin([True, False]).all()):
+        row = int(np.flatnonzero(~used_column.isin([True, False]).to_numpy())[0])
+        raise DataError(f"triage_result.features row {row}: used must be True or False, got {used_column.iloc[row]!r}")
+    flags = used_column.to_numpy(dtype=bool)
+    return {known[str(f)] for f, flag in zip(features["feature"], flags, strict=True) if flag}
+
+
+def _supported_pairs(triage_result: Any, known: dict[str, int], verdicts: tuple[str, ...],
+                     min_strength: float) -> tuple[set[tuple[int, int]], list[str]]:
+    """Edges (index pairs) whose verdict is included and whose strength reaches ``min_strength``, and a note."""
+    pairs = _frame_of(triage_result, "pairs", _PAIR_COLUMNS)
+    _check_members(pairs, ["feature_a", "feature_b"], known, "pairs")
+    strength = _check_strength(pairs, "pairs")
+    verdict_in = pairs["verdict"].isin(verdicts).to_numpy()
+    supported = verdict_in & (strength >= min_strength)
+    notes = []
+    if (verdict_in & ~supported).any():
+        notes.append(f"{int((verdict_in & ~supported).sum())} pair(s) with verdict in {list(verdicts)} were left out "
+                     f"for strength below min_strength = {min_strength:g}.")
+    edges = {tuple(sorted((known[str(a)], known[str(b)])))
+             for a, b in zip(pairs["feature_a"][supported], pairs["feature_b"][supported], strict=True) if a != b}
+    return edges, notes
+
+
+def _triple_edges(triage_result: Any, known: dict[str, int], names: Sequence[str], verdicts: tuple[str, ...],
+                  min_strength: float, edges: set[tuple[int, int]]) -> tuple[set[tuple[int, int]], list[str]]:
+    """``edges`` plus the pairs of every supported triple (so it lies within one group), and a note per triple."""
+    triples = _frame_of(triage_result, "triples", _TRIPLE_COLUMNS, allow_missing=True)
+    edges, notes = set(edges), []
+    if triples.empty:
+        return edges, notes
+    _check_members(triples, ["feature_a", "feature_b", "feature_c"], known, "triples")
+    strength = _check_strength(triples, "triples")
+    chosen = triples["verdict"].isin(verdicts).to_numpy() & (strength >= min_strength)
+    for a, b, c in triples.loc[chosen, ["feature_a", "feature_b", "feature_c"]].itertuples(index=False):
+        members = sorted({known[str(a)], known[str(b)], known[str(c)]})
+        missing = [pair for pair in combinations(members, 2) if pair not in edges]
+        if missing:
+            edges.update(missing)
+            notes.append(f"The triple ({', '.join(names[j] for j in members)}) is supported, so its pair(s) "
+                         f"{_named(missing, names)} were added to keep it within one group.")
+    return edges, notes
+
+
+def _disjoint_alternative(graph: nx.Graph, cliques: list[list[int]], edges: set[tuple[int, int]],
+                          names: Sequence[str]) -> tuple[list[list[str]] | None, list[str]]:
+    """When cliques overlap: the connected components as disjoint groups, and notes on what they allow."""
+    member_count = np.bincount([j for group in cliques for j in group], minlength=len(names))
+    if not (member_count > 1).any():
+        return None, []
+    shared = [names[j] for j in np.flatnonzero(member_count > 1)]
+    components = _group_order([list(c) for c in nx.connected_components(graph)], names)
+    extra = _pairs_outside(components, edges)
+    notes = [f"Groups overlap in {', '.join(shared)}. XGBoost 3.2.0 and LightGBM 4.7.0 keep each path "
+             "inside one group, so they allow exactly the supported pairs.",
+             "The non-overlapping alternative (connected components) forbids no supported pair but allows "
+             f"{len(extra)} unsupported pair(s): {_named(extra, names)}."]
+    return [[names[j] for j in group] for group in components], notes
 
 
 def suggest_constraints(
@@ -467,77 +592,35 @@ def suggest_constraints(
     ([['fuel_price', 'shift_length']], ['crew_size'], '[[0, 1], [2]]')
     """
     verdicts = _check_include(include)
-    if isinstance(min_strength, (bool, np.bool_)) or not isinstance(min_strength, (int, float, np.integer, np.floating)) \
-            or not math.isfinite(min_strength) or min_strength < 0:
-        raise DataError(f"min_strength must be a finite number >= 0, got {min_strength!r}")
+    min_strength = check_float("min_strength", min_strength, low=0.0)
     names = _feature_names(triage_result)
     known = {name: j for j, name in enumerate(names)}
-    features = _frame_of(triage_result, "features", ("feature", "used"))
-    pairs = _frame_of(triage_result, "pairs", _PAIR_COLUMNS)
-    triples = _frame_of(triage_result, "triples", _TRIPLE_COLUMNS, allow_missing=True)
-    _check_members(features, ["feature"], known, "features")
-    _check_members(pairs, ["feature_a", "feature_b"], known, "pairs")
-    pair_strength = _check_strength(pairs, "pairs")
-    notes: list[str] = []
-
-    used_column = features["used"]
-    if not (pd.api.types.is_bool_dtype(used_column) or used_column.isin([True, False]).all()):
-        row = int(np.flatnonzero(~used_column.isin([True, False]).to_numpy())[0])
-        raise DataError(f"triage_result.features row {row}: used must be True or False, got {used_column.iloc[row]!r}")
-    used_flags = used_column.to_numpy(dtype=bool)
-    used = {known[str(f)] for f, flag in zip(features["feature"], used_flags, strict=True) if flag}
-    verdict_in = pairs["verdict"].isin(verdicts).to_numpy()
-    supported = verdict_in & (pair_strength >= min_strength)
-    if (verdict_in & ~supported).any():
-        notes.append(f"{int((verdict_in & ~supported).sum())} pair(s) with verdict in {list(verdicts)} were left out "
-                     f"for strength below min_strength = {min_strength:g}.")
-    edges = {tuple(sorted((known[str(a)], known[str(b)])))
-             for a, b in zip(pairs["feature_a"][supported], pairs["feature_b"][supported], strict=True) if a != b}
-
-    if not triples.empty:
-        _check_members(triples, ["feature_a", "feature_b", "feature_c"], known, "triples")
-        triple_strength = _check_strength(triples, "triples")
-        chosen = triples["verdict"].isin(verdicts).to_numpy() & (triple_strength >= min_strength)
-        for a, b, c in triples.loc[chosen, ["feature_a", "feature_b", "feature_c"]].itertuples(index=False):
-            members = sorted({known[str(a)], known[str(b)], known[str(c)]})
-            missing = [pair for pair in combinations(members, 2) if pair not in edges]
-            if missing:
-                edges.update(missing)
-                notes.append(f"The triple ({', '.join(names[j] for j in members)}) is supported, so its pair(s) "
-                             f"{_named(missing, names)} were added to keep it within one group.")
-
+    used = _used_features(triage_result, known)
+    edges, notes = _supported_pairs(triage_result, known, verdicts, min_strength)
+    edges, triple_notes = _triple_edges(triage_result, known, names, verdicts, min_strength, edges)
     graph = nx.Graph()
     graph.add_nodes_from(sorted(used | {j for edge in edges for j in edge}))
     graph.add_edges_from(edges)
     cliques = _group_order([list(c) for c in nx.find_cliques(graph)], names)
-    grouped = set(graph.nodes)
-    unused = [j for j in range(len(names)) if j not in grouped]
-    member_count = np.bincount([j for group in cliques for j in group], minlength=len(names))
-    overlapping = bool((member_count > 1).any())
-    if not edges:
-        notes.append("No pair is supported: every used feature is its own group (an additive model).")
-    alternative = None
-    if overlapping:
-        shared = [names[j] for j in np.flatnonzero(member_count > 1)]
-        notes.append(f"Groups overlap in {', '.join(shared)}. XGBoost 3.2.0 and LightGBM 4.7.0 keep each path "
-                     "inside one group, so they allow exactly the supported pairs.")
-        components = _group_order([list(c) for c in nx.connected_components(graph)], names)
-        alternative = [[names[j] for j in group] for group in components]
-        extra = _pairs_outside(components, edges)
-        notes.append("The non-overlapping alternative (connected components) forbids no supported pair but allows "
-                     f"{len(extra)} unsupported pair(s): {_named(extra, names)}.")
+    alternative, overlap_notes = _disjoint_alternative(graph, cliques, edges, names)
+    additive_note = [] if edges else ["No pair is supported: every used feature is its own group (an additive model)."]
+    unused = [j for j in range(len(names)) if j not in graph]
     export = cliques + [[j] for j in unused]
+    model = triage_result.ensemble
     return ConstraintSuggestion(
         groups=[[names[j] for j in group] for group in cliques],
         group_indices=cliques,
         unused=[names[j] for j in unused],
-        overlapping=overlapping,
-        notes=notes,
+        overlapping=alternative is not None,
+        notes=notes + triple_notes + additive_note + overlap_notes,
         xgboost_param=xgboost_constraint_text(export),
         xgboost_param_by_name=[[names[j] for j in group] for group in export],
         lightgbm_param=[list(group) for group in export],
         alternative=alternative,
         feature_names=tuple(names),
+        library=model.library,
+        objective=model.objective,
+        estimator=_estimator_name(model),
     )
 
 
@@ -573,8 +656,6 @@ def _index_groups(groups: Any, columns: tuple[str, ...]) -> list[list[int]]:
 
 
 def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> dict[str, float]:
-    from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
-
     if task == REGRESSION:
         return {"rmse": float(np.sqrt(mean_squared_error(y, predicted)))}
     if task == BINARY:
@@ -623,19 +704,17 @@ def _cross_group(refit: ForestGraph, groups: list[list[int]],
 
 
 def _t_quantile(degrees: int) -> float:
-    from scipy.stats import t
-
-    return float(t.ppf(0.975, degrees))
+    return float(student_t.ppf(0.975, degrees))
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ValidationResult:
     """Cross-validated cost of interaction constraints, and a check of the constrained refit.
 
     Attributes
     ----------
     folds : DataFrame
-        One row per (fold, metric): ``fold`` (0-based), ``metric`` ("rmse",
+        One row per (fold, metric): ``fold`` (1..K), ``metric`` ("rmse",
         "log_loss" or "auc"), ``unconstrained``, ``constrained`` (held-out
         scores) and ``difference`` = constrained - unconstrained.
     summary : dict
@@ -652,12 +731,22 @@ class ValidationResult:
     stray_paths : list of list of str
         Feature sets of refit paths contained in no single group (catches a
         path holding three features whose pairs each share some group).
+
+    Results compare by value (``folds`` with :meth:`pandas.DataFrame.equals`).
     """
 
     folds: pd.DataFrame
     summary: dict
     cross_group_pairs: list[tuple[str, str]]
     stray_paths: list[list[str]]
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, ValidationResult):
+            return NotImplemented
+        return (self.folds.equals(other.folds) and self.summary == other.summary
+                and self.cross_group_pairs == other.cross_group_pairs and self.stray_paths == other.stray_paths)
+
+    __hash__ = None  # type: ignore[assignment]
 
     def to_dict(self) -> dict:
         """JSON-ready dict: ``schema``, ``limits``, ``folds`` (rows), ``summary``, ``cross_group_pairs``, ``stray_paths``."""
@@ -667,10 +756,76 @@ class ValidationResult:
         })
 
 
-def _check_positive_int(value: Any, name: str, minimum: int) -> int:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise DataError(f"{name} must be an integer >= {minimum}, got {value!r}")
-    return int(value)
+def _fold_setup(source: ForestGraph | dict, live_params: dict, *, library: str | None, params: dict | None,
+                num_boost_round: int | None, n_jobs: int, random_state: int) -> dict:
+    """The training recipe of every fit: library, module, parameters (threads, seed), rounds, objective, task, notes."""
+    library, run_params, rounds, names, notes = training_setup(source, library=library, params=params,
+                                                               num_boost_round=num_boost_round,
+                                                               live_params=live_params)
+    module = import_library(library)
+    objective = str(run_params.get("objective", "reg:squarederror" if library == "xgboost" else "regression"))
+    task = task_of(library, objective)
+    if objective == "multi:softmax":
+        # Same loss; softprob predicts class probabilities, which log-loss needs.
+        objective = run_params["objective"] = "multi:softprob"
+    if objective == "binary:hinge":
+        raise UnsupportedModelError("validate_constraints scores probabilities; binary:hinge predicts labels only")
+    threads = {"nthread": n_jobs, "seed": random_state} if library == "xgboost" else {"num_threads": n_jobs, "seed": random_state}
+    return {"library": library, "module": module, "params": {**run_params, **threads}, "rounds": rounds,
+            "names": names, "objective": objective, "task": task, "notes": notes}
+
+
+def _class_count(setup: dict, target: np.ndarray) -> int:
+    """Classes scored (2 for binary and regression); sets ``num_class`` for a multiclass fit that lacks it."""
+    if setup["task"] == REGRESSION:
+        return 2
+    if not np.all(target == np.round(target)) or target.min() < 0:
+        raise DataError("y must hold class codes 0, 1, ... for a classification objective")
+    if setup["task"] != MULTICLASS:
+        return 2
+    setup["params"].setdefault("num_class", int(target.max()) + 1)
+    return int(setup["params"]["num_class"])
+
+
+def _fold_scores(setup: dict, matrix: np.ndarray, target: np.ndarray, columns: tuple[str, ...],
+                 groups: list[list[int]], *, folds: int, n_classes: int, random_state: int,
+                 progress: bool | None) -> pd.DataFrame:
+    """Held-out scores of the unconstrained and the constrained fit on each fold (numbered 1..K)."""
+    task = setup["task"]
+    splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
+    fit_args = (setup["library"], setup["module"], setup["params"])
+    rows = []
+    with progress_bar(folds, "constraint folds", enabled=progress) as bar:
+        splits = splitter.split(matrix, target.astype(int) if task != REGRESSION else None)
+        for fold, (train, test) in enumerate(splits, start=1):
+            scores = {}
+            for label, chosen in (("unconstrained", None), ("constrained", groups)):
+                fitted = fit_model(*fit_args, matrix[train], target[train], setup["rounds"], chosen, columns)
+                predicted = predict_model(setup["library"], setup["module"], fitted, matrix[test], columns,
+                                          setup["objective"])
+                scores[label] = _scores(task, target[test], predicted, n_classes)
+            for metric in scores["unconstrained"]:
+                free, bound = scores["unconstrained"][metric], scores["constrained"][metric]
+                rows.append({"fold": fold, "metric": metric, "unconstrained": free, "constrained": bound,
+                             "difference": bound - free})
+            bar.update()
+    return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS))
+
+
+def _paired_summary(table: pd.DataFrame) -> dict[str, dict[str, float]]:
+    """Per metric: means, the mean paired difference, its sd and 95% t-interval, and the relative change."""
+    summary = {}
+    for metric, part in table.groupby("metric", sort=False):
+        difference = part["difference"].to_numpy()
+        mean, sd = float(difference.mean()), float(difference.std(ddof=1))
+        half = _t_quantile(len(difference) - 1) * sd / math.sqrt(len(difference))
+        free_mean = float(part["unconstrained"].mean())
+        summary[str(metric)] = {
+            "unconstrained_mean": free_mean, "constrained_mean": float(part["constrained"].mean()),
+            "difference_mean": mean, "difference_sd": sd, "difference_low": mean - half, "difference_high": mean + half,
+            "relative_change": mean / free_mean if free_mean != 0 else math.nan,
+        }
+    return summary
 
 
 def validate_constraints(
@@ -728,9 +883,10 @@ def validate_constraints(
 
     Raises
     ------
+    ParameterError
+        An option outside what it accepts (the message names it).
     DataError
-        Invalid option, groups naming unknown features, X or y not matching
-        the model.
+        Groups naming unknown features, X or y not matching the model.
     UnsupportedModelError
         A scikit-learn model, categorical splits, or a ranking objective.
     MissingLibraryError
@@ -759,81 +915,38 @@ def validate_constraints(
     .. [1] C. Nadeau and Y. Bengio, "Inference for the generalization error",
        Machine Learning 52(3), 239-281, 2003.
     """
-    folds = _check_positive_int(folds, "folds", 2)
-    n_jobs = _check_positive_int(n_jobs, "n_jobs", 1)
-    if num_boost_round is not None:
-        num_boost_round = _check_positive_int(num_boost_round, "num_boost_round", 1)
-    if isinstance(random_state, (bool, np.bool_)) or not isinstance(random_state, (int, np.integer)):
-        raise DataError(f"random_state must be an integer, got {random_state!r}")
-    if library is not None and library not in LIBRARIES:
-        raise DataError(f"library must be one of {LIBRARIES} or None, got {library!r}")
+    folds = check_int("folds", folds, low=2)
+    n_jobs = check_int("n_jobs", n_jobs, low=1)
+    num_boost_round = check_int("num_boost_round", num_boost_round, low=1, allow_none=True)
+    random_state = check_seed("random_state", random_state, allow_none=False)
+    library = check_choice("library", library, (*LIBRARIES, None))
+    progress = check_progress(progress)
     if params is not None and not isinstance(params, dict):
-        raise DataError(f"params must be a dict of training parameters, got {type(params).__name__}")
+        raise ParameterError(f"params must be a dict of training parameters, got {type(params).__name__}")
     if params and "interaction_constraints" in params:
-        raise DataError("params must not hold interaction_constraints; pass the groups as groups=")
-    library, run_params, rounds, names, notes = training_setup(model_or_params, library, params, num_boost_round)
-    matrix, target, columns = design_matrix(X, y, names)
+        raise ParameterError("params must not hold interaction_constraints; pass the groups as groups=")
+    source = model_or_params if isinstance(model_or_params, dict) else load_model(model_or_params)
+    setup = _fold_setup(source, live_training_params(model_or_params), library=library, params=params,
+                        num_boost_round=num_boost_round, n_jobs=n_jobs, random_state=random_state)
+    matrix, target, columns = design_matrix(X, y, setup["names"])
     index_groups = _index_groups(groups, columns)
-    module = import_library(library)
-    objective = str(run_params.get("objective", "reg:squarederror" if library == "xgboost" else "regression"))
-    task = task_of(library, objective)
-    if objective == "multi:softmax":
-        # Same loss; softprob predicts class probabilities, which log-loss needs.
-        objective = run_params["objective"] = "multi:softprob"
-    if objective == "binary:hinge":
-        raise UnsupportedModelError("validate_constraints scores probabilities; binary:hinge predicts labels only")
-    threads = {"nthread": n_jobs, "seed": random_state} if library == "xgboost" else {"num_threads": n_jobs, "seed": random_state}
-    run_params = {**run_params, **threads}
-
-    n_classes = 2
-    if task != REGRESSION:
-        if not np.all(target == np.round(target)) or target.min() < 0:
-            raise DataError("y must hold class codes 0, 1, ... for a classification objective")
-        n_classes = int(target.max()) + 1 if task == MULTICLASS else 2
-        if task == MULTICLASS:
-            run_params.setdefault("num_class", n_classes)
-            n_classes = int(run_params["num_class"])
+    n_classes = _class_count(setup, target)
     if matrix.shape[0] < 2 * folds:
         raise DataError(f"X has {matrix.shape[0]} rows, too few for {folds} folds")
-
-    from sklearn.model_selection import KFold, StratifiedKFold
-
-    splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
-    rows = []
-    with Progress(folds, "constraint folds", enabled=progress) as bar:
-        for fold, (train, test) in enumerate(splitter.split(matrix, target.astype(int) if task != REGRESSION else None)):
-            scores = {}
-            for label, chosen in (("unconstrained", None), ("constrained", index_groups)):
-                fitted = fit_model(library, module, run_params, matrix[train], target[train], rounds, chosen, columns)
-                scores[label] = _scores(task, target[test], predict_model(library, module, fitted, matrix[test], columns, objective), n_classes)
-            for metric in scores["unconstrained"]:
-                free, bound = scores["unconstrained"][metric], scores["constrained"][metric]
-                rows.append({"fold": fold, "metric": metric, "unconstrained": free, "constrained": bound,
-                             "difference": bound - free})
-            bar.advance()
-    table = pd.DataFrame(rows, columns=["fold", "metric", "unconstrained", "constrained", "difference"])
-
-    from .io import load_model
-
-    refit = load_model(fit_model(library, module, run_params, matrix, target, rounds, index_groups, columns))
+    table = _fold_scores(setup, matrix, target, columns, index_groups, folds=folds, n_classes=n_classes,
+                         random_state=random_state, progress=progress)
+    refit = load_model(fit_model(setup["library"], setup["module"], setup["params"], matrix, target, setup["rounds"],
+                                 index_groups, columns))
     crossing, stray = _cross_group(refit, index_groups, columns)
-    summary: dict[str, Any] = {}
-    for metric, part in table.groupby("metric", sort=False):
-        difference = part["difference"].to_numpy()
-        mean, sd = float(difference.mean()), float(difference.std(ddof=1))
-        half = _t_quantile(len(difference) - 1) * sd / math.sqrt(len(difference))
-        free_mean = float(part["unconstrained"].mean())
-        summary[str(metric)] = {
-            "unconstrained_mean": free_mean, "constrained_mean": float(part["constrained"].mean()),
-            "difference_mean": mean, "difference_sd": sd, "difference_low": mean - half, "difference_high": mean + half,
-            "relative_change": mean / free_mean if free_mean != 0 else math.nan,
-        }
+    notes = setup["notes"]
     if crossing or stray:
         notes.append(f"The constrained refit has {len(stray)} path feature set(s) outside every group; "
                      f"pairs crossing groups: {', '.join(f'({a}, {b})' for a, b in crossing) or 'none'}.")
+    summary: dict[str, Any] = _paired_summary(table)
     summary.update({
-        "library": library, "objective": objective, "task": task, "num_boost_round": rounds,
-        "params": {k: v for k, v in run_params.items()}, "groups": [[columns[j] for j in g] for g in index_groups],
-        "n_folds": folds, "n_rows": int(matrix.shape[0]), "stray_paths": len(stray), "notes": notes,
+        "library": setup["library"], "objective": setup["objective"], "task": setup["task"],
+        "num_boost_round": setup["rounds"], "params": dict(setup["params"]),
+        "groups": [[columns[j] for j in g] for g in index_groups], "n_folds": folds, "n_rows": int(matrix.shape[0]),
+        "stray_paths": len(stray), "notes": notes,
     })
     return ValidationResult(folds=table, summary=summary, cross_group_pairs=crossing, stray_paths=stray)

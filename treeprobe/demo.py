@@ -66,9 +66,16 @@ from typing import Any, TextIO
 
 import numpy as np
 import pandas as pd
+from scipy.stats import spearmanr
 
-from .errors import MissingLibraryError, TreeprobeError
+from .checks import check_bool, check_int, check_seed
+from .constraints import interaction_graph, suggest_constraints, validate_constraints, write_graphml
+from .cooccurrence import structure
+from .errors import MissingLibraryError, ParameterError, TreeprobeError
+from .io import load_model
+from .measure import h_statistic
 from .output import atomic_write, dumps_json, format_table
+from .verdicts import VERDICTS, triage
 
 __all__ = ["DemoResult", "demo_data", "run_demo", "TARGET", "FEATURES", "PAIR_H2_CLOSED_FORM", "TRIPLE_H2_CLOSED_FORM"]
 
@@ -125,11 +132,16 @@ class DemoResult:
     seconds : float
         Wall time of the whole demo.
     summary : str
-        The printed summary.
+        The short summary, the only text ``quiet`` runs print (from the
+        command line): items recovered, the verdict tally, the groups, the
+        validation, the files and the time.
     lightgbm_recovered : dict of str to bool or None
         The same check on the LightGBM model; None when lightgbm is missing.
     timings : dict of str to float
         Seconds per stage.
+    details : str
+        The full account printed before the summary when not quiet: the
+        ground truth, the pairs table and H² against its closed form.
     """
 
     out_dir: Path
@@ -140,6 +152,7 @@ class DemoResult:
     summary: str
     lightgbm_recovered: dict | None = None
     timings: dict = field(default_factory=dict)
+    details: str = ""
 
 
 def _scaled(values: np.ndarray, low: float, high: float) -> np.ndarray:
@@ -196,12 +209,8 @@ def demo_data(n_rows: int = _ROWS, random_state: int = 0) -> tuple[pd.DataFrame,
     >>> X.shape, truth["pairwise"]
     ((200, 13), ('outside_temp_c', 'door_openings'))
     """
-    if isinstance(n_rows, (bool, np.bool_)) or not isinstance(n_rows, (int, np.integer)) or n_rows < 100:
-        raise TreeprobeError(f"n_rows must be a whole number >= 100, got {n_rows!r}")
-    if isinstance(random_state, (bool, np.bool_)) or not isinstance(random_state, (int, np.integer)):
-        raise TreeprobeError(f"random_state must be an integer, got {random_state!r}")
-    rng = np.random.default_rng(int(random_state))
-    n = int(n_rows)
+    n = check_int("n_rows", n_rows, low=100)
+    rng = np.random.default_rng(check_seed("random_state", random_state, allow_none=False))
     pallets = rng.integers(20, 401, n).astype(np.float64)
     columns = {
         "outside_temp_c": rng.uniform(-5.0, 35.0, n),
@@ -286,11 +295,10 @@ def _validation_line(validation: Any) -> str:
 # --------------------------------------------------------------------- steps
 def _check_arguments(out_dir: Any, quiet: Any, stream: Any) -> Path:
     if not isinstance(out_dir, (str, os.PathLike)) or not str(out_dir):
-        raise TreeprobeError(f"out_dir must be a folder path, got {out_dir!r}")
-    if not isinstance(quiet, (bool, np.bool_)):
-        raise TreeprobeError(f"quiet must be True or False, got {quiet!r}")
+        raise ParameterError(f"out_dir must be a folder path, got {out_dir!r}")
+    check_bool("quiet", quiet)
     if stream is not None and not callable(getattr(stream, "write", None)):
-        raise TreeprobeError(f"stream must be a writable text stream, got {type(stream).__name__}")
+        raise ParameterError(f"stream must be a writable text stream, got {type(stream).__name__}")
     folder = Path(out_dir)
     if folder.exists() and not folder.is_dir():
         raise TreeprobeError(f"out_dir {folder} exists and is not a folder")
@@ -357,10 +365,13 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
         Folder for the outputs (created if missing; files of the same names
         are replaced, each one atomically).
     quiet : bool, default False
-        Print nothing and draw no progress bars; the summary is still returned.
+        Print nothing and draw no progress bars; the summary and the details
+        are still returned (the command line's ``--quiet`` prints the summary
+        only). Otherwise one line per finished step goes to standard error,
+        and the details, then the summary, to ``stream``.
     stream : text stream, optional
-        Where the summary goes; default standard output. Progress bars go to
-        standard error, and only when it is a terminal.
+        Where the details and summary go; default standard output. Progress
+        bars go to standard error, and only when it is a terminal.
 
     Returns
     -------
@@ -395,12 +406,6 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
     .. [1] J. H. Friedman and B. E. Popescu, "Predictive learning via rule
        ensembles", Annals of Applied Statistics 2(3), 916-954, 2008.
     """
-    from .constraints import interaction_graph, suggest_constraints, validate_constraints, write_graphml
-    from .cooccurrence import structure
-    from .io import load_model
-    from .measure import h_statistic
-    from .verdicts import triage
-
     folder = _check_arguments(out_dir, quiet, stream)
     xgboost = _import_xgboost()
     _make_folder(folder)
@@ -409,16 +414,20 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
     timings: dict[str, float] = {}
     files: dict[str, Path] = {}
     notes: list[str] = []
+    clock = started
 
-    def lap(stage: str, since: float) -> float:
+    def step(stage: str, message: str) -> None:
+        # The step-by-step account goes to standard error, beside the progress bars; quiet drops both.
+        nonlocal clock
         now = time.perf_counter()
-        timings[stage] = now - since
-        return now
+        timings[stage] = now - clock
+        clock = now
+        if not quiet:
+            print(f"demo: {message} ({timings[stage]:.1f} s)", file=sys.stderr, flush=True)
 
-    clock = time.perf_counter()
     X, y, truth = demo_data()
     files["data.csv"] = atomic_write(folder / "data.csv", lambda handle: X.assign(**{TARGET: y}).to_csv(handle, index=False))
-    clock = lap("data", clock)
+    step("data", f"simulated {len(X):,} room-days, written to data.csv")
 
     files["model_xgboost.json"] = _train_xgboost(xgboost, X, y, folder / "model_xgboost.json")
     lightgbm_path = _train_lightgbm(X, y, folder / "model_lightgbm.txt")
@@ -426,24 +435,24 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
         notes.append("lightgbm is not installed: the LightGBM part was skipped (pip install 'treeprobe[lightgbm]').")
     else:
         files["model_lightgbm.txt"] = lightgbm_path
-    clock = lap("training", clock)
+    step("training", "trained and saved " + ("the XGBoost and LightGBM models" if lightgbm_path else "the XGBoost model"))
 
     model = load_model(files["model_xgboost.json"])
     walked = structure(model, max_order=3)
-    clock = lap("structure", clock)
+    step("structure", f"walked the paths of {walked.n_trees_walked} XGBoost trees")
     truth_h = h_statistic(model, X, pairs=[_PAIRWISE, _ADDITIVE], triples=[_THREE_WAY], against_rest=False,
                           sample=_TRIAGE_SAMPLE, progress=progress)
-    clock = lap("H-statistics", clock)
+    step("H-statistics", "H-statistics of the ground-truth sets")
     # A saved XGBoost file keeps no training parameters; the refits need the ones used here.
     refit_params = {k: v for k, v in _XGBOOST_PARAMS.items() if k != "objective"}
     result = triage(model, X, y, triples=True, sample=_TRIAGE_SAMPLE, resamples=_RESAMPLES,
                     null_refits=_NULL_REFITS, params=refit_params, progress=progress)
     recovered = _recovered(result, walked)
-    clock = lap("triage", clock)
+    step("triage", f"triage with {_RESAMPLES} resamples and {_NULL_REFITS} noise-floor refits")
     suggestion = suggest_constraints(result)
     validation = validate_constraints(files["model_xgboost.json"], X, y, suggestion, folds=_FOLDS, params=refit_params,
-                                          progress=False if quiet else None)
-    clock = lap("constraints", clock)
+                                      progress=progress)
+    step("constraints", f"suggested constraint groups and checked them over {_FOLDS} folds")
 
     lightgbm_recovered = None
     lightgbm_result = None
@@ -452,7 +461,7 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
         lightgbm_result = triage(lightgbm_model, X, None, triples=True, sample=_TRIAGE_SAMPLE, resamples=0,
                                  progress=progress)
         lightgbm_recovered = _recovered(lightgbm_result, structure(lightgbm_model, max_order=3))
-        clock = lap("LightGBM", clock)
+        step("LightGBM", "triage of the LightGBM model")
 
     files["triage.json"] = _write_text(folder / "triage.json", dumps_json(result.to_dict()))
     files["pairs.csv"] = atomic_write(folder / "pairs.csv", lambda handle: result.pairs.to_csv(handle, index=False))
@@ -468,32 +477,24 @@ def run_demo(out_dir: str | os.PathLike = "treeprobe-demo", *, quiet: bool = Fal
                                            suggestion=suggestion, validation=validation,
                                            title="treeprobe demo: refrigerated warehouse energy use",
                                            progress=progress))
-    lap("writing", clock)
+    step("writing", f"wrote {len(files)} files in {folder}")
     seconds = time.perf_counter() - started
 
-    summary = _summary(folder, X, truth, walked, truth_h, result, recovered, suggestion, validation, lightgbm_result,
-                       lightgbm_recovered, files, notes, timings, seconds)
+    details = _details(X, truth, walked, truth_h, result, recovered)
+    summary = _summary(folder, X, result, recovered, suggestion, validation, lightgbm_result, lightgbm_recovered,
+                       files, notes, timings, seconds)
     if not quiet:
-        (stream or sys.stdout).write(summary)
+        (stream or sys.stdout).write(details + "\n" + summary)
     return DemoResult(out_dir=folder, files=files, triage=result, recovered=recovered, seconds=seconds,
-                      summary=summary, lightgbm_recovered=lightgbm_recovered, timings=timings)
+                      summary=summary, lightgbm_recovered=lightgbm_recovered, timings=timings, details=details)
 
 
-def _summary(out_dir: Path, X: pd.DataFrame, truth: dict, walked: Any, truth_h: Any, result: Any, recovered: dict, suggestion: Any,
-             validation: Any, lightgbm_result: Any, lightgbm_recovered: dict | None, files: dict, notes: list[str],
-             timings: dict, seconds: float) -> str:
-    from scipy.stats import spearmanr
-
+def _details(X: pd.DataFrame, truth: dict, walked: Any, truth_h: Any, result: Any, recovered: dict) -> str:
+    """The full account: ground truth, the XGBoost triage table, H² against the closed form, items recovered."""
     rho = float(spearmanr(X[_CORRELATED[0]], X[_CORRELATED[1]]).statistic)
     pair_h2 = {frozenset((a, b)): h2 for a, b, h2 in truth_h.pairs[["feature_a", "feature_b", "h2"]].itertuples(index=False)}
     triple_h2 = truth_h.triples["h2"].iloc[0] if len(truth_h.triples) else float("nan")
-    together = [group for group in suggestion.groups if len(group) > 1]
-    alone = [group[0] for group in suggestion.groups if len(group) == 1] + list(suggestion.unused)
-    found = sum(recovered.values())
     lines = [
-        f"treeprobe demo: daily energy use ({TARGET}) of refrigerated warehouse rooms, {len(X):,} simulated room-days.",
-        "Inputs: weather, goods traffic, cooling equipment and bookkeeping columns; the data are invented.",
-        "",
         f"Ground truth ({truth['formula']}):",
         *(f"  {_ITEM_TEXT[key]}" for key in _ITEM_TEXT),
         f"  (rank correlation of {_CORRELATED[0]} and {_CORRELATED[1]}: {rho:.3f})",
@@ -508,8 +509,25 @@ def _summary(out_dir: Path, X: pd.DataFrame, truth: dict, walked: Any, truth_h: 
         f"{pair_h2.get(frozenset(_PAIRWISE), float('nan')):.3f} vs {PAIR_H2_CLOSED_FORM:.3f} (eq. 44); the three-way set "
         f"{triple_h2:.3f} vs {TRIPLE_H2_CLOSED_FORM:.3f} (eq. 46).",
         "",
-        f"Recovered {found} of {len(recovered)} ground-truth items:",
+        "Ground-truth items:",
         *(f"  {'yes' if ok else 'no ':3}  {key}" for key, ok in recovered.items()),
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def _summary(out_dir: Path, X: pd.DataFrame, result: Any, recovered: dict, suggestion: Any, validation: Any,
+             lightgbm_result: Any, lightgbm_recovered: dict | None, files: dict, notes: list[str], timings: dict,
+             seconds: float) -> str:
+    """The short account every run prints: what was recovered, the tally, the groups, the check, files and time."""
+    counts = result.pairs["verdict"].value_counts()
+    together = [group for group in suggestion.groups if len(group) > 1]
+    alone = [group[0] for group in suggestion.groups if len(group) == 1] + list(suggestion.unused)
+    lines = [
+        f"treeprobe demo: daily energy use ({TARGET}) of refrigerated warehouse rooms, {len(X):,} simulated room-days "
+        "(invented data with a known answer).",
+        f"Recovered {sum(recovered.values())} of {len(recovered)} ground-truth items with the XGBoost model"
+        + ("." if all(recovered.values()) else f"; missed: {', '.join(k for k, ok in recovered.items() if not ok)}."),
+        "Pairs: " + ", ".join(f"{int(counts.get(v, 0))} {v}" for v in VERDICTS) + ".",
     ]
     if lightgbm_recovered is not None:
         agree = sum(lightgbm_recovered[key] == recovered[key] for key in recovered)
@@ -517,11 +535,9 @@ def _summary(out_dir: Path, X: pd.DataFrame, truth: dict, walked: Any, truth_h: 
                      f"refits) recovers {sum(lightgbm_recovered.values())} of {len(lightgbm_recovered)} items and "
                      f"agrees with XGBoost on {agree}.")
     lines += [
-        "",
         "Suggested groups: " + " | ".join(", ".join(group) for group in together) + " | each alone: " + ", ".join(alone),
         f"XGBoost parameter: interaction_constraints = {suggestion.xgboost_param!r}",
         _validation_line(validation),
-        "",
         *notes,
         f"Files in {out_dir}: " + ", ".join(files),
         "Timings: " + ", ".join(f"{stage} {value:.1f} s" for stage, value in timings.items()) + f"; total {seconds:.1f} s.",

@@ -20,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, MissingLibraryError, UnsupportedModelError
+from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 
 __all__ = [
@@ -31,6 +31,7 @@ __all__ = [
     "import_library",
     "task_of",
     "rounds_of",
+    "live_training_params",
     "training_setup",
     "design_matrix",
     "fit_model",
@@ -68,8 +69,8 @@ BINARY = "binary"
 MULTICLASS = "multiclass"
 
 
-
 def xgboost_constraint_text(groups: list[list[int]]) -> str:
+    """Groups of indices in the string form every XGBoost Python API accepts, e.g. ``"[[0, 1], [2]]"``."""
     return "[" + ", ".join("[" + ", ".join(str(j) for j in group) + "]" for group in groups) + "]"
 
 
@@ -87,8 +88,16 @@ def import_library(library: str) -> Any:
     return module
 
 
-def _xgboost_live_params(model: Any) -> dict:
-    """Training parameters a live XGBoost booster reports in its configuration (the saved JSON lacks them)."""
+def live_training_params(model: Any) -> dict:
+    """Training parameters a live XGBoost booster or wrapper reports in its configuration; ``{}`` for anything else.
+
+    A saved XGBoost file keeps only the objective and a few learner facts,
+    while a live booster knows its tree parameters (``save_config``). Entry
+    points call this on the object the user passed, next to their one
+    :func:`treeprobe.io.load_model` call.
+    """
+    if not type(model).__module__.startswith("xgboost"):
+        return {}
     booster = model.get_booster() if hasattr(model, "get_booster") else model
     try:
         config = json.loads(booster.save_config())["learner"]
@@ -100,6 +109,12 @@ def _xgboost_live_params(model: Any) -> dict:
     if method and method != "auto":
         params["tree_method"] = method
     return params
+
+
+def _stored(graph: ForestGraph, key: str, default: Any) -> Any:
+    # The one read of the loaders' free-form facts in this module; it becomes the typed
+    # graph.provenance.stored_params / graph.trees_per_round when the graph carries them.
+    return graph.metadata.get(key, default) or default
 
 
 def task_of(library: str, objective: str) -> str:
@@ -121,48 +136,54 @@ def task_of(library: str, objective: str) -> str:
 
 
 def rounds_of(ensemble: ForestGraph) -> int:
+    """Boosting rounds of a model: trees / (outputs with a tree each) / parallel trees per round."""
     per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
-    parallel = max(int(ensemble.metadata.get("num_parallel_tree", 1) or 1), 1)
+    parallel = max(int(_stored(ensemble, "num_parallel_tree", 1)), 1)
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 
 
-def training_setup(model_or_params: Any, library: str | None, params: dict | None,
-                    num_boost_round: int | None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
-    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes."""
-    notes: list[str] = []
-    if isinstance(model_or_params, dict):
-        if library not in LIBRARIES:
-            raise DataError(f"library must be one of {LIBRARIES} when model_or_params is a parameter dict, got {library!r}")
-        if num_boost_round is None:
-            raise DataError("num_boost_round is required when model_or_params is a parameter dict")
-        base = {str(k): v for k, v in model_or_params.items()}
-        return library, {**base, **(params or {})}, num_boost_round, None, notes
-    from .io import load_model
+def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,
+                   num_boost_round: int | None = None,
+                   live_params: dict | None = None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
+    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes.
 
-    ensemble = load_model(model_or_params)
+    ``source`` is the loaded model graph, or a dict of native training
+    parameters (then ``library`` and ``num_boost_round`` are required).
+    ``live_params`` are those of :func:`live_training_params`; ``params``
+    override everything read from the model.
+    """
+    notes: list[str] = []
+    if isinstance(source, dict):
+        if library not in LIBRARIES:
+            raise ParameterError(f"library must be one of {LIBRARIES} when model_or_params is a parameter dict, got {library!r}")
+        if num_boost_round is None:
+            raise ParameterError("num_boost_round is required when model_or_params is a parameter dict")
+        base = {str(k): v for k, v in source.items()}
+        return library, {**base, **(params or {})}, num_boost_round, None, notes
+    ensemble = source
     if ensemble.library not in LIBRARIES:
         raise UnsupportedModelError(
             f"{ensemble.source}: treeprobe retrains XGBoost and LightGBM models; this one is from "
             f"{ensemble.library}"
         )
     if library is not None and library != ensemble.library:
-        raise DataError(f"library={library!r} contradicts the model, which is from {ensemble.library}")
+        raise ParameterError(f"library={library!r} contradicts the model, which is from {ensemble.library}")
     if "categorical" in ensemble.feature_types:
         raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
     library = ensemble.library
     if library == "lightgbm":
-        stored = ensemble.metadata.get("parameters", {}) or {}
+        stored = _stored(ensemble, "parameters", {})
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
         base.update({key: base[key] not in ("0", "false") for key in _LIGHTGBM_BOOLEANS & base.keys()})
         if not stored:
             notes.append("The LightGBM model stores no training parameters; LightGBM's defaults were used.")
     else:
         base = {"objective": ensemble.objective}
-        if ensemble.metadata.get("num_class"):
-            base["num_class"] = int(ensemble.metadata["num_class"])
-        if int(ensemble.metadata.get("num_parallel_tree", 1) or 1) > 1:
-            base["num_parallel_tree"] = int(ensemble.metadata["num_parallel_tree"])
-        live = _xgboost_live_params(model_or_params) if type(model_or_params).__module__.startswith("xgboost") else {}
+        if _stored(ensemble, "num_class", 0):
+            base["num_class"] = int(_stored(ensemble, "num_class", 0))
+        if int(_stored(ensemble, "num_parallel_tree", 1)) > 1:
+            base["num_parallel_tree"] = int(_stored(ensemble, "num_parallel_tree", 1))
+        live = dict(live_params or {})
         base.update(live)
         if not live:
             depth = int(ensemble.depth[ensemble.is_leaf].max()) if ensemble.n_nodes else 1

@@ -12,13 +12,13 @@ data, and gives each pair one verdict:
     The pair shares paths, its H² is clearly above a small convention, its
     interaction size ``h`` clears the noise floor, and ``h`` is not negligible
     against the spread of the predictions.
-``co-split``
-    The pair shares paths but H or its size stays within the noise: the trees
-    split on both without a joint effect worth the name.
 ``dependent``
     The pair shares paths and the two features are strongly dependent in the
     data, so partial dependence extrapolates and H cannot be trusted; the
     column ``leans`` says which verdict H alone would give.
+``co-split``
+    The pair shares paths but H or its size stays within the noise: the trees
+    split on both without a joint effect worth the name.
 ``absent``
     The pair never shares a root-to-leaf path, so the model cannot make the two
     interact: H = 0 exactly.
@@ -66,20 +66,50 @@ References
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from itertools import combinations
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from joblib import Parallel, delayed
+from scipy.stats import spearmanr
+from sklearn.feature_selection import mutual_info_classif, mutual_info_regression
 
-from .errors import DataError
+from .checks import check_bool, check_float, check_int, check_n_jobs, check_progress, check_seed
+from .cooccurrence import structure
+from .errors import DataError, ParameterError
 from .graph import ForestGraph
-from .output import Progress, to_jsonable
+from .io import load_model
+from .measure import h_statistic
+from .output import to_jsonable
+from .progress import progress_bar
+from .refit import (
+    BINARY,
+    REGRESSION,
+    design_matrix,
+    fit_model,
+    import_library,
+    live_training_params,
+    predict_model,
+    task_of,
+    training_setup,
+)
 
-__all__ = ["TriageResult", "triage", "VERDICTS", "VERDICT_RULES", "LIMITS"]
+__all__ = ["TriageResult", "triage", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
 
-VERDICTS = ("interaction", "co-split", "dependent", "absent")
+# The one verdict order: tables, tallies, legends and rules follow it.
+VERDICTS = ("interaction", "dependent", "co-split", "absent")
+PAIR_COLUMNS = (
+    "feature_a", "feature_b", "paths", "trees", "cover_share", "nested_gain", "first_level", "first_tree",
+    "h2", "h", "h2_low", "h2_high", "h_low", "h_high", "effect", "null_h2", "null_h",
+    "rank_correlation", "information_correlation", "dependence", "verdict", "leans", "strength",
+)
+TRIPLE_COLUMNS = (
+    "feature_a", "feature_b", "feature_c", "paths", "trees", "cover_share", "nested_gain",
+    "h2", "h", "effect", "dependence", "verdict", "leans", "strength",
+)
+FEATURE_COLUMNS = ("feature", "used", "splits", "gain", "cover", "h2_rest", "h_rest")
 LIMITS = (
     "Verdicts rest on conventions (the thresholds in the verdict rules) and on H-statistics, which extrapolate when features are "
     "dependent. They describe this model, not the world: structure is not causation, and a model's interactions "
@@ -87,52 +117,82 @@ LIMITS = (
     "supports, and does not replace, the model-risk review that local rules require."
 )
 _SCHEMA = "treeprobe.triage/2"
+_STRUCTURE_DEFAULTS = (("paths", 0), ("trees", 0), ("cover_share", 0.0), ("nested_gain", 0.0), ("first_level", -1),
+                       ("first_tree", -1))
 
 
-def _rules(min_h2: float, min_effect: float, max_dependence: float, null_quantile: float, refits: bool) -> dict:
+# --------------------------------------------------------------------- the verdict rule
+def _rules(thresholds: dict, noise_floor: bool) -> dict[str, str]:
+    """One sentence per verdict (in ``VERDICTS`` order), written from the thresholds :func:`_verdict` applies."""
     floor = (
-        f"the lower end of its size h exceeds the {null_quantile:.0%} quantile of h over refits on targets "
-        "without interaction, "
-        if refits
+        f"the lower end of its size h exceeds the {thresholds['null_quantile']:.0%} quantile of h over refits on "
+        "targets without interaction, "
+        if noise_floor
         else "(no noise floor: no target or no refits) "
     )
     return {
         "interaction": (
-            f"Shares paths, the lower end of its H² interval is above {min_h2:g}, {floor}and h is at least "
-            f"{min_effect:.0%} of the spread (standard deviation) of the model's predictions."
+            f"Shares paths, the lower end of its H² interval is above {thresholds['min_h2']:g}, {floor}and h is at "
+            f"least {thresholds['min_effect']:.0%} of the spread (standard deviation) of the model's predictions."
+        ),
+        "dependent": (
+            "Shares paths, but the two features are strongly dependent in the data (|rank correlation| or information "
+            f"correlation at least {thresholds['max_dependence']:g}), so partial dependence extrapolates and H cannot "
+            "be trusted; 'leans' gives the verdict H alone would give."
         ),
         "co-split": (
             "Shares paths, but H² or its size h stays within the noise or is negligible: the trees split on both "
             "without a joint effect."
         ),
-        "dependent": (
-            f"Shares paths, but the two features are strongly dependent in the data (|rank correlation| or information "
-            f"correlation at least {max_dependence:g}), so partial dependence extrapolates and H cannot be trusted; "
-            "'leans' gives the verdict H alone would give."
-        ),
         "absent": "Never on a common root-to-leaf path: the model cannot make the two interact, and H = 0 exactly.",
     }
 
 
-VERDICT_RULES = _rules(0.05, 0.05, 0.7, 0.95, True)
+def _verdict(h2_low: np.ndarray, h_low: np.ndarray, null_h: np.ndarray, effect: np.ndarray, dependence: np.ndarray,
+             shares_path: np.ndarray, thresholds: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Verdict and ``leans`` of each row, from its numbers alone (the rule of :func:`triage`, Notes).
+
+    ``h2_low`` and ``h_low`` are the lower ends of the intervals (the point
+    values where there is none), ``null_h`` the noise floor (NaN: none),
+    ``dependence`` NaN where unknown.
+    """
+    floor = np.nan_to_num(np.asarray(null_h, dtype=float), nan=0.0)
+    clears = ((np.asarray(h2_low) > thresholds["min_h2"]) & (np.asarray(h_low) > floor)
+              & (np.asarray(effect) >= thresholds["min_effect"]))
+    shares_path = np.asarray(shares_path, dtype=bool)
+    leans = np.where(~shares_path, "absent", np.where(clears, "interaction", "co-split"))
+    dependent = shares_path & (np.nan_to_num(np.asarray(dependence, dtype=float)) >= thresholds["max_dependence"])
+    return np.where(dependent, "dependent", leans), leans
 
 
-@dataclass(frozen=True)
+def _same(left: Any, right: Any) -> bool:
+    if isinstance(left, pd.DataFrame) or isinstance(right, pd.DataFrame):
+        return isinstance(left, pd.DataFrame) and isinstance(right, pd.DataFrame) and left.equals(right)
+    if isinstance(left, ForestGraph) or isinstance(right, ForestGraph):
+        return left is right
+    return bool(left == right)
+
+
+@dataclass(frozen=True, eq=False)
 class TriageResult:
     """Verdicts on feature pairs (and triples) of one model on one data set.
+
+    Two results are equal when they hold the same model object and equal
+    tables, rules, thresholds and facts.
 
     Attributes
     ----------
     pairs : DataFrame
-        One row per pair of used features, sorted by verdict (interaction,
-        dependent, co-split, absent) then ``strength``. Columns:
+        One row per pair of used features, sorted by verdict (``VERDICTS``
+        order: interaction, dependent, co-split, absent) then ``strength``.
+        Columns (``PAIR_COLUMNS``):
         ``feature_a``, ``feature_b``; structure (:func:`treeprobe.structure`):
         ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``first_level``,
         ``first_tree``; H (:func:`treeprobe.h_statistic`): ``h2``, ``h``,
         ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (subsampling intervals
         over ``resamples`` half-size row subsamples, NaN without; see Notes), ``effect`` =
-        ``h / sd(prediction)``, ``null_h`` and ``null_h2`` (the refits'
-        ``null_quantile`` of ``h`` and of H²; NaN without ``y``; ``null_h`` is
+        ``h / sd(prediction)``, ``null_h2`` and ``null_h`` (the refits'
+        ``null_quantile`` of H² and of ``h``; NaN without ``y``; ``null_h`` is
         the noise floor); dependence: ``rank_correlation``
         (Spearman), ``information_correlation`` (``sqrt(1 - exp(-2 I))``),
         ``dependence`` = the larger of their absolute values; ``verdict``,
@@ -140,21 +200,26 @@ class TriageResult:
         ``verdict``), ``strength`` = ``effect`` (0 for ``absent``), the score
         to rank by.
     triples : DataFrame
-        The same for feature triples that share a path (when asked):
-        ``feature_a``, ``feature_b``, ``feature_c``, structure columns, ``h2``,
-        ``h``, ``effect``, ``dependence`` (largest of the three pairs'),
-        ``verdict``, ``leans``, ``strength``; no interval or null refits.
+        The same for feature triples that share a path; no rows unless asked.
+        Columns (``TRIPLE_COLUMNS``): ``feature_a``, ``feature_b``,
+        ``feature_c``, ``paths``, ``trees``, ``cover_share``, ``nested_gain``,
+        ``h2``, ``h``, ``effect``, ``dependence`` (largest of the three
+        pairs'), ``verdict``, ``leans``, ``strength``; no interval or null
+        refits, so H² and ``h`` stand for their lower ends and the floor is 0.
     features : DataFrame
-        ``feature``, ``used``, ``splits``, ``gain``, ``cover``, ``h2_rest``,
-        ``h_rest`` (H of the feature against all others, eq. 45 of [1]).
+        Columns (``FEATURE_COLUMNS``): ``feature``, ``used``, ``splits``,
+        ``gain``, ``cover``, ``h2_rest``, ``h_rest`` (H of the feature against
+        all others, eq. 45 of [1]).
     ensemble : ForestGraph
     rules : dict
-        The rule of each verdict in one sentence, with the thresholds used.
+        The rule of each verdict in one sentence, with the thresholds used,
+        keyed in ``VERDICTS`` order. The one source of rule texts.
     thresholds : dict
         ``min_h2``, ``min_effect``, ``max_dependence``, ``null_quantile``, ``confidence``.
     facts : dict
-        ``n_rows``, ``resamples``, ``null_refits``, ``prediction_sd``, ``output``,
-        ``has_target``, ``seconds``, ``refit_notes``.
+        ``n_rows``, ``n_rows_available``, ``resamples``, ``null_refits``,
+        ``has_target``, ``prediction_sd``, ``output``, ``scale``, ``seconds``,
+        ``refit_notes``.
     """
 
     pairs: pd.DataFrame
@@ -165,6 +230,13 @@ class TriageResult:
     thresholds: dict
     facts: dict
     limits: str = field(default=LIMITS)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, TriageResult):
+            return NotImplemented
+        return all(_same(getattr(self, f.name), getattr(other, f.name)) for f in fields(self))
+
+    __hash__ = None  # type: ignore[assignment]
 
     def to_dict(self) -> dict:
         """JSON-ready dictionary: schema, facts, thresholds, rules, limits and the three tables."""
@@ -183,22 +255,7 @@ class TriageResult:
         )
 
 
-# --------------------------------------------------------------------- checks
-def _check_fraction(value: Any, name: str, *, low: float = 0.0, high: float = 1.0, open_high: bool = False) -> float:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.integer, np.floating)):
-        raise DataError(f"{name} must be a number, got {value!r}")
-    v = float(value)
-    if not (low <= v < high if open_high else low <= v <= high):
-        raise DataError(f"{name} must lie in [{low}, {high}{')' if open_high else ']'}, got {value!r}")
-    return v
-
-
-def _check_count(value: Any, name: str, minimum: int = 0) -> int:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise DataError(f"{name} must be a whole number >= {minimum}, got {value!r}")
-    return int(value)
-
-
+# --------------------------------------------------------------------- data
 def _split_target(X: Any, y: Any) -> tuple[Any, Any]:
     if isinstance(y, str):
         if not isinstance(X, pd.DataFrame):
@@ -214,13 +271,29 @@ def _split_target(X: Any, y: Any) -> tuple[Any, Any]:
     return X, target
 
 
+def _take_rows(X: Any, index: np.ndarray) -> Any:
+    return X.iloc[index].reset_index(drop=True) if isinstance(X, pd.DataFrame) else np.asarray(X)[index]
+
+
+def _sample_rows(matrix: np.ndarray, sample: int | None, rng: np.random.Generator) -> np.ndarray:
+    """Sorted indices of the rows H and dependence are computed on (all rows when ``sample`` is None or larger)."""
+    n_rows = matrix.shape[0]
+    if n_rows < 2:
+        raise DataError(f"the data has {n_rows} row(s); triage needs at least 2")
+    if sample is None or sample >= n_rows:
+        return np.arange(n_rows)
+    return np.sort(rng.choice(n_rows, size=sample, replace=False))
+
+
+def _prediction_sd(graph: ForestGraph, matrix: np.ndarray, output: int) -> float:
+    raw = graph.predict_raw(matrix, checked=True)
+    return float(np.std(raw if raw.ndim == 1 else raw[:, output]))
+
+
 # ---------------------------------------------------------------- dependence
 def _dependence(matrix: np.ndarray, pairs: list[tuple[int, int]], categorical: np.ndarray,
                 random_state: int) -> tuple[np.ndarray, np.ndarray]:
     """Spearman rank correlation and information correlation of every pair, on rows where both are present."""
-    from scipy.stats import spearmanr
-    from sklearn.feature_selection import mutual_info_classif, mutual_info_regression
-
     rank = np.full(len(pairs), np.nan)
     info = np.full(len(pairs), np.nan)
     for i, (a, b) in enumerate(pairs):
@@ -241,15 +314,13 @@ def _dependence(matrix: np.ndarray, pairs: list[tuple[int, int]], categorical: n
 
 
 # ------------------------------------------------------------------ H pieces
-def _pair_h(model: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
+def _pair_h(graph: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
             output: int | None) -> np.ndarray:
     """H² and h of the given pairs on ``rows`` (background = evaluation rows), shape (2, n_pairs)."""
-    from .measure import h_statistic
-
     out = np.zeros((2, len(names)))
     if not names:
         return out
-    result = h_statistic(model, rows, pairs=names, against_rest=False, sample=None, output=output, progress=False)
+    result = h_statistic(graph, rows, pairs=names, against_rest=False, sample=None, output=output, progress=False)
     table = result.pairs.set_index(["feature_a", "feature_b"])
     for i, (a, b) in enumerate(names):
         key = (a, b) if (a, b) in table.index else (b, a)
@@ -259,73 +330,194 @@ def _pair_h(model: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tup
     return out
 
 
-def _take_rows(X: Any, index: np.ndarray) -> Any:
-    return X.iloc[index].reset_index(drop=True) if isinstance(X, pd.DataFrame) else np.asarray(X)[index]
+def _subsample_intervals(graph: ForestGraph, rows: Any, point: np.ndarray, names: list[tuple[str, str]], *,
+                         resamples: int, confidence: float, rng: np.random.Generator, output: int | None,
+                         progress: bool | None) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper ends of the subsampling intervals of H² and h (each of shape (2, n_pairs); Notes of triage)."""
+    # Subsampling without replacement (half the rows) rather than the bootstrap: a
+    # bootstrap sample repeats rows, and since the rows are both the partial-dependence
+    # background and the evaluation points, repeated rows bias H (we saw bootstrap
+    # intervals lying wholly above the point value).
+    n_rows = len(rows)
+    half = max(2, n_rows // 2)
+    subs = np.empty((resamples, 2, len(names)))
+    with progress_bar(resamples, "resampling", enabled=progress) as bar:
+        for b in range(resamples):
+            pick = np.sort(rng.choice(n_rows, size=half, replace=False))
+            subs[b] = _pair_h(graph, _take_rows(rows, pick), names, output)
+            bar.update()
+    alpha = (1.0 - confidence) / 2.0
+    shrink = np.sqrt(half / n_rows)
+    spread = subs - point[None]
+    low = np.maximum(point - shrink * np.quantile(spread, 1.0 - alpha, axis=0), 0.0)
+    high = point - shrink * np.quantile(spread, alpha, axis=0)
+    return low, high
 
 
-def _null_h(ens: ForestGraph, source: Any, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *, refits: int,
-             params: dict | None, output: int | None, random_state: int, n_jobs: int,
-             progress: bool | None) -> tuple[np.ndarray, list[str]]:
+def _synthetic_target(task: str, target: np.ndarray, fitted: np.ndarray, seed: int) -> np.ndarray:
+    """A target without interaction: the additive fit plus permuted residuals, or labels drawn from its probabilities."""
+    draw = np.random.default_rng(seed)
+    if task == REGRESSION:
+        return fitted + draw.permutation(target - fitted)
+    if task == BINARY:
+        return (draw.random(target.size) < np.clip(fitted.ravel(), 0.0, 1.0)).astype(np.float64)
+    probability = fitted.reshape(target.size, -1)
+    cumulative = probability.cumsum(axis=1)
+    return (draw.random((target.size, 1)) > cumulative[:, :-1]).sum(axis=1).astype(np.float64)
+
+
+def _null_h(graph: ForestGraph, live_params: dict, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *,
+            refits: int, params: dict | None, output: int | None, random_state: int, n_jobs: int,
+            progress: bool | None) -> tuple[np.ndarray, list[str]]:
     """H² and h of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3).
 
     Returns an array of shape (refits, 2, n_pairs) and notes for the reader.
     """
-    from joblib import Parallel, delayed
-
-    from .io import load_model
-    from .refit import (
-        BINARY,
-        REGRESSION,
-        design_matrix,
-        fit_model,
-        import_library,
-        predict_model,
-        task_of,
-        training_setup,
-    )
-
-    # A live booster reports its full training configuration; the loaded graph keeps only what files store.
-    setup_from = source if not isinstance(source, (ForestGraph, str)) and not hasattr(source, "__fspath__") else ens
-    library, run_params, rounds, model_names, notes = training_setup(setup_from, None, params, None)
+    library, run_params, rounds, model_names, notes = training_setup(graph, params=params, live_params=live_params)
     matrix, target, columns = design_matrix(X, y, model_names)
     module = import_library(library)
-    objective = str(run_params.get("objective", ens.objective))
+    objective = str(run_params.get("objective", graph.objective))
     task = task_of(library, objective)
     additive_groups = [[j] for j in range(matrix.shape[1])]
     additive = fit_model(library, module, run_params, matrix, target, rounds, additive_groups, columns)
     fitted = np.asarray(predict_model(library, module, additive, matrix, columns, objective), dtype=np.float64)
-    rng = np.random.default_rng(random_state)
-    seeds = rng.integers(0, 2**31 - 1, size=refits)
-
-    def synthetic(seed: int) -> np.ndarray:
-        draw = np.random.default_rng(seed)
-        if task == REGRESSION:
-            return fitted + draw.permutation(target - fitted)
-        if task == BINARY:
-            return (draw.random(target.size) < np.clip(fitted.ravel(), 0.0, 1.0)).astype(np.float64)
-        probability = fitted.reshape(target.size, -1)
-        cumulative = probability.cumsum(axis=1)
-        return (draw.random((target.size, 1)) > cumulative[:, :-1]).sum(axis=1).astype(np.float64)
+    seeds = np.random.default_rng(random_state).integers(0, 2**31 - 1, size=refits)
 
     def one(seed: int) -> np.ndarray:
-        refit = load_model(fit_model(library, module, run_params, matrix, synthetic(seed), rounds, None, columns),
+        synthetic = _synthetic_target(task, target, fitted, seed)
+        refit = load_model(fit_model(library, module, run_params, matrix, synthetic, rounds, None, columns),
                            feature_names=columns)
         return _pair_h(refit, rows, names, output)
 
-    with Progress(refits, "null refits", enabled=progress) as bar:
+    with progress_bar(refits, "null refits", enabled=progress) as bar:
         if n_jobs == 1:
             values = []
             for seed in seeds:
                 values.append(one(int(seed)))
-                bar.advance()
+                bar.update()
         else:
             values = Parallel(n_jobs=n_jobs)(delayed(one)(int(seed)) for seed in seeds)
-            bar.advance(refits)
+            bar.update(refits)
     notes = list(notes) + [
         f"Noise floor from {refits} refits of the {library} model on synthetic targets without interaction "
         f"({'additive fit plus permuted residuals' if task == REGRESSION else 'labels drawn from the additive fit'})."
     ]
     return np.stack(values) if values else np.zeros((0, 2, len(names))), notes
+
+
+# ------------------------------------------------------------------ tables
+def _lookup(table: pd.DataFrame, keys: list[tuple], column: str, default: Any) -> list:
+    return [table[column].get(k, default) if k in table.index else default for k in keys]
+
+
+def _pair_frame(walked: Any, hres: Any, used_names: list[str], include_absent: bool) -> pd.DataFrame:
+    """Structure and H columns of every pair: all used-feature pairs, or only those sharing a path."""
+    shared = walked.pairs.set_index(["feature_a", "feature_b"])
+    keys = list(combinations(used_names, 2)) if include_absent else [tuple(k) for k in shared.index]
+    frame = pd.DataFrame(keys, columns=["feature_a", "feature_b"])
+    for column, default in _STRUCTURE_DEFAULTS:
+        frame[column] = _lookup(shared, keys, column, default)
+    h = hres.pairs.set_index(["feature_a", "feature_b"])
+    frame["h2"] = np.asarray(_lookup(h, keys, "h2", 0.0), dtype=float)
+    frame["h"] = np.asarray(_lookup(h, keys, "h", 0.0), dtype=float)
+    return frame
+
+
+def _triple_frame(walked: Any, hres: Any, pairs: pd.DataFrame, scale: float, thresholds: dict) -> pd.DataFrame:
+    """Verdicts on triples sharing a path, by the pair rule with H² and h as their own lower ends and no floor."""
+    members = ["feature_a", "feature_b", "feature_c"]
+    frame = walked.triples[members + ["paths", "trees", "cover_share", "nested_gain"]].copy()
+    h = hres.triples.set_index(members) if len(hres.triples) else pd.DataFrame(columns=["h2", "h"])
+    keys = [tuple(r) for r in frame[members].itertuples(index=False, name=None)]
+    frame["h2"] = np.asarray(_lookup(h, keys, "h2", 0.0), dtype=float)
+    frame["h"] = np.asarray(_lookup(h, keys, "h", 0.0), dtype=float)
+    frame["effect"] = frame["h"] / scale
+    dep = {frozenset((a, b)): d for a, b, d in pairs[["feature_a", "feature_b", "dependence"]].itertuples(index=False)}
+    frame["dependence"] = [max(np.nan_to_num(dep.get(frozenset(p), 0.0)) for p in combinations(k, 2)) for k in keys]
+    frame["verdict"], frame["leans"] = _verdict(frame["h2"], frame["h"], np.full(len(frame), np.nan), frame["effect"],
+                                                frame["dependence"], np.ones(len(frame), dtype=bool), thresholds)
+    frame["strength"] = frame["effect"]
+    return frame.sort_values("strength", ascending=False, kind="stable").reset_index(drop=True)[list(TRIPLE_COLUMNS)]
+
+
+def _feature_frame(walked: Any, hres: Any, names: tuple[str, ...], used: np.ndarray) -> pd.DataFrame:
+    rest = hres.against_rest.set_index("feature") if len(hres.against_rest) else pd.DataFrame(columns=["h2", "h"])
+    features = walked.features[["feature", "splits", "gain", "cover"]].copy()
+    features.insert(1, "used", used)
+    features["h2_rest"] = np.asarray(_lookup(rest, list(names), "h2", np.nan), dtype=float)
+    features["h_rest"] = np.asarray(_lookup(rest, list(names), "h", np.nan), dtype=float)
+    return features[list(FEATURE_COLUMNS)]
+
+
+def _with_verdicts(frame: pd.DataFrame, thresholds: dict) -> pd.DataFrame:
+    """Add ``verdict``, ``leans`` and ``strength``, and sort by verdict (``VERDICTS`` order) then strength."""
+    sharing = frame["paths"].to_numpy() > 0
+    h2_low = np.where(np.isnan(frame["h2_low"]), frame["h2"], frame["h2_low"])
+    h_low = np.where(np.isnan(frame["h_low"]), frame["h"], frame["h_low"])
+    frame["verdict"], frame["leans"] = _verdict(h2_low, h_low, frame["null_h"], frame["effect"], frame["dependence"],
+                                                sharing, thresholds)
+    frame["strength"] = np.where(sharing, frame["effect"], 0.0)
+    rank = frame["verdict"].map({v: i for i, v in enumerate(VERDICTS)})
+    return (frame.assign(_rank=rank)
+            .sort_values(["_rank", "strength", "paths"], ascending=[True, False, False], kind="stable")
+            .drop(columns="_rank").reset_index(drop=True)[list(PAIR_COLUMNS)])
+
+
+def _sharing(frame: pd.DataFrame) -> tuple[np.ndarray, list[tuple[str, str]]]:
+    sharing = frame["paths"].to_numpy() > 0
+    return sharing, [tuple(k) for k in frame.loc[sharing, ["feature_a", "feature_b"]].to_numpy()]
+
+
+def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resamples: int, confidence: float,
+                    rng: np.random.Generator, output: int | None, progress: bool | None) -> pd.DataFrame:
+    """Add ``h2_low``, ``h2_high``, ``h_low``, ``h_high`` for pairs sharing a path (NaN elsewhere or without resamples)."""
+    sharing, names = _sharing(frame)
+    low, high = np.full((2, len(frame)), np.nan), np.full((2, len(frame)), np.nan)
+    if resamples and names:
+        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
+        low[:, sharing], high[:, sharing] = _subsample_intervals(graph, rows, point, names, resamples=resamples,
+                                                                 confidence=confidence, rng=rng, output=output,
+                                                                 progress=progress)
+    frame["h2_low"], frame["h2_high"], frame["h_low"], frame["h_high"] = low[0], high[0], low[1], high[1]
+    return frame
+
+
+def _with_noise_floor(frame: pd.DataFrame, graph: ForestGraph, live_params: dict, X: Any, target: np.ndarray | None,
+                      rows: Any, *, refits: int, quantile: float, params: dict | None, output: int | None,
+                      random_state: int, n_jobs: int, progress: bool | None) -> tuple[pd.DataFrame, list[str]]:
+    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits) and the refit notes."""
+    sharing, names = _sharing(frame)
+    null = np.full((2, len(frame)), np.nan)
+    notes: list[str] = []
+    if target is not None and refits and names:
+        values, notes = _null_h(graph, live_params, X, target, rows, names, refits=refits, params=params,
+                                output=output, random_state=random_state, n_jobs=n_jobs, progress=progress)
+        null[:, sharing] = np.quantile(values, quantile, axis=0)
+    frame["null_h2"], frame["null_h"] = null[0], null[1]
+    return frame, notes
+
+
+def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray, random_state: int) -> pd.DataFrame:
+    """Add ``rank_correlation``, ``information_correlation`` and ``dependence`` (the larger in absolute value)."""
+    index = {name: j for j, name in enumerate(graph.feature_names)}
+    categorical = np.array([kind == "categorical" for kind in graph.feature_types])
+    columns = [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"])]
+    rank, info = _dependence(matrix, columns, categorical, random_state)
+    frame["rank_correlation"], frame["information_correlation"] = rank, info
+    frame["dependence"] = np.fmax(np.abs(rank), info)
+    return frame
+
+
+def _checked_thresholds(*, min_h2: Any, min_effect: Any, max_dependence: Any, null_quantile: Any,
+                        confidence: Any) -> dict:
+    confidence = check_float("confidence", confidence, low=0.5, high=1.0)
+    if confidence == 1.0:
+        raise ParameterError("confidence must be a finite number in 0.5..1.0, below 1, got 1.0")
+    return {"min_h2": check_float("min_h2", min_h2, low=0.0, high=1.0),
+            "min_effect": check_float("min_effect", min_effect, low=0.0),
+            "max_dependence": check_float("max_dependence", max_dependence, low=0.0, high=1.0),
+            "null_quantile": check_float("null_quantile", null_quantile, low=0.5, high=1.0),
+            "confidence": confidence}
 
 
 # -------------------------------------------------------------------- public
@@ -350,7 +542,7 @@ def triage(
     n_jobs: int = 1,
     progress: bool | None = None,
 ) -> TriageResult:
-    """Give every feature pair a verdict: interaction, co-split, dependent or absent.
+    """Give every feature pair a verdict: interaction, dependent, co-split or absent.
 
     Parameters
     ----------
@@ -391,7 +583,7 @@ def triage(
         Training parameters for the refits, overriding those read from the model
         (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_setup`).
     output : int, optional
-        Output (class) of a multiclass model; default the first output.
+        Output (class) of a multiclass model, 0-based; default the first output.
     include_absent : bool, default True
         Keep rows for used-feature pairs that never share a path (verdict ``absent``).
     random_state : int, default 0
@@ -405,6 +597,13 @@ def triage(
     -------
     TriageResult
 
+    Raises
+    ------
+    ParameterError
+        An option outside what it accepts (the message names it).
+    DataError
+        Data that do not fit the model, or a target of the wrong length.
+
     Notes
     -----
     With ``L2`` and ``Lh`` the lower ends of the intervals of H² and ``h``
@@ -413,9 +612,13 @@ def triage(
     and ``D`` the dependence::
 
         absent       if paths == 0
-        dependent   if D >= max_dependence          (leans: what H alone says)
+        dependent    if D >= max_dependence          (leans: what H alone says)
         interaction  if L2 > min_h2 and Lh > q_h and effect >= min_effect
         co-split     otherwise
+
+    Triples follow the same rule with ``L2 = H²``, ``Lh = h`` and ``q_h = 0``
+    (no intervals or refits for triples). ``result.rules`` states the rule in
+    words with the thresholds used.
 
     The intervals follow subsampling ([2]_): with ``T`` the point value on
     ``n`` rows and ``T_b`` its value on subsample ``b`` of ``m = n / 2`` rows
@@ -431,127 +634,53 @@ def triage(
     .. [2] D. N. Politis, J. P. Romano and M. Wolf, "Subsampling", Springer,
        1999 (the interval of section 2.2, rate sqrt(n)).
     """
-    from .cooccurrence import structure
-    from .io import load_model
-    from .measure import h_statistic
-
     started = time.perf_counter()
-    ens = model if isinstance(model, ForestGraph) else load_model(model)
-    null_quantile = _check_fraction(null_quantile, "null_quantile", low=0.5)
-    confidence = _check_fraction(confidence, "confidence", low=0.5, open_high=True)
-    min_h2 = _check_fraction(min_h2, "min_h2")
-    min_effect = _check_fraction(min_effect, "min_effect", high=np.inf)
-    max_dependence = _check_fraction(max_dependence, "max_dependence")
-    resamples = _check_count(resamples, "resamples")
-    null_refits = _check_count(null_refits, "null_refits")
-    if sample is not None:
-        sample = _check_count(sample, "sample", 2)
-    if output is None:
-        output = 0
-    if not 0 <= output < ens.n_outputs:
-        raise DataError(f"output must lie in 0..{ens.n_outputs - 1}, got {output}")
-    X, target = _split_target(X, y)
-    matrix_all = ens.check_X(X)
-    n_all = matrix_all.shape[0]
-    if n_all < 2:
-        raise DataError(f"the data has {n_all} row(s); triage needs at least 2")
-    rng = np.random.default_rng(random_state)
-    chosen = np.sort(rng.choice(n_all, size=sample, replace=False)) if sample is not None and sample < n_all else np.arange(n_all)
-    rows = _take_rows(X, chosen)
-    matrix = matrix_all[chosen]
+    graph = load_model(model)
+    live_params = live_training_params(model)
+    thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
+                                     null_quantile=null_quantile, confidence=confidence)
+    triples = check_bool("triples", triples)
+    include_absent = check_bool("include_absent", include_absent)
+    sample = check_int("sample", sample, low=2, allow_none=True)
+    resamples = check_int("resamples", resamples, low=0)
+    null_refits = check_int("null_refits", null_refits, low=0)
+    output = check_int("output", 0 if output is None else output, low=0, high=graph.n_outputs - 1)
+    random_state = check_seed("random_state", random_state, allow_none=False)
+    n_jobs = check_n_jobs(n_jobs)
+    progress = check_progress(progress)
+    if params is not None and not isinstance(params, dict):
+        raise ParameterError(f"params must be a dict of training parameters or None, got {type(params).__name__}")
 
-    walked = structure(ens, max_order=3 if triples else 2, output=output if ens.n_outputs > 1 else None)
+    X, target = _split_target(X, y)
+    matrix_all = graph.check_X(X)
+    rng = np.random.default_rng(random_state)
+    chosen = _sample_rows(matrix_all, sample, rng)
+    rows, matrix = _take_rows(X, chosen), matrix_all[chosen]
+    h_output = output if graph.n_outputs > 1 else None
+    walked = structure(graph, max_order=3 if triples else 2, output=h_output)
     used = walked.features["splits"].to_numpy() > 0
-    names = list(ens.feature_names)
-    used_names = [n for n, u in zip(names, used) if u]
-    shared = walked.pairs.set_index(["feature_a", "feature_b"])
-    pair_list = list(combinations(used_names, 2)) if include_absent else [tuple(k) for k in shared.index]
-    h_out = output if ens.n_outputs > 1 else None
-    hres = h_statistic(ens, rows, pairs=[tuple(k) for k in shared.index] or None, triples=bool(triples) or None,
-                       against_rest=True, sample=None, output=h_out, progress=progress)
-    hp = hres.pairs.set_index(["feature_a", "feature_b"])
-    raw = ens.predict_raw(matrix, checked=True)
-    prediction_sd = float(np.std(raw if raw.ndim == 1 else raw[:, output]))
+    used_names = [name for name, flag in zip(graph.feature_names, used) if flag]
+    hres = h_statistic(graph, rows, pairs=[tuple(k) for k in walked.pairs[["feature_a", "feature_b"]].to_numpy()] or None,
+                       triples=triples or None, against_rest=True, sample=None, output=h_output, progress=progress)
+    prediction_sd = _prediction_sd(graph, matrix, output)
     scale = prediction_sd if prediction_sd > 0 else 1.0
 
-    frame = pd.DataFrame(pair_list, columns=["feature_a", "feature_b"])
-    for col, default in (("paths", 0), ("trees", 0), ("cover_share", 0.0), ("nested_gain", 0.0),
-                         ("first_level", -1), ("first_tree", -1)):
-        frame[col] = [shared[col].get(k, default) if k in shared.index else default for k in pair_list]
-    frame["h2"] = [float(hp["h2"].get(k, 0.0)) if k in hp.index else 0.0 for k in pair_list]
-    frame["h"] = [float(hp["h"].get(k, 0.0)) if k in hp.index else 0.0 for k in pair_list]
-    sharing = frame["paths"].to_numpy() > 0
-    share_names = [k for k, s in zip(pair_list, sharing) if s]
-
-    low = np.full((2, len(frame)), np.nan)
-    high = np.full((2, len(frame)), np.nan)
-    if resamples and share_names:
-        # Subsampling without replacement (half the rows) rather than the bootstrap: a
-        # bootstrap sample repeats rows, and since the rows are both the partial-dependence
-        # background and the evaluation points, repeated rows bias H (we saw bootstrap
-        # intervals lying wholly above the point value).
-        n_rows = len(chosen)
-        half = max(2, n_rows // 2)
-        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
-        subs = np.empty((resamples, 2, len(share_names)))
-        with Progress(resamples, "resampling", enabled=progress) as bar:
-            for b in range(resamples):
-                pick = np.sort(rng.choice(n_rows, size=half, replace=False))
-                subs[b] = _pair_h(ens, _take_rows(rows, pick), share_names, h_out)
-                bar.advance()
-        alpha = (1.0 - confidence) / 2.0
-        shrink = np.sqrt(half / n_rows)
-        spread = subs - point[None]
-        low[:, sharing] = np.maximum(point - shrink * np.quantile(spread, 1.0 - alpha, axis=0), 0.0)
-        high[:, sharing] = point - shrink * np.quantile(spread, alpha, axis=0)
-    frame["h2_low"], frame["h2_high"] = low[0], high[0]
-    frame["h_low"], frame["h_high"] = low[1], high[1]
+    frame = _pair_frame(walked, hres, used_names, include_absent)
+    frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
+                            output=h_output, progress=progress)
     frame["effect"] = frame["h"] / scale
+    frame, refit_notes = _with_noise_floor(frame, graph, live_params, X, target, rows, refits=null_refits,
+                                           quantile=thresholds["null_quantile"], params=params, output=h_output,
+                                           random_state=random_state, n_jobs=n_jobs, progress=progress)
+    frame = _with_dependence(frame, graph, matrix, random_state)
+    frame = _with_verdicts(frame, thresholds)
+    triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
+                    else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
 
-    null = np.full((2, len(frame)), np.nan)
-    refit_notes: list[str] = []
-    if target is not None and null_refits and share_names:
-        values, refit_notes = _null_h(ens, model, X, target, rows, share_names, refits=null_refits, params=params,
-                                      output=h_out, random_state=random_state, n_jobs=n_jobs, progress=progress)
-        null[:, sharing] = np.quantile(values, null_quantile, axis=0)
-    frame["null_h2"], frame["null_h"] = null[0], null[1]
-
-    index = {n: j for j, n in enumerate(names)}
-    categorical = np.array([t == "categorical" for t in ens.feature_types])
-    rank, info = _dependence(matrix, [(index[a], index[b]) for a, b in pair_list], categorical, random_state)
-    frame["rank_correlation"] = rank
-    frame["information_correlation"] = info
-    frame["dependence"] = np.fmax(np.abs(rank), info)
-
-    h2_evidence = np.where(np.isnan(low[0]), frame["h2"], low[0])
-    h_evidence = np.where(np.isnan(low[1]), frame["h"], low[1])
-    clears = ((h2_evidence > min_h2) & (h_evidence > np.nan_to_num(null[1], nan=0.0))
-              & (frame["effect"].to_numpy() >= min_effect))
-    leans = np.where(~sharing, "absent", np.where(clears, "interaction", "co-split"))
-    dependent = sharing & (np.nan_to_num(frame["dependence"].to_numpy()) >= max_dependence)
-    frame["verdict"] = np.where(dependent, "dependent", leans)
-    frame["leans"] = leans
-    frame["strength"] = np.where(sharing, frame["effect"], 0.0)
-    order = {"interaction": 0, "dependent": 1, "co-split": 2, "absent": 3}
-    frame = (frame.assign(_rank=frame["verdict"].map(order))
-             .sort_values(["_rank", "strength", "paths"], ascending=[True, False, False], kind="stable")
-             .drop(columns="_rank").reset_index(drop=True))
-
-    triple_frame = _triple_verdicts(walked, hres, frame, scale, min_h2, min_effect, max_dependence) if triples else \
-        pd.DataFrame(columns=["feature_a", "feature_b", "feature_c", "verdict", "strength"])
-
-    rest = hres.against_rest.set_index("feature") if len(hres.against_rest) else pd.DataFrame(columns=["h2", "h"])
-    features = walked.features[["feature", "splits", "gain", "cover"]].copy()
-    features.insert(1, "used", used)
-    features["h2_rest"] = [float(rest["h2"].get(n, np.nan)) if n in rest.index else np.nan for n in names]
-    features["h_rest"] = [float(rest["h"].get(n, np.nan)) if n in rest.index else np.nan for n in names]
-
-    thresholds = {"min_h2": min_h2, "min_effect": min_effect, "max_dependence": max_dependence,
-                  "null_quantile": null_quantile, "confidence": confidence}
     has_floor = target is not None and null_refits > 0
     facts = {
         "n_rows": int(len(chosen)),
-        "n_rows_available": int(n_all),
+        "n_rows_available": int(matrix_all.shape[0]),
         "resamples": resamples,
         "null_refits": null_refits if has_floor else 0,
         "has_target": target is not None,
@@ -561,33 +690,5 @@ def triage(
         "seconds": time.perf_counter() - started,
         "refit_notes": refit_notes,
     }
-    return TriageResult(
-        pairs=frame,
-        triples=triple_frame,
-        features=features,
-        ensemble=ens,
-        rules=_rules(min_h2, min_effect, max_dependence, null_quantile, has_floor),
-        thresholds=thresholds,
-        facts=facts,
-    )
-
-
-def _triple_verdicts(walked: Any, hres: Any, pairs: pd.DataFrame, scale: float, min_h2: float, min_effect: float,
-                     max_dependence: float) -> pd.DataFrame:
-    """Verdicts on triples sharing a path: H² against ``min_h2``, effect, and the largest pairwise dependence."""
-    members = ["feature_a", "feature_b", "feature_c"]
-    frame = walked.triples[members + ["paths", "trees", "cover_share", "nested_gain"]].copy()
-    ht = hres.triples.set_index(members) if len(hres.triples) else None
-    keys = [tuple(r) for r in frame[members].itertuples(index=False, name=None)]
-    frame["h2"] = [float(ht["h2"].get(k, 0.0)) if ht is not None and k in ht.index else 0.0 for k in keys]
-    frame["h"] = [float(ht["h"].get(k, 0.0)) if ht is not None and k in ht.index else 0.0 for k in keys]
-    frame["effect"] = frame["h"] / scale
-    dep = {frozenset((a, b)): d for a, b, d in pairs[["feature_a", "feature_b", "dependence"]].itertuples(index=False)}
-    frame["dependence"] = [max(np.nan_to_num(dep.get(frozenset(p), 0.0)) for p in combinations(k, 2)) for k in keys]
-    clears = (frame["h2"] > min_h2) & (frame["effect"] >= min_effect)
-    leans = np.where(clears, "interaction", "co-split")
-    frame["verdict"] = np.where(frame["dependence"] >= max_dependence, "dependent", leans)
-    frame["leans"] = leans
-    frame["strength"] = frame["effect"]
-    return frame.sort_values("strength", ascending=False, kind="stable").reset_index(drop=True)
-
+    return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
+                        ensemble=graph, rules=_rules(thresholds, has_floor), thresholds=thresholds, facts=facts)
