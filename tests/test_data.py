@@ -28,9 +28,8 @@ import pandas as pd
 import pytest
 
 from treeprobe import load_model
-from treeprobe.data import DataReport, load_data, prepare_data, read_table
+from treeprobe.data import DataReport, UnseenCategoryWarning, load_data, prepare_data, read_table
 from treeprobe.errors import DataError, DataWarning, ModelFormatError, UnsafeModelError
-from treeprobe.graph import UnseenCategoryWarning
 
 xgb = pytest.importorskip("xgboost")
 
@@ -97,7 +96,7 @@ def test_missing_columns_are_listed_with_close_matches(named_model):
 
 def test_generic_names_match_by_position_and_say_so(generic_model):
     ens, booster = generic_model
-    assert ens.metadata["generic_feature_names"]
+    assert ens.generic_feature_names
     clean = _trips(30, 3)
     with pytest.warns(DataWarning, match="by position"):
         prepared, report = prepare_data(ens, clean)
@@ -191,13 +190,14 @@ def test_repeated_column_names_are_an_error(named_model):
 
 def test_unseen_categories_warn_with_column_and_levels():
     ens = load_model(FIXTURES / "xgboost" / "3.2.0" / "categorical.json")
-    levels = ens.metadata["category_levels"]["depot"]
+    levels = ens.category_levels["depot"]
     frame = pd.read_csv(FIXTURES / "xgboost" / "3.2.0" / "categorical.inputs.csv").head(6)
     frame["depot"] = [levels[0], "moon_base", levels[1], "moon_base", "sea_port", None]
     with pytest.warns(UnseenCategoryWarning, match=r"'depot' holds 2 categories the model never saw \(moon_base, sea_port\)"):
         prepared, report = prepare_data(ens, frame)
     assert len(report.unseen_categories) == 1 and "moon_base" in report.unseen_categories[0]
-    assert prepared["depot"].tolist()[:1] == [levels[0]]
+    # The prepared frame is the model matrix: level 0 is code 0, an unseen level the unlisted code -1.
+    assert prepared["depot"].tolist()[:2] == [0.0, -1.0]
 
 
 def test_parameters_are_checked_at_the_door(named_model):

@@ -38,8 +38,8 @@ from sklearn.tree import (
 )
 
 from treeprobe import load_model
+from treeprobe.data import UnseenCategoryWarning
 from treeprobe.errors import UnsupportedModelError
-from treeprobe.graph import UnseenCategoryWarning
 from treeprobe.io.sklearn import from_sklearn, sklearn_feature_importances
 
 RTOL = 1e-5
@@ -84,7 +84,7 @@ def test_single_tree_regressor_matches_predict(model_class, nan_data):
     ens = from_sklearn(model, source="test")
     _check_raw(ens, X, model.predict(X))
     assert ens.link == "identity" and ens.split_dtype == "float32" and ens.threshold_rule == "<="
-    assert ens.metadata["generic_feature_names"] is True
+    assert ens.generic_feature_names is True
     assert ens.feature_names == tuple(f"f{j}" for j in range(5))
 
 
@@ -98,7 +98,7 @@ def test_single_tree_classifier_matches_predict_proba(model_class, n_classes, na
     ens = from_sklearn(model, source="test")
     assert ens.link == "proba" and ens.n_outputs == n_classes
     _check_raw(ens, X, model.predict_proba(X))
-    assert ens.metadata["classes"] == list(range(n_classes))
+    assert ens.provenance.class_labels == tuple(range(n_classes))
 
 
 @pytest.mark.parametrize(
@@ -372,7 +372,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     """Reference: HistGB predict on a DataFrame whose category column comes last and whose levels are strings.
 
     scikit-learn moves categorical columns first and numbers levels in sorted order;
-    the ensemble must map both back (levels kept in metadata["category_levels"]).
+    the ensemble must map both back (levels kept in category_levels).
     """
     rng = np.random.default_rng(11)
     n = 300
@@ -387,7 +387,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     y = bump * frame["fuel_price"] + frame["shift_length"]
     model = HistGradientBoostingRegressor(max_iter=10, max_leaf_nodes=6, random_state=0).fit(frame, y)
     ens = from_sklearn(model, source="test")
-    levels = ens.metadata["category_levels"]["depot"]
+    levels = list(ens.category_levels["depot"])
     assert levels == ["east", "north", "south", "west"]
     assert ens.feature_names == ("fuel_price", "shift_length", "depot")
     test = frame.copy()
@@ -401,7 +401,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     test.loc[10:19, "depot"] = "harbour"
     with pytest.warns(UnseenCategoryWarning, match="harbour"):
         _check_raw(ens, test, model.predict(test))
-    json.dumps(ens.metadata)
+    json.dumps({name: list(levels) for name, levels in ens.category_levels.items()})
 
 
 # --------------------------------------------------------------- structure
@@ -422,16 +422,16 @@ def test_to_networkx_matches_tree_arrays(regression_data):
         assert graph.edges[int(parent), int(tree.children_left[parent])]["branch"] == "left"
 
 
-def test_feature_names_and_metadata_from_dataframe(regression_data):
+def test_feature_names_and_provenance_from_dataframe(regression_data):
     """feature_names_in_ is used; params survive a JSON round trip for retraining."""
     X, y = regression_data
     frame = pd.DataFrame(X, columns=FEATURES)
     model = RandomForestRegressor(n_estimators=2, max_depth=3, random_state=0).fit(frame, y)
     ens = load_model(model)
     assert ens.feature_names == tuple(FEATURES)
-    assert ens.metadata["generic_feature_names"] is False
-    assert ens.metadata["estimator"] == "RandomForestRegressor"
-    params = json.loads(json.dumps(ens.metadata["params"]))
+    assert ens.generic_feature_names is False
+    assert ens.provenance.estimator == "RandomForestRegressor"
+    params = json.loads(json.dumps(dict(ens.provenance.stored_params)))
     assert RandomForestRegressor(**params).get_params()["max_depth"] == 3
     assert ens.library == "sklearn" and ens.objective == "squared_error"
     _check_raw(ens, frame[FEATURES[::-1]], model.predict(frame))

@@ -122,7 +122,7 @@ def task_of(library: str, objective: str) -> str:
 
 def rounds_of(ensemble: ForestGraph) -> int:
     per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
-    parallel = max(int(ensemble.metadata.get("num_parallel_tree", 1) or 1), 1)
+    parallel = ensemble.trees_per_round
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 
 
@@ -151,17 +151,17 @@ def training_setup(model_or_params: Any, library: str | None, params: dict | Non
         raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
     library = ensemble.library
     if library == "lightgbm":
-        stored = ensemble.metadata.get("parameters", {}) or {}
+        stored = ensemble.provenance.stored_params
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
         base.update({key: base[key] not in ("0", "false") for key in _LIGHTGBM_BOOLEANS & base.keys()})
         if not stored:
             notes.append("The LightGBM model stores no training parameters; LightGBM's defaults were used.")
     else:
         base = {"objective": ensemble.objective}
-        if ensemble.metadata.get("num_class"):
-            base["num_class"] = int(ensemble.metadata["num_class"])
-        if int(ensemble.metadata.get("num_parallel_tree", 1) or 1) > 1:
-            base["num_parallel_tree"] = int(ensemble.metadata["num_parallel_tree"])
+        if ensemble.provenance.stored_params.get("num_class"):
+            base["num_class"] = int(ensemble.provenance.stored_params["num_class"])
+        if ensemble.trees_per_round > 1:
+            base["num_parallel_tree"] = ensemble.trees_per_round
         live = _xgboost_live_params(model_or_params) if type(model_or_params).__module__.startswith("xgboost") else {}
         base.update(live)
         if not live:

@@ -299,7 +299,7 @@ def _features_of(X: Any, y: Any) -> Any:
 
 # ------------------------------------------------------------------ data for the figures
 def _category_labels(ens: ForestGraph, feature: int) -> list[str] | None:
-    levels = (ens.metadata.get("category_levels") or {}).get(ens.feature_names[feature])
+    levels = ens.category_levels.get(ens.feature_names[feature])
     return [str(level) for level in levels] if levels is not None else None
 
 
