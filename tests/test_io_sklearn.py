@@ -9,12 +9,16 @@ predictors. Models are small and seeded so the file runs in seconds.
 
 from __future__ import annotations
 
+import importlib
+import inspect
 import json
+import re
 
 import networkx as nx
 import numpy as np
 import pandas as pd
 import pytest
+import sklearn
 from sklearn.datasets import make_friedman1
 from sklearn.dummy import DummyClassifier
 from sklearn.ensemble import (
@@ -40,7 +44,8 @@ from sklearn.tree import (
 from treeprobe import load_model
 from treeprobe.data import UnseenCategoryWarning
 from treeprobe.errors import UnsupportedModelError
-from treeprobe.io.sklearn import from_sklearn, sklearn_feature_importances
+from treeprobe.io import sklearn as sklearn_io
+from treeprobe.io.sklearn import PRIVATE_ATTRIBUTES, from_sklearn, sklearn_feature_importances
 
 RTOL = 1e-5
 FEATURES = ["fuel_price", "shift_length", "route_km", "driver_age", "load_tonnes"]
@@ -481,3 +486,66 @@ def test_source_must_be_a_string(regression_data):
     X, y = regression_data
     with pytest.raises(TypeError, match="source"):
         from_sklearn(DecisionTreeRegressor(max_depth=1).fit(X, y), source=3)
+
+
+# ---------------------------------------------- scikit-learn internals, one table
+@pytest.fixture(scope="module")
+def private_owners(categorical_data):
+    """One fitted object per owner named in PRIVATE_ATTRIBUTES (categorical splits, so bitsets are real)."""
+    X, y, _ = categorical_data
+    hist = HistGradientBoostingRegressor(max_iter=3, max_leaf_nodes=4, categorical_features=[1], random_state=0).fit(X, y)
+    boosting = GradientBoostingRegressor(n_estimators=2, max_depth=2, random_state=0).fit(np.nan_to_num(X), y)
+    return {"GradientBoosting*": boosting, "HistGradientBoosting*": hist, "TreePredictor": hist._predictors[0][0]}
+
+
+@pytest.mark.parametrize("owner, attribute, meaning", PRIVATE_ATTRIBUTES, ids=[a for _, a, _ in PRIVATE_ATTRIBUTES])
+def test_each_private_scikit_learn_attribute_still_exists(owner, attribute, meaning, private_owners):
+    """Reference: the installed scikit-learn itself; a rename there must fail here, by name, before users see it."""
+    if owner.startswith("sklearn."):
+        module = importlib.import_module(owner)
+        assert hasattr(module, attribute), (
+            f"scikit-learn {sklearn.__version__} no longer has {owner}.{attribute} ({meaning}); "
+            "treeprobe.io.sklearn must be updated")
+        return
+    obj = private_owners[owner]
+    assert hasattr(obj, attribute), (
+        f"scikit-learn {sklearn.__version__}: {type(obj).__name__} no longer has {attribute!r} ({meaning}); "
+        "treeprobe.io.sklearn must be updated")
+
+
+def test_every_private_access_in_the_converter_is_listed():
+    """Each private name the module reads appears in PRIVATE_ATTRIBUTES, so the table is complete."""
+    source = inspect.getsource(sklearn_io)
+    used = set(re.findall(r"_private\([^,]+, \"(\w+)\"", source))
+    used |= set(re.findall(r"_private_module_attribute\(\"[\w.]+\", \"(\w+)\"\)", source))
+    used |= {name for name in ("ForestClassifier", "ForestRegressor") if f'"{name}"' in source}
+    listed = {attribute for _, attribute, _ in PRIVATE_ATTRIBUTES}
+    assert used == listed
+    # No private attribute is read directly, around the guards.
+    assert not re.search(r"(estimator|predictor)\._[a-z]", source)
+
+
+@pytest.mark.parametrize("attribute", ["_baseline_prediction", "_predictors", "_bin_mapper"])
+def test_a_changed_private_attribute_fails_with_its_name(attribute, categorical_data):
+    X, y, _ = categorical_data
+    model = HistGradientBoostingRegressor(max_iter=3, max_leaf_nodes=4, categorical_features=[1], random_state=0).fit(X, y)
+    delattr(model, attribute)
+    with pytest.raises(UnsupportedModelError, match=rf"no attribute '{attribute}'.*scikit-learn {sklearn.__version__}"):
+        from_sklearn(model, source="hgb")
+
+
+def test_a_changed_private_method_fails_with_its_name(monkeypatch, regression_data):
+    X, y = regression_data
+    model = GradientBoostingRegressor(n_estimators=2, max_depth=2, random_state=0).fit(X, y)
+    owner = next(cls for cls in type(model).__mro__ if "_raw_predict_init" in vars(cls))
+    monkeypatch.delattr(owner, "_raw_predict_init")
+    with pytest.raises(UnsupportedModelError, match="no attribute '_raw_predict_init'"):
+        from_sklearn(model, source="gb")
+
+
+def test_a_changed_private_module_fails_with_its_name(monkeypatch, regression_data):
+    X, y = regression_data
+    model = RandomForestRegressor(n_estimators=2, max_depth=2, random_state=0).fit(X, y)
+    monkeypatch.delattr(importlib.import_module("sklearn.ensemble._forest"), "ForestRegressor")
+    with pytest.raises(UnsupportedModelError, match=r"no sklearn\.ensemble\._forest\.ForestRegressor"):
+        from_sklearn(model, source="rf")
