@@ -95,6 +95,12 @@ def _sklearn_version() -> str:
     return str(sklearn.__version__)
 
 
+def _is_classifier(estimator: Any) -> bool:
+    from sklearn.base import is_classifier
+
+    return bool(is_classifier(estimator))
+
+
 def _private(obj: Any, attribute: str, source: str) -> Any:
     """``obj.attribute`` for one of the private parts listed in ``PRIVATE_ATTRIBUTES``, or a clear error."""
     if attribute not in _PRIVATE_NAMES:
@@ -241,10 +247,8 @@ def _single_output_classes(estimator: Any, source: str) -> int:
 
 # ------------------------------------------------------------ classic trees
 def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool) -> ForestGraph:
-    from sklearn.base import is_classifier
-
     names, generic = _feature_names(estimator)
-    if is_classifier(estimator):
+    if _is_classifier(estimator):
         n_classes = _single_output_classes(estimator, source)
         parts = [_classic_tree_nodes(t.tree_, value_mode="proba", n_classes=n_classes) for t in trees]
         link = "proba"
@@ -297,8 +301,6 @@ def _boosting_base_score(estimator: Any, source: str) -> np.ndarray:
 
 
 def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
-    from sklearn.base import is_classifier
-
     names, generic = _feature_names(estimator)
     stages = estimator.estimators_
     n_stages, n_per_stage = stages.shape
@@ -311,7 +313,7 @@ def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
     weight = np.full(n_stages * n_per_stage, float(estimator.learning_rate))
     loss = str(estimator.loss)
     margin_scale = 1.0
-    if not is_classifier(estimator):
+    if not _is_classifier(estimator):
         link = "identity"
     elif n_per_stage > 1:
         link = "softmax"
@@ -449,8 +451,6 @@ def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, c
 
 
 def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
-    from sklearn.base import is_classifier
-
     x_dtype = _private_module_attribute("sklearn.ensemble._hist_gradient_boosting.common", "X_DTYPE")
     names, generic = _feature_names(estimator)
     column_of = _hist_column_map(estimator, source)
@@ -468,7 +468,7 @@ def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
     n_per_iteration = int(estimator.n_trees_per_iteration_)
     nodes = _stack_trees([_hist_tree_nodes(p, column_of, known_codes, code_values, source) for p in predictors])
     loss = str(estimator.loss)
-    if not is_classifier(estimator):
+    if not _is_classifier(estimator):
         link = "log" if loss in _LOG_LINK_LOSSES else "identity"
     else:
         link = "softmax" if n_per_iteration > 1 else "logit"
