@@ -487,6 +487,22 @@ class ForestGraph:
         ModelFormatError
             Naming the source, tree and node of the first problem found.
         """
+        self._validate_shapes()
+        self._validate_facts()
+        self._validate_links()
+        self._validate_values()
+        # With one parent per non-root node and none at the root, every tree is a
+        # tree exactly when all its nodes are reachable; _depths proves that.
+        object.__setattr__(self, "_depth_cache", _frozen(self._depths()))
+
+    def _where(self, mask: np.ndarray) -> str:
+        """Tree and local node of the first node in ``mask``, for messages."""
+        i = int(np.flatnonzero(mask)[0])
+        t = int(self.tree[i])
+        return f"tree {t}, node {i - int(self.tree_offsets[t])}"
+
+    def _validate_shapes(self) -> None:
+        """Array shapes, the link and comparison rules, and the per-tree and per-output arrays."""
         src = self.source
         n = self.n_nodes
         for name in ("tree", "feature", "threshold", "left", "right", "missing_left", "zero_as_missing",
@@ -499,7 +515,6 @@ class ForestGraph:
             raise ModelFormatError(f"{src}: threshold_rule must be '<' or '<=', got {self.threshold_rule!r}")
         if self.split_dtype not in ("float32", "float64"):
             raise ModelFormatError(f"{src}: split_dtype must be 'float32' or 'float64', got {self.split_dtype!r}")
-        self._validate_facts()
         if len(self.feature_types) != self.n_features:
             raise ModelFormatError(f"{src}: {len(self.feature_types)} feature types for {self.n_features} features")
         if self.output_of_tree.shape != (self.n_trees,) or self.tree_weight.shape != (self.n_trees,):
@@ -512,11 +527,9 @@ class ForestGraph:
         ):
             raise ModelFormatError(f"{src}: leaf values have {self.value.shape[1]} columns for {self.n_outputs} outputs")
 
-        def where(mask: np.ndarray) -> str:
-            i = int(np.flatnonzero(mask)[0])
-            t = int(self.tree[i])
-            return f"tree {t}, node {i - int(self.tree_offsets[t])}"
-
+    def _validate_links(self) -> None:
+        """Split features in range, children in range and in the same tree, one parent per non-root node."""
+        src, n, where = self.source, self.n_nodes, self._where
         is_leaf = self.feature < 0
         if np.any(self.feature < -1) or np.any(self.feature >= self.n_features):
             bad = (self.feature < -1) | (self.feature >= self.n_features)
@@ -547,7 +560,12 @@ class ForestGraph:
             raise ModelFormatError(
                 f"{src}: {where(bad)} has {parents[bad][0]} parents (expected 1: unreachable, shared or cyclic children)"
             )
-        num_split = inner & ~self.is_categorical
+
+    def _validate_values(self) -> None:
+        """Thresholds, finite leaf values and the category lists."""
+        src, n, where = self.source, self.n_nodes, self._where
+        is_leaf = self.feature < 0
+        num_split = ~is_leaf & ~self.is_categorical
         if np.any(num_split & ~np.isfinite(self.threshold) & ~np.isinf(self.threshold)):
             raise ModelFormatError(f"{src}: {where(num_split & np.isnan(self.threshold))} has a NaN threshold")
         if np.any(is_leaf & ~np.isfinite(self.value).all(axis=1)):
@@ -558,9 +576,6 @@ class ForestGraph:
         if self.cat_offsets.shape != (n + 1,) or self.cat_offsets[0] != 0 or self.cat_offsets[-1] != self.cat_values.size \
                 or np.any(np.diff(self.cat_offsets) < 0):
             raise ModelFormatError(f"{src}: category offsets are inconsistent with {self.cat_values.size} listed categories")
-        # With one parent per non-root node and none at the root, every tree is a
-        # tree exactly when all its nodes are reachable; _depths proves that.
-        object.__setattr__(self, "_depth_cache", _frozen(self._depths()))
 
     def _validate_facts(self) -> None:
         """Check the ensemble-wide typed facts (routing rules, link scale, levels, round size)."""
