@@ -28,9 +28,9 @@ import pandas as pd
 import pytest
 
 from treeprobe import load_model
-from treeprobe.data import DataReport, load_data, prepare_data, read_table
+from treeprobe.cli import main
+from treeprobe.data import DataReport, UnseenCategoryWarning, load_data, model_matrix, prepare_data, read_table
 from treeprobe.errors import DataError, DataWarning, ModelFormatError, UnsafeModelError
-from treeprobe.graph import UnseenCategoryWarning
 
 xgb = pytest.importorskip("xgboost")
 
@@ -97,7 +97,7 @@ def test_missing_columns_are_listed_with_close_matches(named_model):
 
 def test_generic_names_match_by_position_and_say_so(generic_model):
     ens, booster = generic_model
-    assert ens.metadata["generic_feature_names"]
+    assert ens.generic_feature_names
     clean = _trips(30, 3)
     with pytest.warns(DataWarning, match="by position"):
         prepared, report = prepare_data(ens, clean)
@@ -191,13 +191,14 @@ def test_repeated_column_names_are_an_error(named_model):
 
 def test_unseen_categories_warn_with_column_and_levels():
     ens = load_model(FIXTURES / "xgboost" / "3.2.0" / "categorical.json")
-    levels = ens.metadata["category_levels"]["depot"]
+    levels = ens.category_levels["depot"]
     frame = pd.read_csv(FIXTURES / "xgboost" / "3.2.0" / "categorical.inputs.csv").head(6)
     frame["depot"] = [levels[0], "moon_base", levels[1], "moon_base", "sea_port", None]
     with pytest.warns(UnseenCategoryWarning, match=r"'depot' holds 2 categories the model never saw \(moon_base, sea_port\)"):
         prepared, report = prepare_data(ens, frame)
     assert len(report.unseen_categories) == 1 and "moon_base" in report.unseen_categories[0]
-    assert prepared["depot"].tolist()[:1] == [levels[0]]
+    # The prepared frame is the model matrix: level 0 is code 0, an unseen level the unlisted code -1.
+    assert prepared["depot"].tolist()[:2] == [0.0, -1.0]
 
 
 def test_parameters_are_checked_at_the_door(named_model):
@@ -364,3 +365,72 @@ def test_warnings_do_not_leak_from_clean_data(named_model):
         warnings.simplefilter("error")
         prepared, report = prepare_data(ens, _trips(5, 0))
     assert report.coerced == () and report.extra_columns == () and len(report.lines()) == 1
+
+
+# ------------------------------------------------- one coercion path, folders, single warning
+def test_model_matrix_and_prepare_data_share_one_path(named_model):
+    ens, _ = named_model
+    frame = _trips(6, 3)
+    frame["shift_length"] = frame["shift_length"].astype(str)
+    frame["crew_size"] = frame["crew_size"].astype(object)
+    frame.loc[2, "crew_size"] = True
+    shuffled = frame[["crew_size", "shift_length", "fuel_price"]]
+    prepared, _ = prepare_data(ens, shuffled)
+    matrix = model_matrix(ens, shuffled)
+    np.testing.assert_array_equal(prepared.to_numpy(), matrix)
+    np.testing.assert_array_equal(ens.check_X(shuffled), matrix)
+    # Reference: pandas' own numeric parsing of the same text, and True read as 1.
+    np.testing.assert_array_equal(matrix[:, 1], pd.to_numeric(frame["shift_length"]).to_numpy())
+    assert matrix[2, 2] == 1.0
+
+
+def test_strict_model_matrix_refuses_empty_columns(named_model):
+    ens, _ = named_model
+    frame = _trips(4, 0)
+    frame["crew_size"] = np.nan
+    assert np.isnan(model_matrix(ens, frame)[:, 2]).all()
+    with pytest.raises(DataError, match="column 'crew_size' is entirely missing"):
+        model_matrix(ens, frame, strict=True)
+    with pytest.raises(DataError, match=r"data column 2 \('crew_size'\) is entirely missing"):
+        model_matrix(ens, frame.to_numpy(), strict=True)
+    with pytest.raises(DataError, match="no rows"):
+        model_matrix(ens, frame.iloc[:0], strict=True)
+
+
+def test_a_folder_given_as_data_is_named_as_a_folder(named_model, tmp_path):
+    ens, _ = named_model
+    for call in (lambda: read_table(tmp_path), lambda: load_data(ens, tmp_path)):
+        with pytest.raises(DataError, match="is a folder"):
+            call()
+    with pytest.raises(DataError, match="data file not found"):
+        read_table(tmp_path / "absent.csv")
+
+
+def test_command_line_names_a_folder_given_as_data(tmp_path, capsys):
+    model = FIXTURES / "xgboost" / "3.2.0" / "categorical.json"
+    assert main(["measure", str(model), "--data", str(tmp_path), "--sample", "20", "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert "is a folder" in err and "not found" not in err
+
+
+def test_unseen_category_warning_is_printed_once_by_the_command_line(tmp_path):
+    """The data are coded once (load_data); the stage receives the model matrix and must not warn again.
+
+    Run as a separate process, so that Python's own warning display (not pytest's capture) is what is counted.
+    """
+    model = FIXTURES / "xgboost" / "3.2.0" / "categorical.json"
+    levels = load_model(model).category_levels["depot"]
+    frame = pd.read_csv(FIXTURES / "xgboost" / "3.2.0" / "categorical.inputs.csv").head(30)
+    frame["depot"] = [levels[i % len(levels)] for i in range(29)] + ["moon_base"]
+    path = tmp_path / "shifts.csv"
+    frame.to_csv(path, index=False)
+    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", "measure", str(model), "--data", str(path),
+                           "--sample", "30", "--quiet"], capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stderr.count("never saw (moon_base)") == 1, proc.stderr
+
+
+def test_data_reports_compare_without_raising():
+    first = DataReport(n_rows=3, matched_by="name", coerced=("column 'a': booleans read as 0/1",))
+    same = DataReport(n_rows=3, matched_by="name", coerced=("column 'a': booleans read as 0/1",))
+    assert first == same and first != DataReport(n_rows=4, matched_by="name") and first != "a report"

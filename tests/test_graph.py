@@ -5,12 +5,15 @@ the float32 comparison rule, scikit-learn's own ``DecisionTreeRegressor``
 (which compares ``float32(x) <= threshold``).
 """
 
+import dataclasses
+
 import networkx as nx
 import numpy as np
 import pandas as pd
 import pytest
 
 from treeprobe import DataError, ForestGraph, ModelFormatError
+from treeprobe.graph import Provenance
 
 
 def _two_trees(**overrides):
@@ -173,3 +176,96 @@ def test_feature_totals_summary_and_networkx():
     assert nx.is_arborescence(g)
     assert g.nodes[0]["feature"] == "speed" and g.nodes[3]["value"] == (2.0,)
     assert g.edges[0, 1]["branch"] == "left"
+
+
+# ------------------------------------------------- read-only arrays and typed facts
+_ARRAY_FIELDS = [f.name for f in dataclasses.fields(ForestGraph) if f.type in ("np.ndarray", np.ndarray)]
+
+
+def test_every_array_is_read_only_after_validation():
+    ens = _two_trees()
+    assert len(_ARRAY_FIELDS) == 19
+    for name in _ARRAY_FIELDS:
+        arr = getattr(ens, name)
+        with pytest.raises(ValueError, match="read-only"):
+            arr[..., 0] = arr[..., 0]
+    with pytest.raises(ValueError, match="read-only"):
+        ens.depth[0] = 7
+    for name in ("left", "feature", "value"):
+        with pytest.raises(ValueError, match="read-only"):
+            getattr(ens.select_trees([1]), name)[0] = 0
+
+
+def test_a_view_passed_in_is_copied_so_its_base_cannot_change_the_graph():
+    base = np.array([0.5, np.nan, 2.0, np.nan, np.nan, np.nan, np.nan, np.nan, 99.0])
+    ens = _two_trees(threshold=base[:8])
+    base[0] = 10.0
+    assert ens.threshold[0] == 0.5
+    # Hand count: speed 0.7 > 0.5 goes right, zone 1 <= 2 -> 2.0; zone 1 is listed -> 10.0.
+    assert ens.predict_raw(np.array([[0.7, 1.0]]))[0] == pytest.approx(0.5 + 2 + 10)
+
+
+def test_cached_depths_follow_replace_and_cannot_go_stale():
+    # Inner nodes 0 and 1; node 1's leaves 2 and 3 sit at depth 2.
+    ens = ForestGraph.from_arrays(
+        feature=[0, 0, -1, -1, -1], threshold=[1.0, 0.0, np.nan, np.nan, np.nan], left=[1, 2, -1, -1, -1],
+        right=[4, 3, -1, -1, -1], value=[0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 5])
+    assert ens.depth.tolist() == [0, 1, 2, 2, 1]
+    # Rewired: node 2 is now the inner node, its leaves 3 and 4 at depth 2; a stale cache would keep [0, 1, 2, 2, 1].
+    rewired = dataclasses.replace(ens, feature=np.array([0, -1, 0, -1, -1], np.int32),
+                                  threshold=np.array([1.0, np.nan, 0.0, np.nan, np.nan]),
+                                  left=np.array([1, -1, 3, -1, -1], np.int32), right=np.array([2, -1, 4, -1, -1], np.int32))
+    assert rewired.depth.tolist() == [0, 1, 1, 2, 2]
+    assert ens.depth.tolist() == [0, 1, 2, 2, 1]
+    assert rewired.select_trees([0]).depth.tolist() == [0, 1, 1, 2, 2]
+    # Hand count: x = 2 > 1 goes right to node 2, 2 > 0 goes right to leaf 4 (3.0).
+    assert rewired.predict_raw(np.array([[2.0]]))[0] == 3.0
+
+
+@pytest.mark.parametrize("change, message", [
+    (dict(left=np.array([1, -1, 3, -1, -1, 1, -1, -1], np.int32)), "another tree"),
+    (dict(link="probit"), "unknown link"),
+    (dict(unseen_category="ignore"), "unseen_category"),
+    (dict(negative_category="floor"), "negative_category"),
+    (dict(trees_per_round=0), "trees_per_round"),
+    (dict(link_scale=float("nan")), "link_scale"),
+    (dict(category_levels={"colour": ("red",)}), "colour"),
+])
+def test_replace_validates_again(change, message):
+    with pytest.raises(ModelFormatError, match=message):
+        dataclasses.replace(_two_trees(), **change)
+
+
+def test_negative_category_rule():
+    # Tree 1 lists zone categories {1, 3} (left, 10) against the rest (20); a category-0 split is added
+    # by listing {0}: "truncate" (LightGBM's cast to int) reads -0.5 as 0, "none" reads it as no category.
+    none = _two_trees(categories=[[], [], [], [], [], [0], [], []])
+    truncate = _two_trees(categories=[[], [], [], [], [], [0], [], []], negative_category="truncate")
+    X = np.array([[0.2, -0.5], [0.2, 0.0], [0.2, -1.0]])
+    np.testing.assert_allclose(none.predict_raw(X), 0.5 + 1 + np.array([20, 10, 20]))
+    np.testing.assert_allclose(truncate.predict_raw(X), 0.5 + 1 + np.array([10, 10, 20]))
+
+
+def test_typed_facts_and_provenance():
+    ens = _two_trees(library="xgboost", objective="reg:squarederror", source="hand.json")
+    assert ens.provenance == Provenance(library="xgboost", objective="reg:squarederror", source="hand.json")
+    assert (ens.library, ens.objective, ens.source) == ("xgboost", "reg:squarederror", "hand.json")
+    assert ens.generic_feature_names is False and _two_trees(feature_names=None).generic_feature_names is True
+    assert (ens.link_scale, ens.unseen_category, ens.negative_category, ens.trees_per_round) == (1.0, "missing", "none", 1)
+    levelled = _two_trees(category_levels={"zone": ["north", "south"]})
+    assert levelled.category_levels["zone"] == ("north", "south")
+    with pytest.raises(TypeError):
+        levelled.category_levels["zone"] = ("east",)
+    with pytest.raises(TypeError):
+        Provenance(stored_params={"eta": 0.3}).stored_params["eta"] = 1.0
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        ens.link_scale = 2.0
+    # Graphs compare by identity and never raise.
+    assert ens == ens and ens != _two_trees()
+
+
+def test_logit_link_scale_is_applied_inside_the_sigmoid():
+    ens = _two_trees(link="logit", link_scale=2.0)
+    raw = ens.predict_raw(np.array([[0.2, 1.0]]))
+    # p = 1 / (1 + exp(-2 raw)), the binary objective of LightGBM with sigmoid=2 (LightGBM docs, "sigmoid").
+    np.testing.assert_allclose(ens.predict(np.array([[0.2, 1.0]])), 1 / (1 + np.exp(-2 * raw)))

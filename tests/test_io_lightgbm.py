@@ -146,10 +146,10 @@ def test_fixtures_cover_every_decision_kind() -> None:
         assert loaded[name].feature_types[4] == "categorical"
     assert loaded["zero_as_missing"].zero_as_missing.any()
     assert not loaded["regression_nan"].zero_as_missing.any()
-    assert loaded["categorical_pandas"].metadata["pandas_categorical"][0][0] == "cargo_bike"
+    assert next(iter(loaded["categorical_pandas"].category_levels.values()))[0] == "cargo_bike"
     assert loaded["multiclass_slot"].n_outputs == 3
     assert loaded["regression_nan"].feature_names[0] == "parcel_weight_kg"
-    assert loaded["regression_nan"].metadata["parameters"]["num_leaves"] == "5"
+    assert loaded["regression_nan"].provenance.stored_params["num_leaves"] == "5"
 
 
 # ------------------------------------------------- in-memory models
@@ -192,7 +192,7 @@ def test_prediction_scale_matches_lightgbm(boosters, probe_rows) -> None:
         model = from_lightgbm(boosters[case], source=case)
         np.testing.assert_allclose(model.predict(probe_rows), boosters[case].predict(probe_rows), rtol=1e-6)
     sigmoid_model = from_lightgbm(boosters["binary_sigmoid_2"], source="sigmoid")
-    assert sigmoid_model.metadata["objective_options"]["sigmoid"] == "2"
+    assert sigmoid_model.link_scale == 2.0
     raw = sigmoid_model.predict_raw(probe_rows)
     np.testing.assert_allclose(1.0 / (1.0 + np.exp(-2.0 * raw)), boosters["binary_sigmoid_2"].predict(probe_rows),
                                rtol=1e-6)
@@ -243,7 +243,7 @@ def test_random_forest_averages_trees(shift_data, probe_rows) -> None:
     rounds = 4
     booster = train(x, y, rounds=rounds, boosting="rf", bagging_freq=1, bagging_fraction=0.7, objective="regression")
     model = from_lightgbm(booster, source="rf")
-    assert model.metadata["average_output"]
+    assert model.provenance.stored_params["boosting"] == "rf"
     np.testing.assert_allclose(model.predict(probe_rows), booster.predict(probe_rows), rtol=1e-9)
     assert_raw_close(model.predict_raw(probe_rows) * rounds, booster.predict(probe_rows, raw_score=True))
 
@@ -263,7 +263,7 @@ def test_generic_feature_names_flagged() -> None:
     booster = lightgbm.train({**SMALL, "objective": "regression"}, lightgbm.Dataset(x, x[:, 0] * x[:, 1]), 2)
     model = from_lightgbm(booster, source="plain")
     assert model.feature_names == ("Column_0", "Column_1")
-    assert model.metadata["generic_feature_names"] is True
+    assert model.generic_feature_names is True
 
 
 def test_linear_trees_are_unsupported(shift_data) -> None:

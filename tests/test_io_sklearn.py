@@ -9,12 +9,16 @@ predictors. Models are small and seeded so the file runs in seconds.
 
 from __future__ import annotations
 
+import importlib
+import inspect
 import json
+import re
 
 import networkx as nx
 import numpy as np
 import pandas as pd
 import pytest
+import sklearn
 from sklearn.datasets import make_friedman1
 from sklearn.dummy import DummyClassifier
 from sklearn.ensemble import (
@@ -38,9 +42,10 @@ from sklearn.tree import (
 )
 
 from treeprobe import load_model
+from treeprobe.data import UnseenCategoryWarning
 from treeprobe.errors import UnsupportedModelError
-from treeprobe.graph import UnseenCategoryWarning
-from treeprobe.io.sklearn import from_sklearn, sklearn_feature_importances
+from treeprobe.io import sklearn as sklearn_io
+from treeprobe.io.sklearn import PRIVATE_ATTRIBUTES, from_sklearn, sklearn_feature_importances
 
 RTOL = 1e-5
 FEATURES = ["fuel_price", "shift_length", "route_km", "driver_age", "load_tonnes"]
@@ -84,7 +89,7 @@ def test_single_tree_regressor_matches_predict(model_class, nan_data):
     ens = from_sklearn(model, source="test")
     _check_raw(ens, X, model.predict(X))
     assert ens.link == "identity" and ens.split_dtype == "float32" and ens.threshold_rule == "<="
-    assert ens.metadata["generic_feature_names"] is True
+    assert ens.generic_feature_names is True
     assert ens.feature_names == tuple(f"f{j}" for j in range(5))
 
 
@@ -98,7 +103,7 @@ def test_single_tree_classifier_matches_predict_proba(model_class, n_classes, na
     ens = from_sklearn(model, source="test")
     assert ens.link == "proba" and ens.n_outputs == n_classes
     _check_raw(ens, X, model.predict_proba(X))
-    assert ens.metadata["classes"] == list(range(n_classes))
+    assert ens.provenance.class_labels == tuple(range(n_classes))
 
 
 @pytest.mark.parametrize(
@@ -372,7 +377,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     """Reference: HistGB predict on a DataFrame whose category column comes last and whose levels are strings.
 
     scikit-learn moves categorical columns first and numbers levels in sorted order;
-    the ensemble must map both back (levels kept in metadata["category_levels"]).
+    the ensemble must map both back (levels kept in category_levels).
     """
     rng = np.random.default_rng(11)
     n = 300
@@ -387,7 +392,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     y = bump * frame["fuel_price"] + frame["shift_length"]
     model = HistGradientBoostingRegressor(max_iter=10, max_leaf_nodes=6, random_state=0).fit(frame, y)
     ens = from_sklearn(model, source="test")
-    levels = ens.metadata["category_levels"]["depot"]
+    levels = list(ens.category_levels["depot"])
     assert levels == ["east", "north", "south", "west"]
     assert ens.feature_names == ("fuel_price", "shift_length", "depot")
     test = frame.copy()
@@ -401,7 +406,7 @@ def test_hist_pandas_categories_with_reordered_columns():
     test.loc[10:19, "depot"] = "harbour"
     with pytest.warns(UnseenCategoryWarning, match="harbour"):
         _check_raw(ens, test, model.predict(test))
-    json.dumps(ens.metadata)
+    json.dumps({name: list(levels) for name, levels in ens.category_levels.items()})
 
 
 # --------------------------------------------------------------- structure
@@ -422,16 +427,16 @@ def test_to_networkx_matches_tree_arrays(regression_data):
         assert graph.edges[int(parent), int(tree.children_left[parent])]["branch"] == "left"
 
 
-def test_feature_names_and_metadata_from_dataframe(regression_data):
+def test_feature_names_and_provenance_from_dataframe(regression_data):
     """feature_names_in_ is used; params survive a JSON round trip for retraining."""
     X, y = regression_data
     frame = pd.DataFrame(X, columns=FEATURES)
     model = RandomForestRegressor(n_estimators=2, max_depth=3, random_state=0).fit(frame, y)
     ens = load_model(model)
     assert ens.feature_names == tuple(FEATURES)
-    assert ens.metadata["generic_feature_names"] is False
-    assert ens.metadata["estimator"] == "RandomForestRegressor"
-    params = json.loads(json.dumps(ens.metadata["params"]))
+    assert ens.generic_feature_names is False
+    assert ens.provenance.estimator == "RandomForestRegressor"
+    params = json.loads(json.dumps(dict(ens.provenance.stored_params)))
     assert RandomForestRegressor(**params).get_params()["max_depth"] == 3
     assert ens.library == "sklearn" and ens.objective == "squared_error"
     _check_raw(ens, frame[FEATURES[::-1]], model.predict(frame))
@@ -481,3 +486,66 @@ def test_source_must_be_a_string(regression_data):
     X, y = regression_data
     with pytest.raises(TypeError, match="source"):
         from_sklearn(DecisionTreeRegressor(max_depth=1).fit(X, y), source=3)
+
+
+# ---------------------------------------------- scikit-learn internals, one table
+@pytest.fixture(scope="module")
+def private_owners(categorical_data):
+    """One fitted object per owner named in PRIVATE_ATTRIBUTES (categorical splits, so bitsets are real)."""
+    X, y, _ = categorical_data
+    hist = HistGradientBoostingRegressor(max_iter=3, max_leaf_nodes=4, categorical_features=[1], random_state=0).fit(X, y)
+    boosting = GradientBoostingRegressor(n_estimators=2, max_depth=2, random_state=0).fit(np.nan_to_num(X), y)
+    return {"GradientBoosting*": boosting, "HistGradientBoosting*": hist, "TreePredictor": hist._predictors[0][0]}
+
+
+@pytest.mark.parametrize("owner, attribute, meaning", PRIVATE_ATTRIBUTES, ids=[a for _, a, _ in PRIVATE_ATTRIBUTES])
+def test_each_private_scikit_learn_attribute_still_exists(owner, attribute, meaning, private_owners):
+    """Reference: the installed scikit-learn itself; a rename there must fail here, by name, before users see it."""
+    if owner.startswith("sklearn."):
+        module = importlib.import_module(owner)
+        assert hasattr(module, attribute), (
+            f"scikit-learn {sklearn.__version__} no longer has {owner}.{attribute} ({meaning}); "
+            "treeprobe.io.sklearn must be updated")
+        return
+    obj = private_owners[owner]
+    assert hasattr(obj, attribute), (
+        f"scikit-learn {sklearn.__version__}: {type(obj).__name__} no longer has {attribute!r} ({meaning}); "
+        "treeprobe.io.sklearn must be updated")
+
+
+def test_every_private_access_in_the_converter_is_listed():
+    """Each private name the module reads appears in PRIVATE_ATTRIBUTES, so the table is complete."""
+    source = inspect.getsource(sklearn_io)
+    used = set(re.findall(r"_private\([^,]+, \"(\w+)\"", source))
+    used |= set(re.findall(r"_private_module_attribute\(\"[\w.]+\", \"(\w+)\"\)", source))
+    used |= {name for name in ("ForestClassifier", "ForestRegressor") if f'"{name}"' in source}
+    listed = {attribute for _, attribute, _ in PRIVATE_ATTRIBUTES}
+    assert used == listed
+    # No private attribute is read directly, around the guards.
+    assert not re.search(r"(estimator|predictor)\._[a-z]", source)
+
+
+@pytest.mark.parametrize("attribute", ["_baseline_prediction", "_predictors", "_bin_mapper"])
+def test_a_changed_private_attribute_fails_with_its_name(attribute, categorical_data):
+    X, y, _ = categorical_data
+    model = HistGradientBoostingRegressor(max_iter=3, max_leaf_nodes=4, categorical_features=[1], random_state=0).fit(X, y)
+    delattr(model, attribute)
+    with pytest.raises(UnsupportedModelError, match=rf"no attribute '{attribute}'.*scikit-learn {sklearn.__version__}"):
+        from_sklearn(model, source="hgb")
+
+
+def test_a_changed_private_method_fails_with_its_name(monkeypatch, regression_data):
+    X, y = regression_data
+    model = GradientBoostingRegressor(n_estimators=2, max_depth=2, random_state=0).fit(X, y)
+    owner = next(cls for cls in type(model).__mro__ if "_raw_predict_init" in vars(cls))
+    monkeypatch.delattr(owner, "_raw_predict_init")
+    with pytest.raises(UnsupportedModelError, match="no attribute '_raw_predict_init'"):
+        from_sklearn(model, source="gb")
+
+
+def test_a_changed_private_module_fails_with_its_name(monkeypatch, regression_data):
+    X, y = regression_data
+    model = RandomForestRegressor(n_estimators=2, max_depth=2, random_state=0).fit(X, y)
+    monkeypatch.delattr(importlib.import_module("sklearn.ensemble._forest"), "ForestRegressor")
+    with pytest.raises(UnsupportedModelError, match=r"no sklearn\.ensemble\._forest\.ForestRegressor"):
+        from_sklearn(model, source="rf")

@@ -195,8 +195,8 @@ def test_link_and_outputs(models, check_routes):
     np.testing.assert_allclose(poisson.predict(check_routes[NUMERIC]), models["poisson"].predict(check_routes[NUMERIC]),
                                rtol=1e-5)
     assert from_xgboost(models["logitraw"], source="<r>").link == "identity"
-    assert from_xgboost(models["dart"], source="<d>").metadata["booster"] == "dart"
-    assert from_xgboost(models["pruned_exact"], source="<x>").metadata["pruned_nodes_dropped"] > 0
+    assert from_xgboost(models["dart"], source="<d>").provenance.stored_params["booster"] == "dart"
+    assert from_xgboost(models["pruned_exact"], source="<x>").provenance.pruned_nodes_dropped > 0
     assert from_xgboost(models["vector_leaf"], source="<v>").output_of_tree.tolist() == [-1, -1, -1]
 
 
@@ -226,12 +226,12 @@ def test_feature_names_kept_or_generic(models, routes):
     named = from_xgboost(models["categorical"], source="<c>")
     assert named.feature_names == tuple(routes.columns)
     assert named.feature_types == ("numeric",) * 4 + ("categorical",)
-    assert named.metadata["generic_feature_names"] is False
+    assert named.generic_feature_names is False
     plain = xgb.XGBRegressor(**SMALL).fit(routes[NUMERIC].to_numpy(), _minutes(routes))
     generic = from_xgboost(plain, source="<p>")
     assert generic.feature_names == ("f0", "f1", "f2", "f3")
-    assert generic.metadata["generic_feature_names"] is True
-    assert generic.metadata["xgboost_version"] == xgb.__version__
+    assert generic.generic_feature_names is True
+    assert generic.provenance.library_version == xgb.__version__
 
 
 def test_unfitted_wrapper_is_a_model_format_error():
@@ -259,7 +259,7 @@ def test_committed_fixture_matches_writer(path):
     """Files written by XGBoost 2.x/3.x reproduce that version's stored margins and get_score totals."""
     stem = path.with_suffix("")
     ensemble = load_model(path)
-    assert ensemble.metadata["xgboost_version"] == path.parent.name
+    assert ensemble.provenance.library_version == path.parent.name
     inputs = pd.read_csv(f"{stem}.inputs.csv")
     assert list(inputs.columns) == list(ensemble.feature_names)
     _assert_margin_close(ensemble.predict_raw(inputs.to_numpy(dtype=float)), np.load(f"{stem}.margin.npy"))

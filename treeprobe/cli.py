@@ -79,7 +79,7 @@ def _load(args: argparse.Namespace):
     # A trusted pickle keeps the live model object: it knows its full training set-up for refits.
     args.model_object = None if isinstance(loaded, ForestGraph) else loaded
     ensemble = loaded if isinstance(loaded, ForestGraph) else load_model(loaded)
-    return replace(ensemble, source=str(args.model)) if ensemble.source != str(args.model) else ensemble
+    return replace(ensemble, provenance=replace(ensemble.provenance, source=str(args.model))) if ensemble.source != str(args.model) else ensemble
 
 
 def _model_lines(summary: dict[str, Any]) -> list[str]:

@@ -328,8 +328,7 @@ def _named(pairs: Sequence[tuple[int, int]], names: Sequence[str]) -> str:
 
 
 def _estimator_name(model: ForestGraph) -> str:
-    # The one read of the loaders' free-form facts here; graph.provenance.estimator once the graph carries it.
-    return str(model.metadata.get("estimator", "") or "")
+    return model.provenance.estimator
 
 
 @dataclass(frozen=True)

@@ -677,7 +677,7 @@ def structure(
 
 def _trees_per_round(ensemble: ForestGraph) -> int:
     per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
-    parallel = int(ensemble.metadata.get("num_parallel_tree", 1) or 1)
+    parallel = ensemble.trees_per_round
     return (ensemble.n_outputs if per_class else 1) * max(parallel, 1)
 
 
@@ -720,7 +720,7 @@ def structure_by_round(
     -----
     A round is one boosting iteration: ``n_outputs`` trees for models that
     grow one tree per class, times ``num_parallel_tree`` when the loader
-    records it in ``metadata``; tree ``t`` belongs to round
+    records it (``ForestGraph.trees_per_round``); tree ``t`` belongs to round
     ``t // trees_per_round``. The trees are walked once; each (set, round)
     partial sum is then accumulated with a cumulative sum over rounds.
 

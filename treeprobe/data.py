@@ -24,21 +24,29 @@ References
 
 from __future__ import annotations
 
+import difflib
 import os
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
 from .errors import DataError, DataWarning
-from .graph import ForestGraph, UnseenCategoryWarning, _missing_columns_message, _numeric_values
 
-__all__ = ["read_table", "prepare_data", "load_data", "DataReport"]
+if TYPE_CHECKING:
+    from .graph import ForestGraph
+
+__all__ = ["model_matrix", "read_table", "prepare_data", "load_data", "DataReport", "UnseenCategoryWarning"]
 
 _PARQUET_SUFFIXES = (".parquet", ".pq")
 _CHUNK_ROWS = 200_000
+
+
+class UnseenCategoryWarning(UserWarning):
+    """Data hold a category level the model never saw in training."""
 
 
 @dataclass(frozen=True)
@@ -62,6 +70,8 @@ class DataReport:
         One note per categorical column holding levels the model never saw.
     target : str or None
         The target column kept beside the features, if any.
+
+    Reports compare field by field (``==``) and never raise.
     """
 
     n_rows: int
@@ -80,6 +90,77 @@ class DataReport:
         out += [f"data: {note}" for note in self.coerced]
         out += [f"data: {note}" for note in self.unseen_categories]
         return out
+
+
+def _missing_columns_message(missing: list[str], available: list[str], wanted: str) -> str:
+    """One message naming the columns the data lack (``wanted`` says which), with close matches (typos)."""
+    shown = ", ".join(missing[:10]) + (" ..." if len(missing) > 10 else "")
+    hints = []
+    for name in missing[:10]:
+        close = difflib.get_close_matches(name, available, n=1, cutoff=0.75)
+        if close:
+            hints.append(f"{name!r} -> {close[0]!r}?")
+    hint = f"; close matches in the data: {', '.join(hints)}" if hints else ""
+    return f"data lacks {wanted}: {shown}{hint}"
+
+
+def _numeric_values(series: pd.Series, col: str) -> tuple[np.ndarray, str | None]:
+    """Float64 values of a column feeding a numeric feature, and a note when its type had to be coerced.
+
+    Booleans become 0/1 and text that reads as a number becomes that number;
+    empty cells and None are missing (NaN). Any other value, and infinity,
+    raise a DataError naming the column, the first bad value and its row.
+    """
+    note = None
+    kind = series.dtype.kind
+    if kind == "b" or str(series.dtype) == "boolean":
+        values = series.astype("float64").to_numpy(dtype=np.float64, na_value=np.nan)
+        note = f"column {col!r}: booleans read as 0/1"
+    elif kind in "iuf":
+        values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    else:
+        raw = series.astype(object)
+        is_bool = np.fromiter((isinstance(v, (bool, np.bool_)) for v in raw), dtype=bool, count=len(raw))
+        values = np.array(pd.to_numeric(raw.mask(is_bool), errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan))
+        if is_bool.any():
+            values[is_bool] = raw[is_bool].astype(float).to_numpy()
+        bad = np.isnan(values) & raw.notna().to_numpy() & ~is_bool
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            raise DataError(
+                f"column {col!r} feeds a numeric feature but holds {int(bad.sum())} value(s) that are not numbers; "
+                f"the first is {raw.iloc[first]!r} at row {series.index[first]!r}"
+            )
+        parts = []
+        n_text = int((~np.isnan(values) & ~is_bool).sum())
+        if n_text:
+            parts.append(f"{n_text} text value(s) read as numbers")
+        if is_bool.any():
+            parts.append(f"{int(is_bool.sum())} boolean(s) read as 0/1")
+        note = f"column {col!r}: " + ", ".join(parts) if parts else None
+    infinite = np.isinf(values)
+    if infinite.any():
+        first = int(np.flatnonzero(infinite)[0])
+        raise DataError(
+            f"column {col!r} holds an infinite value at row {series.index[first]!r}; "
+            "use finite numbers, or NaN / an empty cell for missing"
+        )
+    return values, note
+
+
+def _require_graph(graph: Any, name: str) -> None:
+    # Imported here because graph.py imports this module for its own entry points.
+    from .graph import ForestGraph
+
+    if not isinstance(graph, ForestGraph):
+        raise TypeError(f"{name} must be a ForestGraph, got {type(graph).__name__}")
+
+
+def _check_data_file(path: Path) -> None:
+    if path.is_dir():
+        raise DataError(f"{path}: is a folder; give the data file inside it (CSV, or Parquet with pyarrow)")
+    if not path.is_file():
+        raise DataError(f"{path}: data file not found")
 
 
 def _is_parquet(path: Path) -> bool:
@@ -185,8 +266,7 @@ def read_table(
         raise TypeError(f"columns must be a list of column names, got {columns!r}")
     if sample is not None and (isinstance(sample, bool) or not isinstance(sample, (int, np.integer)) or sample < 1):
         raise ValueError(f"sample must be a positive integer or None, got {sample!r}")
-    if not p.is_file():
-        raise DataError(f"{p}: data file not found")
+    _check_data_file(p)
     if columns is not None:
         header = _header(p)
         missing = [c for c in columns if c not in header]
@@ -215,19 +295,179 @@ def read_table(
     return frame
 
 
-def _feature_columns(ensemble: ForestGraph, columns: list[str], target: str | None) -> tuple[list[str], str]:
+def _feature_columns(graph: ForestGraph, columns: list[str], target: str | None) -> tuple[list[str], str]:
     """Data columns feeding the model's features, in the model's order, and how they were matched."""
     candidates = [c for c in columns if c != target]
     if len(set(candidates)) != len(candidates):
         repeated = sorted({c for c in candidates if candidates.count(c) > 1})
         raise DataError(f"data has repeated column names: {', '.join(repeated[:10])}")
-    names = list(ensemble.feature_names)
+    names = list(graph.feature_names)
     missing = [n for n in names if n not in candidates]
     if not missing:
         return names, "name"
-    if ensemble.metadata.get("generic_feature_names") and len(candidates) == len(names):
+    if graph.generic_feature_names and len(candidates) == len(names):
         return candidates, "position"
     raise DataError(_missing_columns_message(missing, candidates, f"{len(missing)} of the model's {len(names)} feature columns"))
+
+
+def _unseen_note(graph: ForestGraph, col: str, labels: list[str]) -> str:
+    shown = ", ".join(labels[:5]) + (" ..." if len(labels) > 5 else "")
+    routed = "like a category no split lists" if graph.unseen_category == "unlisted" else "like a missing value"
+    return (f"column {col!r} holds {len(labels)} categor{'y' if len(labels) == 1 else 'ies'} the model "
+            f"never saw ({shown}); routed as {graph.library} does: {routed}")
+
+
+def _coded_by_levels(graph: ForestGraph, series: pd.Series, levels: tuple, col: str) -> tuple[np.ndarray, str | None]:
+    """Codes of a categorical column by the model's fitted levels (NaN for missing), and a note on unseen levels.
+
+    The model numbers categories by its own fitted levels, not by this frame's codes.
+    """
+    codes = pd.Index(list(levels)).get_indexer(series.astype(object).to_numpy()).astype(np.float64)
+    unseen = (codes < 0) & series.notna().to_numpy()
+    codes[codes < 0] = np.nan
+    if not unseen.any():
+        return codes, None
+    if graph.unseen_category == "unlisted":
+        codes[unseen] = -1.0
+    return codes, _unseen_note(graph, col, sorted({str(v) for v in series[unseen]}))
+
+
+def _column_values(graph: ForestGraph, series: pd.Series, j: int, col: str) -> tuple[np.ndarray, str | None, str | None]:
+    """Float64 values of the column feeding feature ``j``, a note on coerced types and a note on unseen levels.
+
+    Categorical features with known levels are coded by the model's own
+    levels; every other column must hold numbers, booleans or text that reads
+    as numbers.
+    """
+    levels = graph.category_levels.get(graph.feature_names[j])
+    # pandas >= 3 reads text as the "str" dtype, older versions as object.
+    is_text = series.dtype == object or pd.api.types.is_string_dtype(series.dtype)
+    if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or is_text):
+        codes, unseen = _coded_by_levels(graph, series, levels, col)
+        return codes, None, unseen
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        codes = series.cat.codes.to_numpy().astype(np.float64)
+        codes[codes < 0] = np.nan
+        return codes, None, None
+    if is_text and graph.feature_types[j] == "categorical" and series.notna().any():
+        try:
+            values, note = _numeric_values(series, col)
+        except DataError:
+            raise DataError(
+                f"column {col!r} holds text labels for the categorical feature {graph.feature_names[j]!r}, but "
+                "the model stores no category levels to code them with; give the integer category codes used "
+                "in training, or a pandas categorical column with the training categories in training order"
+            ) from None
+        return values, note, None
+    values, note = _numeric_values(series, col)
+    return values, note, None
+
+
+def _frame_matrix(graph: ForestGraph, frame: pd.DataFrame, source_columns: list[str], *,
+                  strict: bool) -> tuple[np.ndarray, list[str], list[str]]:
+    """The model matrix of a frame's feature columns, with the coercion notes and the unseen-level notes.
+
+    Unseen category levels warn here, once per column; this is the only place data are coded.
+    """
+    position = {c: i for i, c in enumerate(str(c) for c in frame.columns)}
+    out = np.empty((len(frame), len(source_columns)), dtype=np.float64)
+    coerced: list[str] = []
+    unseen: list[str] = []
+    for j, column in enumerate(source_columns):
+        series = frame.iloc[:, position[column]]
+        if strict and series.isna().all():
+            raise DataError(f"column {column!r} is entirely missing (all {len(series):,} values are empty or NaN)")
+        out[:, j], note, unseen_note = _column_values(graph, series, j, column)
+        if note:
+            coerced.append(note)
+        if unseen_note:
+            unseen.append(unseen_note)
+            warnings.warn(unseen_note, UnseenCategoryWarning, stacklevel=3)
+    return out, coerced, unseen
+
+
+def _array_matrix(graph: ForestGraph, X: Any, *, strict: bool) -> np.ndarray:
+    try:
+        arr = np.asarray(X, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise DataError(f"data is not numeric: {exc}") from None
+    if arr.ndim != 2:
+        raise DataError(f"data must be 2-D (rows x features), got {arr.ndim}-D")
+    if arr.shape[1] != graph.n_features:
+        raise DataError(f"data has {arr.shape[1]} columns, the model expects {graph.n_features} features")
+    if np.isinf(arr).any():
+        row, col = (int(i) for i in np.argwhere(np.isinf(arr))[0])
+        raise DataError(f"data column {col} ({graph.feature_names[col]!r}) holds an infinite value at row {row}; "
+                        "use finite numbers, or NaN for missing")
+    if strict:
+        empty = np.isnan(arr).all(axis=0) if arr.shape[0] else np.zeros(arr.shape[1], bool)
+        if arr.shape[0] == 0:
+            raise DataError("data have no rows")
+        if empty.any():
+            col = int(np.flatnonzero(empty)[0])
+            raise DataError(f"data column {col} ({graph.feature_names[col]!r}) is entirely missing "
+                            f"(all {arr.shape[0]:,} values are NaN)")
+    return arr
+
+
+def model_matrix(graph: ForestGraph, X: Any, *, strict: bool = False) -> np.ndarray:
+    """Turn user data into the float64 matrix a model's trees read: one column per feature, in the model's order.
+
+    Parameters
+    ----------
+    graph : ForestGraph
+        The model whose features the data must provide.
+    X : DataFrame or array-like of shape (n_rows, n_features)
+        A DataFrame is matched by column name (order free; extra columns are
+        ignored), or by position when the model has only generic names
+        (``f0, f1, ...``) and the frame has as many columns. A plain array
+        must have exactly ``n_features`` columns.
+    strict : bool, default False
+        Also refuse data without rows and a feature column that is entirely
+        missing (the checks of :func:`prepare_data`).
+
+    Returns
+    -------
+    ndarray of float64, shape (n_rows, n_features)
+        Numeric features as numbers (booleans as 0/1, text that reads as a
+        number as that number, empty cells as NaN); categorical features as
+        the model's codes: text and pandas categorical columns are coded by
+        ``graph.category_levels`` when the model stores levels, by the
+        column's own categories otherwise (missing = NaN).
+
+    Raises
+    ------
+    DataError
+        Naming the missing columns (with close matches for typos), the
+        column count found and expected, a column whose values are not
+        numbers (first bad value and its row), or an infinite value
+        (column and row).
+
+    Warns
+    -----
+    UnseenCategoryWarning
+        A categorical column holds levels the model never saw (column and
+        levels); they are routed as the model's library routes them
+        (``graph.unseen_category``).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from treeprobe import ForestGraph
+    >>> model = ForestGraph.from_arrays(
+    ...     feature=[0, -1, -1], threshold=[1.5, 0, 0], left=[1, -1, -1], right=[2, -1, -1],
+    ...     value=[0, 10, 20], tree_offsets=[0, 3], feature_names=["shift_length"])
+    >>> model_matrix(model, pd.DataFrame({"crew": [3, 4], "shift_length": ["1.0", True]})).tolist()
+    [[1.0], [1.0]]
+    """
+    _require_graph(graph, "graph")
+    if not isinstance(X, pd.DataFrame):
+        return _array_matrix(graph, X, strict=strict)
+    if strict and X.shape[0] == 0:
+        raise DataError("data have no rows")
+    columns = [str(c) for c in X.columns]
+    source_columns, _ = _feature_columns(graph, columns, None)
+    return _frame_matrix(graph, X, source_columns, strict=strict)[0]
 
 
 def prepare_data(
@@ -251,11 +491,12 @@ def prepare_data(
     Returns
     -------
     prepared : DataFrame
-        One column per model feature, named and ordered as the model's
-        features (plus ``target`` last, when given); numeric features as
-        float64, categorical features as they came (the model's own levels
-        code them, see :meth:`ForestGraph.check_X`). The index is kept, so
-        row labels in messages are the data's own.
+        The model matrix (see :func:`model_matrix`, the one path both
+        share) as float64 columns named and ordered as the model's features,
+        plus ``target`` last (as it came) when given: numeric features as
+        numbers, categorical features as the model's codes (text labels
+        coded by the model's own levels). The index is kept, so row labels
+        in messages are the data's own.
     report : DataReport
         How columns were matched and what was coerced; ``report.lines()``
         gives it as text.
@@ -297,8 +538,7 @@ def prepare_data(
     >>> prepared["shift_length"].tolist()
     [1.0, 2.5]
     """
-    if not isinstance(ensemble, ForestGraph):
-        raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
+    _require_graph(ensemble, "ensemble")
     if not isinstance(frame, pd.DataFrame):
         raise TypeError(f"frame must be a pandas DataFrame, got {type(frame).__name__}")
     if target is not None and not isinstance(target, str):
@@ -311,7 +551,6 @@ def prepare_data(
     if target is not None and target in ensemble.feature_names:
         raise DataError(f"target {target!r} is also one of the model's features")
     source_columns, matched_by = _feature_columns(ensemble, columns, target)
-    position = {c: i for i, c in enumerate(columns)}
     extra = tuple(c for c in columns if c not in source_columns and c != target)
     if matched_by == "position":
         pairs = ", ".join(f"{c} -> {n}" for c, n in zip(source_columns[:5], ensemble.feature_names[:5], strict=False))
@@ -321,30 +560,10 @@ def prepare_data(
         shown = ", ".join(extra[:10]) + (" ..." if len(extra) > 10 else "")
         warnings.warn(f"data hold {len(extra)} column(s) the model does not use, ignored: {shown}",
                       DataWarning, stacklevel=2)
-    prepared: dict[str, object] = {}
-    coerced = []
-    for j, (column, name) in enumerate(zip(source_columns, ensemble.feature_names, strict=True)):
-        series = frame.iloc[:, position[column]]
-        if series.isna().all():
-            raise DataError(f"column {column!r} is entirely missing (all {len(series):,} values are empty or NaN)")
-        if ensemble.feature_types[j] == "categorical" and series.dtype.kind not in "biuf":
-            prepared[name] = series
-            continue
-        values, note = _numeric_values(series, column)
-        prepared[name] = pd.Series(values, index=frame.index)
-        if note:
-            coerced.append(note)
+    matrix, coerced, unseen = _frame_matrix(ensemble, frame, source_columns, strict=True)
+    out = pd.DataFrame(matrix, index=frame.index, columns=list(ensemble.feature_names))
     if target is not None:
-        prepared[target] = frame.iloc[:, position[target]]
-    out = pd.DataFrame(prepared, index=frame.index)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", UnseenCategoryWarning)
-        ensemble.check_X(out)
-    unseen = []
-    for item in caught:
-        if issubclass(item.category, UnseenCategoryWarning):
-            unseen.append(str(item.message))
-        warnings.warn(item.message, item.category, stacklevel=2)
+        out[target] = frame.iloc[:, columns.index(target)]
     report = DataReport(n_rows=len(out), matched_by=matched_by, extra_columns=extra, coerced=tuple(coerced),
                         unseen_categories=tuple(unseen), target=target)
     return out, report
@@ -388,11 +607,9 @@ def load_data(
     DataError
         As :func:`read_table` and :func:`prepare_data`.
     """
-    if not isinstance(ensemble, ForestGraph):
-        raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
+    _require_graph(ensemble, "ensemble")
     p = Path(path)
-    if not p.is_file():
-        raise DataError(f"{p}: data file not found")
+    _check_data_file(p)
     header = _header(p)
     if target is not None and target not in header:
         raise DataError(f"{p}: " + _missing_columns_message([target], header, "the target column"))

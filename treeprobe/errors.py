@@ -18,7 +18,7 @@ Hierarchy::
     UserWarning
     └── DataWarning              data usable, but something was ignored or changed
 
-(``treeprobe.graph.UnseenCategoryWarning`` is the warning for category
+(``treeprobe.data.UnseenCategoryWarning`` is the warning for category
 levels the model never saw.)
 """
 

@@ -26,7 +26,10 @@ histogram gradient boosting):
 * categorical split otherwise: ``c = int(v)`` (truncation toward zero); when
   ``c`` is one of the node's listed categories ``cat_values[cat_offsets[i]:
   cat_offsets[i + 1]]`` the row goes left if ``category_left`` else right;
-  every other value (negative, unseen, not listed) goes the other way.
+  every other value (negative, unseen, not listed) goes the other way. A
+  negative ``v`` is no category when ``negative_category == "none"``
+  (XGBoost, scikit-learn); with ``"truncate"`` (LightGBM, which casts to int
+  first) ``-1 < v < 0`` is category 0.
 
 A library whose missing-value rule differs is normalised by its parser (for
 instance LightGBM's missing type "None" maps NaN to 0.0, so its parser sets
@@ -48,31 +51,102 @@ output already is a probability).
 hessian sum (XGBoost ``sum_hessian``, LightGBM ``internal_weight`` /
 ``leaf_weight``, scikit-learn's weighted sample count) and ``n_samples`` the
 training row count where the library stores it (NaN otherwise).
+
+Every array is read-only once the graph is validated, so the depths cached at
+validation cannot go stale and the level-by-level walk of :meth:`ForestGraph.apply`
+always ends. ``dataclasses.replace`` builds a new graph and validates it again.
+Turning user data into the float matrix the walk reads is the job of
+:func:`treeprobe.data.model_matrix`.
 """
 
 from __future__ import annotations
 
-import difflib
-import warnings
-from collections.abc import Sequence
-from dataclasses import dataclass, field, replace
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, fields, replace
+from types import MappingProxyType
 from typing import Any
 
+import networkx as nx
 import numpy as np
 import pandas as pd
 
+from .data import model_matrix
 from .errors import DataError, ModelFormatError
 
-__all__ = ["ForestGraph", "UnseenCategoryWarning", "LINKS", "MAX_DEPTH"]
+__all__ = ["ForestGraph", "Provenance", "LINKS", "UNSEEN_CATEGORY_RULES", "NEGATIVE_CATEGORY_RULES", "MAX_DEPTH"]
 
 LINKS = ("identity", "logit", "softmax", "log", "proba")
+# How a category level the model never saw is routed: like a missing value, or like a category no split lists.
+UNSEEN_CATEGORY_RULES = ("missing", "unlisted")
+# How a negative value reaching a categorical split is read: never a category, or truncated toward zero first.
+NEGATIVE_CATEGORY_RULES = ("none", "truncate")
+IMPORTANCE_POOLINGS = ("", "normalised_per_tree", "raw_per_tree")
 MAX_DEPTH = 512
 _ZERO_THRESHOLD = 1e-35
 _ROW_BLOCK_CELLS = 4_000_000
+_EMPTY_MAPPING: Mapping[str, Any] = MappingProxyType({})
 
 
-class UnseenCategoryWarning(UserWarning):
-    """Data hold a category level the model never saw in training."""
+def _read_only_mapping(values: Mapping | None) -> Mapping:
+    return MappingProxyType(dict(values or {}))
+
+
+@dataclass(frozen=True)
+class Provenance:
+    """Where a graph came from and what its source stores beside the trees.
+
+    Attributes
+    ----------
+    library : str
+        Producing library: "xgboost", "lightgbm", "sklearn", or "unknown" for hand-built graphs.
+    library_version : str
+        Version of the library that wrote the model ("" when the source does not say).
+    objective : str
+        The library's objective (XGBoost, LightGBM), or the criterion / loss of a scikit-learn estimator.
+    source : str
+        Where the model came from (file path or object description); heads every message.
+    estimator : str
+        scikit-learn class name (for instance "RandomForestRegressor"); "" for other libraries.
+    stored_params : mapping
+        Read-only training parameters the file or object stores: LightGBM's parameter block (name to
+        text), XGBoost's model parameters (booster, num_class, num_target, num_parallel_tree, stored
+        base_score, attributes), a scikit-learn estimator's JSON-serialisable ``get_params()``;
+        empty when none.
+    file_format : str
+        "json", "ubjson" (XGBoost files), "text" (LightGBM model text), "object" (a live
+        scikit-learn estimator) or "" (hand-built).
+    class_labels : tuple
+        Class labels of a scikit-learn classifier (``classes_``), in output order; empty otherwise.
+    importance_pooling : {"", "normalised_per_tree", "raw_per_tree"}
+        How scikit-learn pools per-tree impurity importances for this estimator (forests and
+        single trees normalise each tree; classic gradient boosting does not); "" when scikit-learn
+        gives none. Read by :func:`treeprobe.io.sklearn.sklearn_feature_importances`.
+    margin_scale : float
+        Factor between the graph's raw margin and the library's own raw output (2 for scikit-learn's
+        exponential-loss gradient boosting, whose probability is ``expit(2 f)``; 1 otherwise).
+    pruned_nodes_dropped : int
+        Nodes the loader dropped because the file marks them pruned (XGBoost); 0 otherwise.
+    """
+
+    library: str = "unknown"
+    library_version: str = ""
+    objective: str = ""
+    source: str = "<arrays>"
+    estimator: str = ""
+    stored_params: Mapping[str, Any] = field(default_factory=lambda: _EMPTY_MAPPING)
+    file_format: str = ""
+    class_labels: tuple = ()
+    importance_pooling: str = ""
+    margin_scale: float = 1.0
+    pruned_nodes_dropped: int = 0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "stored_params", _read_only_mapping(self.stored_params))
+        object.__setattr__(self, "class_labels", tuple(self.class_labels))
+        if self.importance_pooling not in IMPORTANCE_POOLINGS:
+            raise ModelFormatError(
+                f"{self.source}: importance_pooling must be one of {IMPORTANCE_POOLINGS}, got {self.importance_pooling!r}"
+            )
 
 
 def _as_array(values: Any, dtype: Any, name: str, source: str) -> np.ndarray:
@@ -82,68 +156,119 @@ def _as_array(values: Any, dtype: Any, name: str, source: str) -> np.ndarray:
         raise ModelFormatError(f"{source}: node array '{name}' is not {np.dtype(dtype).name}: {exc}") from None
 
 
-def _missing_columns_message(missing: list[str], available: list[str], wanted: str) -> str:
-    """One message naming the columns the data lack (``wanted`` says which), with close matches (typos)."""
-    shown = ", ".join(missing[:10]) + (" ..." if len(missing) > 10 else "")
-    hints = []
-    for name in missing[:10]:
-        close = difflib.get_close_matches(name, available, n=1, cutoff=0.75)
-        if close:
-            hints.append(f"{name!r} -> {close[0]!r}?")
-    hint = f"; close matches in the data: {', '.join(hints)}" if hints else ""
-    return f"data lacks {wanted}: {shown}{hint}"
+def _frozen(arr: np.ndarray) -> np.ndarray:
+    """``arr`` made read-only; a view is copied first, since its base could still be written."""
+    if arr.base is not None and not (isinstance(arr.base, np.ndarray) and not arr.base.flags.writeable):
+        arr = arr.copy()
+    arr.setflags(write=False)
+    return arr
 
 
-def _numeric_values(series: pd.Series, col: str) -> tuple[np.ndarray, str | None]:
-    """Float64 values of a column feeding a numeric feature, and a note when its type had to be coerced.
-
-    Booleans become 0/1 and text that reads as a number becomes that number;
-    empty cells and None are missing (NaN). Any other value, and infinity,
-    raise a DataError naming the column, the first bad value and its row.
-    """
-    note = None
-    kind = series.dtype.kind
-    if kind == "b" or str(series.dtype) == "boolean":
-        values = series.astype("float64").to_numpy(dtype=np.float64, na_value=np.nan)
-        note = f"column {col!r}: booleans read as 0/1"
-    elif kind in "iuf":
-        values = series.to_numpy(dtype=np.float64, na_value=np.nan)
-    else:
-        raw = series.astype(object)
-        is_bool = np.fromiter((isinstance(v, (bool, np.bool_)) for v in raw), dtype=bool, count=len(raw))
-        values = np.array(pd.to_numeric(raw.mask(is_bool), errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan))
-        if is_bool.any():
-            values[is_bool] = raw[is_bool].astype(float).to_numpy()
-        bad = np.isnan(values) & raw.notna().to_numpy() & ~is_bool
-        if bad.any():
-            first = int(np.flatnonzero(bad)[0])
-            raise DataError(
-                f"column {col!r} feeds a numeric feature but holds {int(bad.sum())} value(s) that are not numbers; "
-                f"the first is {raw.iloc[first]!r} at row {series.index[first]!r}"
-            )
-        parts = []
-        n_text = int((~np.isnan(values) & ~is_bool).sum())
-        if n_text:
-            parts.append(f"{n_text} text value(s) read as numbers")
-        if is_bool.any():
-            parts.append(f"{int(is_bool.sum())} boolean(s) read as 0/1")
-        note = f"column {col!r}: " + ", ".join(parts) if parts else None
-    infinite = np.isinf(values)
-    if infinite.any():
-        first = int(np.flatnonzero(infinite)[0])
-        raise DataError(
-            f"column {col!r} holds an infinite value at row {series.index[first]!r}; "
-            "use finite numbers, or NaN / an empty cell for missing"
+# ------------------------------------------------------------------ steps of ForestGraph.from_arrays
+def _tree_layout(tree_offsets: Sequence[int], n_nodes: int, source: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Checked tree offsets, the node count of every tree and the owning tree of every node."""
+    offsets = _as_array(tree_offsets, np.int64, "tree_offsets", source)
+    if offsets.ndim != 1 or offsets.size < 2 or offsets[0] != 0 or offsets[-1] != n_nodes:
+        raise ModelFormatError(
+            f"{source}: tree_offsets must run from 0 to the node count {n_nodes}; got {offsets[:3]}...{offsets[-3:]}"
         )
-    return values, note
+    sizes = np.diff(offsets)
+    if np.any(sizes <= 0):
+        raise ModelFormatError(f"{source}: tree {int(np.flatnonzero(sizes <= 0)[0])} has no nodes")
+    return offsets, sizes, np.repeat(np.arange(sizes.size, dtype=np.int32), sizes)
+
+
+def _node_array(values: Any, dtype: Any, name: str, default: Any, n_nodes: int, source: str) -> np.ndarray:
+    """One per-node array of ``n_nodes`` entries, filled with ``default`` when not given."""
+    if values is None:
+        return np.full(n_nodes, default, dtype=dtype)
+    arr = _as_array(values, dtype, name, source)
+    if arr.shape != (n_nodes,):
+        raise ModelFormatError(f"{source}: node array '{name}' has shape {arr.shape}, expected ({n_nodes},)")
+    return arr
+
+
+def _global_children(left: np.ndarray, right: np.ndarray, offsets: np.ndarray, sizes: np.ndarray,
+                     tree: np.ndarray, source: str) -> tuple[np.ndarray, np.ndarray]:
+    """Children given as indices local to each tree, turned into global node indices."""
+    local_size = sizes[tree]
+    bad = (left >= local_size) | (right >= local_size)
+    if np.any(bad):
+        i = int(np.flatnonzero(bad)[0])
+        raise ModelFormatError(
+            f"{source}: tree {tree[i]}, node {i - offsets[tree[i]]} has a child index out of range "
+            f"({max(left[i], right[i])} >= {local_size[i]} nodes)"
+        )
+    base = offsets[:-1][tree]
+    return np.where(left >= 0, left + base, -1), np.where(right >= 0, right + base, -1)
+
+
+def _leaf_value_matrix(value: Any, n_nodes: int, source: str) -> np.ndarray:
+    """Node values as an (n_nodes, n_values) matrix."""
+    value_a = _as_array(value, np.float64, "value", source)
+    if value_a.ndim == 1:
+        value_a = value_a[:, None]
+    if value_a.ndim != 2 or value_a.shape[0] != n_nodes:
+        raise ModelFormatError(f"{source}: leaf values have shape {value_a.shape}, expected ({n_nodes}, k)")
+    return value_a
+
+
+def _category_csr(categories: Sequence[Sequence[int]] | None, n_nodes: int, source: str) -> tuple[np.ndarray, np.ndarray]:
+    """Per-node category lists as CSR offsets and sorted, de-duplicated values."""
+    cat_offsets = np.zeros(n_nodes + 1, dtype=np.int64)
+    if categories is None:
+        return cat_offsets, np.zeros(0, dtype=np.int64)
+    if len(categories) != n_nodes:
+        raise ModelFormatError(f"{source}: {len(categories)} category lists for {n_nodes} nodes")
+    sizes_listed = np.fromiter((len(c) for c in categories), dtype=np.int64, count=n_nodes)
+    lists = [np.unique(np.asarray(categories[i], dtype=np.int64)) for i in np.flatnonzero(sizes_listed)]
+    counts = np.zeros(n_nodes, dtype=np.int64)
+    counts[sizes_listed > 0] = [c.size for c in lists]
+    cat_offsets[1:] = np.cumsum(counts)
+    return cat_offsets, (np.concatenate(lists) if lists else np.zeros(0, dtype=np.int64))
+
+
+def _names_and_types(feature_names: Sequence[str] | None, n_features: int | None, feature_types: Sequence[str] | None,
+                     feature: np.ndarray, is_categorical: np.ndarray) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """Feature names (``f0, f1, ...`` when none are given) and kinds (categorical where a split says so)."""
+    if n_features is None:
+        n_features = len(feature_names) if feature_names is not None else int(feature.max(initial=-1)) + 1
+    names = (tuple(str(n) for n in feature_names) if feature_names is not None
+             else tuple(f"f{i}" for i in range(n_features)))
+    if feature_types is None:
+        types = ["numeric"] * len(names)
+        for j in np.unique(feature[is_categorical]):
+            if 0 <= j < len(types):
+                types[j] = "categorical"
+        feature_types = types
+    return names, tuple(feature_types)
+
+
+def _per_tree_arrays(output_of_tree: Sequence[int] | None, tree_weight: Sequence[float] | None,
+                     base_score: Sequence[float] | float, n_outputs: int | None, n_values: int, n_trees: int,
+                     source: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Output of every tree (-1 for vector leaves), tree weights and the base score of every output."""
+    if n_outputs is None:
+        if n_values > 1:
+            n_outputs = n_values
+        else:
+            n_outputs = int(np.max(output_of_tree, initial=0)) + 1 if output_of_tree is not None else 1
+    if output_of_tree is not None:
+        out_a = _as_array(output_of_tree, np.int32, "output_of_tree", source)
+    else:
+        out_a = np.full(n_trees, -1 if n_values > 1 else 0, dtype=np.int32)
+    weight_a = np.ones(n_trees) if tree_weight is None else _as_array(tree_weight, np.float64, "tree_weight", source)
+    base_a = np.broadcast_to(np.asarray(base_score, dtype=np.float64), (n_outputs,)).copy()
+    return out_a, weight_a, base_a
 
 
 @dataclass(frozen=True, eq=False)
 class ForestGraph:
     """A fitted tree ensemble as columnar arrays; see the module docstring for semantics.
 
-    Build one with :meth:`from_arrays` (which validates) or through
-    :func:`treeprobe.load_model`.
+    Build one with :meth:`from_arrays` or through :func:`treeprobe.load_model`. Every
+    construction, ``dataclasses.replace`` included, validates the graph and then makes
+    its arrays read-only. Graphs compare by identity (``eq=False``), never raising.
 
     Attributes
     ----------
@@ -178,8 +303,29 @@ class ForestGraph:
         Precision in which the library compares feature values.
     feature_names, feature_types : tuple of str
         Names and kinds ("numeric" or "categorical") of the model's input columns.
-    library, objective, source : str
-        Producing library, its objective name, and where the model came from.
+    provenance : Provenance
+        Library, version, objective, source, estimator class and stored training parameters.
+    link_scale : float
+        Factor on the raw margin inside the "logit" link: ``p = 1 / (1 + exp(-link_scale * raw))``.
+        1.0 except for LightGBM's binary objective trained with ``sigmoid`` other than 1.
+    category_levels : mapping of str to tuple
+        Read-only: for categorical features whose source stores level labels, the labels in code
+        order (code ``c`` is ``levels[c]``); :func:`treeprobe.data.model_matrix` codes text and
+        pandas categorical columns by them.
+    unseen_category : {"missing", "unlisted"}
+        How the library routes a level absent from ``category_levels``: like a missing value
+        (LightGBM, scikit-learn) or like a category no split lists (XGBoost).
+    negative_category : {"none", "truncate"}
+        How a negative value reaching a categorical split is read: "none", no category at all
+        (XGBoost, scikit-learn); "truncate", truncated toward zero first, so ``-0.5`` is category 0
+        (LightGBM, which casts to int).
+    generic_feature_names : bool
+        True when the model stores no real feature names (``f0, f1, ...``, ``Column_0, ...``), so
+        data columns may be matched to features by position.
+    trees_per_round : int
+        Trees one boosting round grows for each output: XGBoost's ``num_parallel_tree``, 1 for every
+        other model (a random forest's trees count as one round each). A round of a model with one
+        tree per output adds ``trees_per_round * n_outputs`` trees.
     """
 
     tree: np.ndarray
@@ -206,10 +352,24 @@ class ForestGraph:
     split_dtype: str
     feature_names: tuple[str, ...]
     feature_types: tuple[str, ...]
-    library: str = "unknown"
-    objective: str = ""
-    source: str = "<arrays>"
-    metadata: dict = field(default_factory=dict)
+    provenance: Provenance = field(default_factory=Provenance)
+    link_scale: float = 1.0
+    category_levels: Mapping[str, tuple] = field(default_factory=lambda: _EMPTY_MAPPING)
+    unseen_category: str = "missing"
+    negative_category: str = "none"
+    generic_feature_names: bool = False
+    trees_per_round: int = 1
+
+    def __post_init__(self) -> None:
+        levels = {str(name): tuple(values) for name, values in dict(self.category_levels or {}).items()}
+        object.__setattr__(self, "category_levels", MappingProxyType(levels))
+        object.__setattr__(self, "feature_names", tuple(self.feature_names))
+        object.__setattr__(self, "feature_types", tuple(self.feature_types))
+        self.validate()
+        for item in fields(self):
+            value = getattr(self, item.name)
+            if isinstance(value, np.ndarray):
+                object.__setattr__(self, item.name, _frozen(value))
 
     # ------------------------------------------------------------------ build
     @classmethod
@@ -243,7 +403,13 @@ class ForestGraph:
         library: str = "unknown",
         objective: str = "",
         source: str = "<arrays>",
-        metadata: dict | None = None,
+        provenance: Provenance | None = None,
+        link_scale: float = 1.0,
+        category_levels: Mapping[str, Sequence] | None = None,
+        unseen_category: str = "missing",
+        negative_category: str = "none",
+        generic_feature_names: bool | None = None,
+        trees_per_round: int = 1,
         local_children: bool = False,
     ) -> ForestGraph:
         """Build and validate an ensemble from per-node sequences.
@@ -253,104 +419,48 @@ class ForestGraph:
         missing-value special cases (NaN goes right), numeric splits, unknown
         gain/cover/sample counts (NaN). ``categories`` gives, per node, the
         listed categories of a categorical split (empty elsewhere).
+        ``provenance`` wins over ``library``, ``objective`` and ``source``,
+        which build a :class:`Provenance` when it is not given.
+        ``generic_feature_names`` defaults to whether ``feature_names`` is None.
+        The arrays given are taken over and become read-only.
 
         Raises
         ------
         ModelFormatError
             When the arrays are inconsistent or do not form trees.
         """
-        src = source
+        if provenance is None:
+            provenance = Provenance(library=library, objective=objective, source=source)
+        src = provenance.source
         feature_a = _as_array(feature, np.int32, "feature", src)
         n_nodes = feature_a.shape[0]
-        offsets = _as_array(tree_offsets, np.int64, "tree_offsets", src)
-        if offsets.ndim != 1 or offsets.size < 2 or offsets[0] != 0 or offsets[-1] != n_nodes:
-            raise ModelFormatError(
-                f"{src}: tree_offsets must run from 0 to the node count {n_nodes}; got {offsets[:3]}...{offsets[-3:]}"
-            )
-        if np.any(np.diff(offsets) <= 0):
-            bad = int(np.flatnonzero(np.diff(offsets) <= 0)[0])
-            raise ModelFormatError(f"{src}: tree {bad} has no nodes")
-        n_trees = offsets.size - 1
-        sizes = np.diff(offsets)
-        tree_a = np.repeat(np.arange(n_trees, dtype=np.int32), sizes)
-
-        def node_array(values: Any, dtype: Any, name: str, default: Any) -> np.ndarray:
-            if values is None:
-                return np.full(n_nodes, default, dtype=dtype)
-            arr = _as_array(values, dtype, name, src)
-            if arr.shape != (n_nodes,):
-                raise ModelFormatError(f"{src}: node array '{name}' has shape {arr.shape}, expected ({n_nodes},)")
-            return arr
-
-        left_a = node_array(left, np.int64, "left", -1)
-        right_a = node_array(right, np.int64, "right", -1)
+        offsets, sizes, tree_a = _tree_layout(tree_offsets, n_nodes, src)
+        left_a = _node_array(left, np.int64, "left", -1, n_nodes, src)
+        right_a = _node_array(right, np.int64, "right", -1, n_nodes, src)
         if local_children:
-            local_size = sizes[tree_a]
-            bad = (left_a >= local_size) | (right_a >= local_size)
-            if np.any(bad):
-                i = int(np.flatnonzero(bad)[0])
-                raise ModelFormatError(
-                    f"{src}: tree {tree_a[i]}, node {i - offsets[tree_a[i]]} has a child index out of range "
-                    f"({max(left_a[i], right_a[i])} >= {local_size[i]} nodes)"
-                )
-            base = offsets[:-1][tree_a]
-            left_a = np.where(left_a >= 0, left_a + base, -1)
-            right_a = np.where(right_a >= 0, right_a + base, -1)
-        value_a = _as_array(value, np.float64, "value", src)
-        if value_a.ndim == 1:
-            value_a = value_a[:, None]
-        if value_a.ndim != 2 or value_a.shape[0] != n_nodes:
-            raise ModelFormatError(f"{src}: leaf values have shape {value_a.shape}, expected ({n_nodes}, k)")
-
-        is_cat = node_array(is_categorical, bool, "is_categorical", False)
-        cat_offsets = np.zeros(n_nodes + 1, dtype=np.int64)
-        cat_values = np.zeros(0, dtype=np.int64)
-        if categories is not None:
-            if len(categories) != n_nodes:
-                raise ModelFormatError(f"{src}: {len(categories)} category lists for {n_nodes} nodes")
-            sizes_listed = np.fromiter((len(c) for c in categories), dtype=np.int64, count=n_nodes)
-            lists = [np.unique(np.asarray(categories[i], dtype=np.int64)) for i in np.flatnonzero(sizes_listed)]
-            counts = np.zeros(n_nodes, dtype=np.int64)
-            counts[sizes_listed > 0] = [c.size for c in lists]
-            cat_offsets[1:] = np.cumsum(counts)
-            cat_values = np.concatenate(lists) if lists else cat_values
-        if n_features is None:
-            n_features = len(feature_names) if feature_names is not None else int(feature_a.max(initial=-1)) + 1
-        names = tuple(str(n) for n in feature_names) if feature_names is not None else tuple(
-            f"f{i}" for i in range(n_features)
-        )
-        if feature_types is None:
-            types = ["numeric"] * len(names)
-            for j in np.unique(feature_a[is_cat]):
-                if 0 <= j < len(types):
-                    types[j] = "categorical"
-            feature_types = types
-        n_values = value_a.shape[1]
-        if n_outputs is None:
-            n_outputs = n_values if n_values > 1 else int(np.max(output_of_tree, initial=0)) + 1 if output_of_tree is not None else 1
-        out_a = (
-            np.zeros(n_trees, dtype=np.int32) if output_of_tree is None else _as_array(output_of_tree, np.int32, "output_of_tree", src)
-        )
-        if n_values > 1 and output_of_tree is None:
-            out_a = np.full(n_trees, -1, dtype=np.int32)
-        weight_a = np.ones(n_trees) if tree_weight is None else _as_array(tree_weight, np.float64, "tree_weight", src)
-        base_a = np.broadcast_to(np.asarray(base_score, dtype=np.float64), (n_outputs,)).copy()
-        ens = cls(
+            left_a, right_a = _global_children(left_a, right_a, offsets, sizes, tree_a, src)
+        value_a = _leaf_value_matrix(value, n_nodes, src)
+        is_cat = _node_array(is_categorical, bool, "is_categorical", False, n_nodes, src)
+        cat_offsets, cat_values = _category_csr(categories, n_nodes, src)
+        names, types = _names_and_types(feature_names, n_features, feature_types, feature_a, is_cat)
+        out_a, weight_a, base_a = _per_tree_arrays(output_of_tree, tree_weight, base_score, n_outputs,
+                                                   value_a.shape[1], sizes.size, src)
+        return cls(
             tree=tree_a,
             feature=feature_a,
-            threshold=node_array(threshold, np.float64, "threshold", np.nan),
+            threshold=_node_array(threshold, np.float64, "threshold", np.nan, n_nodes, src),
             left=left_a.astype(np.int32),
             right=right_a.astype(np.int32),
-            missing_left=node_array(missing_left, bool, "missing_left", False),
-            zero_as_missing=node_array(zero_as_missing, bool, "zero_as_missing", False),
+            missing_left=_node_array(missing_left, bool, "missing_left", False, n_nodes, src),
+            zero_as_missing=_node_array(zero_as_missing, bool, "zero_as_missing", False, n_nodes, src),
             is_categorical=is_cat,
-            category_left=node_array(category_left, bool, "category_left", True),
+            category_left=_node_array(category_left, bool, "category_left", True, n_nodes, src),
             cat_offsets=cat_offsets,
             cat_values=cat_values,
             value=value_a,
-            gain=node_array(gain, np.float64, "gain", np.nan),
-            cover=node_array(cover, np.float64, "cover", np.nan),
-            n_samples=node_array(n_samples, np.float64, "n_samples", np.nan),
+            gain=_node_array(gain, np.float64, "gain", np.nan, n_nodes, src),
+            cover=_node_array(cover, np.float64, "cover", np.nan, n_nodes, src),
+            n_samples=_node_array(n_samples, np.float64, "n_samples", np.nan, n_nodes, src),
             tree_offsets=offsets,
             output_of_tree=out_a,
             tree_weight=weight_a,
@@ -359,14 +469,15 @@ class ForestGraph:
             threshold_rule=threshold_rule,
             split_dtype=split_dtype,
             feature_names=names,
-            feature_types=tuple(feature_types),
-            library=library,
-            objective=objective,
-            source=source,
-            metadata=dict(metadata or {}),
+            feature_types=types,
+            provenance=provenance,
+            link_scale=float(link_scale),
+            category_levels=category_levels or {},
+            unseen_category=unseen_category,
+            negative_category=negative_category,
+            generic_feature_names=feature_names is None if generic_feature_names is None else bool(generic_feature_names),
+            trees_per_round=int(trees_per_round),
         )
-        ens.validate()
-        return ens
 
     def validate(self) -> None:
         """Check that the arrays are consistent and that every tree is a tree.
@@ -376,6 +487,22 @@ class ForestGraph:
         ModelFormatError
             Naming the source, tree and node of the first problem found.
         """
+        self._validate_shapes()
+        self._validate_facts()
+        self._validate_links()
+        self._validate_values()
+        # With one parent per non-root node and none at the root, every tree is a
+        # tree exactly when all its nodes are reachable; _depths proves that.
+        object.__setattr__(self, "_depth_cache", _frozen(self._depths()))
+
+    def _where(self, mask: np.ndarray) -> str:
+        """Tree and local node of the first node in ``mask``, for messages."""
+        i = int(np.flatnonzero(mask)[0])
+        t = int(self.tree[i])
+        return f"tree {t}, node {i - int(self.tree_offsets[t])}"
+
+    def _validate_shapes(self) -> None:
+        """Array shapes, the link and comparison rules, and the per-tree and per-output arrays."""
         src = self.source
         n = self.n_nodes
         for name in ("tree", "feature", "threshold", "left", "right", "missing_left", "zero_as_missing",
@@ -400,11 +527,9 @@ class ForestGraph:
         ):
             raise ModelFormatError(f"{src}: leaf values have {self.value.shape[1]} columns for {self.n_outputs} outputs")
 
-        def where(mask: np.ndarray) -> str:
-            i = int(np.flatnonzero(mask)[0])
-            t = int(self.tree[i])
-            return f"tree {t}, node {i - int(self.tree_offsets[t])}"
-
+    def _validate_links(self) -> None:
+        """Split features in range, children in range and in the same tree, one parent per non-root node."""
+        src, n, where = self.source, self.n_nodes, self._where
         is_leaf = self.feature < 0
         if np.any(self.feature < -1) or np.any(self.feature >= self.n_features):
             bad = (self.feature < -1) | (self.feature >= self.n_features)
@@ -435,7 +560,12 @@ class ForestGraph:
             raise ModelFormatError(
                 f"{src}: {where(bad)} has {parents[bad][0]} parents (expected 1: unreachable, shared or cyclic children)"
             )
-        num_split = inner & ~self.is_categorical
+
+    def _validate_values(self) -> None:
+        """Thresholds, finite leaf values and the category lists."""
+        src, n, where = self.source, self.n_nodes, self._where
+        is_leaf = self.feature < 0
+        num_split = ~is_leaf & ~self.is_categorical
         if np.any(num_split & ~np.isfinite(self.threshold) & ~np.isinf(self.threshold)):
             raise ModelFormatError(f"{src}: {where(num_split & np.isnan(self.threshold))} has a NaN threshold")
         if np.any(is_leaf & ~np.isfinite(self.value).all(axis=1)):
@@ -446,9 +576,26 @@ class ForestGraph:
         if self.cat_offsets.shape != (n + 1,) or self.cat_offsets[0] != 0 or self.cat_offsets[-1] != self.cat_values.size \
                 or np.any(np.diff(self.cat_offsets) < 0):
             raise ModelFormatError(f"{src}: category offsets are inconsistent with {self.cat_values.size} listed categories")
-        # With one parent per non-root node and none at the root, every tree is a
-        # tree exactly when all its nodes are reachable; _depths proves that.
-        object.__setattr__(self, "_depth_cache", self._depths())
+
+    def _validate_facts(self) -> None:
+        """Check the ensemble-wide typed facts (routing rules, link scale, levels, round size)."""
+        src = self.source
+        if not isinstance(self.provenance, Provenance):
+            raise ModelFormatError(f"{src}: provenance must be a Provenance, got {type(self.provenance).__name__}")
+        if self.unseen_category not in UNSEEN_CATEGORY_RULES:
+            raise ModelFormatError(
+                f"{src}: unseen_category must be one of {UNSEEN_CATEGORY_RULES}, got {self.unseen_category!r}")
+        if self.negative_category not in NEGATIVE_CATEGORY_RULES:
+            raise ModelFormatError(
+                f"{src}: negative_category must be one of {NEGATIVE_CATEGORY_RULES}, got {self.negative_category!r}")
+        if not (isinstance(self.link_scale, (int, float)) and np.isfinite(self.link_scale) and self.link_scale > 0):
+            raise ModelFormatError(f"{src}: link_scale must be a positive finite number, got {self.link_scale!r}")
+        if isinstance(self.trees_per_round, bool) or not isinstance(self.trees_per_round, (int, np.integer)) \
+                or self.trees_per_round < 1:
+            raise ModelFormatError(f"{src}: trees_per_round must be a positive integer, got {self.trees_per_round!r}")
+        unknown = [name for name in self.category_levels if name not in self.feature_names]
+        if unknown:
+            raise ModelFormatError(f"{src}: category_levels names {unknown[0]!r}, which is not a feature of the model")
 
     def _depths(self) -> np.ndarray:
         n = self.n_nodes
@@ -471,6 +618,21 @@ class ForestGraph:
         return depth
 
     # ------------------------------------------------------------ properties
+    @property
+    def library(self) -> str:
+        """Producing library (``provenance.library``)."""
+        return self.provenance.library
+
+    @property
+    def objective(self) -> str:
+        """The library's objective name (``provenance.objective``)."""
+        return self.provenance.objective
+
+    @property
+    def source(self) -> str:
+        """Where the model came from (``provenance.source``)."""
+        return self.provenance.source
+
     @property
     def n_nodes(self) -> int:
         """Number of nodes over all trees."""
@@ -498,12 +660,8 @@ class ForestGraph:
 
     @property
     def depth(self) -> np.ndarray:
-        """Depth of every node (root = 0)."""
-        cached = self.__dict__.get("_depth_cache")
-        if cached is None:
-            cached = self._depths()
-            object.__setattr__(self, "_depth_cache", cached)
-        return cached
+        """Depth of every node (root = 0); read-only, computed once at validation."""
+        return self.__dict__["_depth_cache"]
 
     @property
     def roots(self) -> np.ndarray:
@@ -519,7 +677,8 @@ class ForestGraph:
         """Return a new ensemble holding only the given trees (in the given order).
 
         The base score and links are kept, so predictions of the subset are the
-        partial sums of the selected trees plus the base score.
+        partial sums of the selected trees plus the base score. The copy is
+        validated and read-only like every graph.
         """
         idx = np.arange(self.n_trees)[trees] if isinstance(trees, slice) else np.asarray(trees, dtype=np.int64)
         if idx.size == 0:
@@ -541,7 +700,7 @@ class ForestGraph:
         cat_values = (
             np.concatenate([self.categories(i) for i in nodes[cat_sizes > 0]]) if cat_sizes.any() else np.zeros(0, np.int64)
         )
-        out = replace(
+        return replace(
             self,
             tree=np.repeat(np.arange(idx.size, dtype=np.int32), sizes),
             feature=self.feature[nodes],
@@ -561,10 +720,7 @@ class ForestGraph:
             tree_offsets=new_offsets.astype(np.int64),
             output_of_tree=self.output_of_tree[idx],
             tree_weight=self.tree_weight[idx],
-            metadata={**self.metadata, "selected_trees": idx},
         )
-        object.__setattr__(out, "_depth_cache", self.depth[nodes])
-        return out
 
     def trees_of_output(self, output: int) -> np.ndarray:
         """Indices of the trees that add to raw output ``output`` (vector-leaf trees included)."""
@@ -574,112 +730,13 @@ class ForestGraph:
 
     # ------------------------------------------------------------ prediction
     def check_X(self, X: Any) -> np.ndarray:
-        """Return ``X`` as a float64 matrix whose columns are the model's features.
+        """``X`` as the model's float64 matrix: the same as :func:`treeprobe.data.model_matrix` ``(self, X)``."""
+        return model_matrix(self, X)
 
-        A DataFrame is matched by column name (order free; extra columns are
-        ignored) when the model knows its feature names, or by position when
-        the model has only generic names (``f0, f1, ...``) and the frame has
-        as many columns; categorical columns become their integer codes
-        (missing = NaN). Booleans become 0/1 and text that reads as numbers
-        becomes float. A plain array must have exactly ``n_features`` columns.
-
-        Raises
-        ------
-        DataError
-            Naming the missing columns (with close matches for typos), the
-            column count found and expected, a column whose values are not
-            numbers (first bad value and its row), or an infinite value
-            (column and row). Use :func:`treeprobe.data.prepare_data` to
-            also refuse columns that are entirely missing and to get a
-            report of what was coerced.
-        """
-        if isinstance(X, pd.DataFrame):
-            frame = self._frame_columns(X)
-            out = np.empty((len(frame), len(frame.columns)), dtype=np.float64)
-            for j, col in enumerate(frame.columns):
-                out[:, j] = self._column_values(frame.iloc[:, j], j, str(col))
-            return out
-        try:
-            arr = np.asarray(X, dtype=np.float64)
-        except (TypeError, ValueError) as exc:
-            raise DataError(f"data is not numeric: {exc}") from None
-        if arr.ndim != 2:
-            raise DataError(f"data must be 2-D (rows x features), got {arr.ndim}-D")
-        if arr.shape[1] != self.n_features:
-            raise DataError(f"data has {arr.shape[1]} columns, the model expects {self.n_features} features")
-        if np.isinf(arr).any():
-            row, col = (int(i) for i in np.argwhere(np.isinf(arr))[0])
-            raise DataError(f"data column {col} ({self.feature_names[col]!r}) holds an infinite value at row {row}; "
-                            "use finite numbers, or NaN for missing")
-        return arr
-
-    def _frame_columns(self, X: pd.DataFrame) -> pd.DataFrame:
-        """The columns of ``X`` that feed the model's features, in the model's order."""
-        cols = [str(c) for c in X.columns]
-        names = list(self.feature_names)
-        if cols == names:
+    def _matrix(self, X: Any, checked: bool) -> np.ndarray:
+        if checked and isinstance(X, np.ndarray) and X.ndim == 2 and X.shape[1] == self.n_features:
             return X
-        if len(set(cols)) != len(cols):
-            repeated = sorted({c for c in cols if cols.count(c) > 1})
-            raise DataError(f"data has repeated column names: {', '.join(repeated[:10])}")
-        missing = [c for c in names if c not in cols]
-        if missing and len(cols) == len(names) and self.metadata.get("generic_feature_names"):
-            return X
-        if missing:
-            raise DataError(_missing_columns_message(
-                missing, cols, f"{len(missing)} of the model's {len(names)} feature columns"))
-        position = {c: i for i, c in enumerate(cols)}
-        return X.iloc[:, [position[c] for c in names]]
-
-    def _column_values(self, series: pd.Series, j: int, col: str) -> np.ndarray:
-        """Float64 values of the column feeding feature ``j``.
-
-        Categorical features with known levels are coded by the model's own
-        levels (unseen ones warn, see :class:`UnseenCategoryWarning`); every
-        other column must hold numbers, booleans or text that reads as numbers.
-        """
-        levels = (self.metadata.get("category_levels") or {}).get(self.feature_names[j])
-        # pandas >= 3 reads text as the "str" dtype, older versions as object.
-        is_text = series.dtype == object or pd.api.types.is_string_dtype(series.dtype)
-        if levels is not None and (isinstance(series.dtype, pd.CategoricalDtype) or is_text):
-            return self._coded_by_levels(series, list(levels), col)
-        if isinstance(series.dtype, pd.CategoricalDtype):
-            codes = series.cat.codes.to_numpy().astype(np.float64)
-            codes[codes < 0] = np.nan
-            return codes
-        if is_text and self.feature_types[j] == "categorical" and series.notna().any():
-            try:
-                return _numeric_values(series, col)[0]
-            except DataError:
-                raise DataError(
-                    f"column {col!r} holds text labels for the categorical feature {self.feature_names[j]!r}, but "
-                    "the model stores no category levels to code them with; give the integer category codes used "
-                    "in training, or a pandas categorical column with the training categories in training order"
-                ) from None
-        return _numeric_values(series, col)[0]
-
-    def _coded_by_levels(self, series: pd.Series, levels: list, col: str) -> np.ndarray:
-        """Codes of a categorical column by the model's fitted levels (NaN for missing; unseen levels warn).
-
-        The model numbers categories by its own fitted levels, not by this frame's codes.
-        """
-        codes = pd.Index(levels).get_indexer(series.astype(object).to_numpy()).astype(np.float64)
-        unseen = (codes < 0) & series.notna().to_numpy()
-        codes[codes < 0] = np.nan
-        if unseen.any():
-            labels = sorted({str(v) for v in series[unseen]})
-            shown = ", ".join(labels[:5]) + (" ..." if len(labels) > 5 else "")
-            rule = self.metadata.get("unseen_category", "missing")
-            warnings.warn(
-                f"column {col!r} holds {len(labels)} categor{'y' if len(labels) == 1 else 'ies'} the model "
-                f"never saw ({shown}); routed as {self.library} does: "
-                + ("like a category no split lists" if rule == "unlisted" else "like a missing value"),
-                UnseenCategoryWarning,
-                stacklevel=5,
-            )
-            if rule == "unlisted":
-                codes[unseen] = -1.0
-        return codes
+        return model_matrix(self, X)
 
     def _goes_left(self, node: np.ndarray, x: np.ndarray) -> np.ndarray:
         """Routing decision at internal nodes ``node`` for values ``x`` (already cast)."""
@@ -697,48 +754,57 @@ class ForestGraph:
             go_left[cat] = cat_left
         return go_left
 
-    def _in_categories(self, node: np.ndarray, x: np.ndarray) -> np.ndarray:
+    def _category_keys(self) -> np.ndarray:
+        """Sorted keys ``node * span + category`` of every listed category (``span`` = largest code + 1)."""
         keys = self.__dict__.get("_cat_keys")
-        span = int(self.cat_values.max(initial=0)) + 1
         if keys is None:
+            span = int(self.cat_values.max(initial=0)) + 1
             owner = np.repeat(np.arange(self.n_nodes, dtype=np.int64), np.diff(self.cat_offsets))
-            keys = owner * span + self.cat_values
+            keys = _frozen(owner * span + self.cat_values)
             object.__setattr__(self, "_cat_keys", keys)
+        return keys
+
+    def _in_categories(self, node: np.ndarray, x: np.ndarray) -> np.ndarray:
+        keys = self._category_keys()
+        if not keys.size:
+            return np.zeros(node.shape, bool)
+        span = int(self.cat_values.max(initial=0)) + 1
         with np.errstate(invalid="ignore"):
             code = np.trunc(x)
-            # LightGBM casts to int first (-0.5 becomes category 0); XGBoost and
-            # scikit-learn treat every negative value as no category.
-            sign_ok = code >= 0 if self.library == "lightgbm" else x >= 0
+            sign_ok = code >= 0 if self.negative_category == "truncate" else x >= 0
             valid = sign_ok & (code < span)
         query = node.astype(np.int64) * span + np.where(valid, code, 0).astype(np.int64)
-        pos = np.searchsorted(keys, query)
-        pos = np.minimum(pos, max(keys.size - 1, 0))
-        return valid & (keys.size > 0) & (keys[pos] == query) if keys.size else np.zeros(node.shape, bool)
+        pos = np.minimum(np.searchsorted(keys, query), keys.size - 1)
+        return valid & (keys[pos] == query)
 
     def apply(self, X: Any, *, checked: bool = False) -> np.ndarray:
         """Global index of the leaf every row reaches in every tree.
 
-        Vectorised over rows and trees; one numpy pass per tree level.
+        Vectorised over rows and trees; one numpy pass per tree level. ``X`` is
+        the model's float matrix (a DataFrame or other input goes through
+        :func:`treeprobe.data.model_matrix`); ``checked=True`` skips that step
+        for a float array that already came from it.
 
         Returns
         -------
         ndarray of int64, shape (n_rows, n_trees)
         """
-        arr = X if checked else self.check_X(X)
-        arr = arr.astype(self.split_dtype, copy=False)
+        arr = self._matrix(X, checked).astype(self.split_dtype, copy=False)
         n_rows = arr.shape[0]
         out = np.empty((n_rows, self.n_trees), dtype=np.int64)
         block = max(1, _ROW_BLOCK_CELLS // max(self.n_trees, 1))
         roots = self.roots.astype(np.int64)
+        # The validated depths bound the walk, whatever the arrays hold.
+        levels = int(self.depth.max(initial=0)) + 1
         for start in range(0, n_rows, block):
             xb = arr[start:start + block]
             nb = xb.shape[0]
-            node = np.broadcast_to(roots, (nb, self.n_trees)).copy()
-            rows = np.broadcast_to(np.arange(nb)[:, None], node.shape)
-            active = np.flatnonzero(self.feature[node].ravel() >= 0)
-            flat_node = node.ravel()
-            flat_rows = rows.ravel()
-            while active.size:
+            flat_node = np.broadcast_to(roots, (nb, self.n_trees)).ravel().copy()
+            flat_rows = np.repeat(np.arange(nb), self.n_trees)
+            active = np.flatnonzero(self.feature[flat_node] >= 0)
+            for _ in range(levels):
+                if not active.size:
+                    break
                 cur = flat_node[active]
                 vals = xb[flat_rows[active], self.feature[cur]]
                 left = self._goes_left(cur, vals)
@@ -753,8 +819,10 @@ class ForestGraph:
 
         Parameters
         ----------
-        X : array-like or DataFrame of shape (n_rows, n_features)
-            Rows to score; see :meth:`check_X`.
+        X : ndarray of shape (n_rows, n_features), or anything :func:`treeprobe.data.model_matrix` reads
+            Rows to score.
+        checked : bool, default False
+            ``X`` is already the model's float matrix.
 
         Returns
         -------
@@ -774,12 +842,11 @@ class ForestGraph:
             out += np.einsum("rtk,t->rk", self.value[leaves], self.tree_weight)
         return out[:, 0] if self.n_outputs == 1 else out
 
-    def predict(self, X: Any) -> np.ndarray:
+    def predict(self, X: Any, *, checked: bool = False) -> np.ndarray:
         """Prediction on the link's scale (probabilities for logit/softmax, exp for log links)."""
-        raw = self.predict_raw(X)
+        raw = self.predict_raw(X, checked=checked)
         if self.link == "logit":
-            # link_scale: LightGBM's binary objective uses 1 / (1 + exp(-sigmoid * raw)).
-            return 1.0 / (1.0 + np.exp(-float(self.metadata.get("link_scale", 1.0)) * raw))
+            return 1.0 / (1.0 + np.exp(-self.link_scale * raw))
         if self.link == "softmax":
             z = raw - raw.max(axis=1, keepdims=True)
             e = np.exp(z)
@@ -843,8 +910,6 @@ class ForestGraph:
         values as a tuple), ``gain``, ``cover``, ``n_samples``, ``depth``,
         ``leaf``. Edge attribute ``branch`` is "left" or "right".
         """
-        import networkx as nx
-
         if not 0 <= tree_index < self.n_trees:
             raise DataError(f"tree_index must lie in 0..{self.n_trees - 1}, got {tree_index}")
         start, end = int(self.tree_offsets[tree_index]), int(self.tree_offsets[tree_index + 1])

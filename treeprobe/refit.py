@@ -111,12 +111,6 @@ def live_training_params(model: Any) -> dict:
     return params
 
 
-def _stored(graph: ForestGraph, key: str, default: Any) -> Any:
-    # The one read of the loaders' free-form facts in this module; it becomes the typed
-    # graph.provenance.stored_params / graph.trees_per_round when the graph carries them.
-    return graph.metadata.get(key, default) or default
-
-
 def task_of(library: str, objective: str) -> str:
     if library == "xgboost":
         if objective.startswith("binary:"):
@@ -138,7 +132,7 @@ def task_of(library: str, objective: str) -> str:
 def rounds_of(ensemble: ForestGraph) -> int:
     """Boosting rounds of a model: trees / (outputs with a tree each) / parallel trees per round."""
     per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
-    parallel = max(int(_stored(ensemble, "num_parallel_tree", 1)), 1)
+    parallel = ensemble.trees_per_round
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 
 
@@ -172,17 +166,17 @@ def training_setup(source: ForestGraph | dict, *, library: str | None = None, pa
         raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
     library = ensemble.library
     if library == "lightgbm":
-        stored = _stored(ensemble, "parameters", {})
+        stored = ensemble.provenance.stored_params
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
         base.update({key: base[key] not in ("0", "false") for key in _LIGHTGBM_BOOLEANS & base.keys()})
         if not stored:
             notes.append("The LightGBM model stores no training parameters; LightGBM's defaults were used.")
     else:
         base = {"objective": ensemble.objective}
-        if _stored(ensemble, "num_class", 0):
-            base["num_class"] = int(_stored(ensemble, "num_class", 0))
-        if int(_stored(ensemble, "num_parallel_tree", 1)) > 1:
-            base["num_parallel_tree"] = int(_stored(ensemble, "num_parallel_tree", 1))
+        if ensemble.provenance.stored_params.get("num_class"):
+            base["num_class"] = int(ensemble.provenance.stored_params["num_class"])
+        if ensemble.trees_per_round > 1:
+            base["num_parallel_tree"] = ensemble.trees_per_round
         live = dict(live_params or {})
         base.update(live)
         if not live:

@@ -10,11 +10,17 @@ from __future__ import annotations
 
 import os
 from collections.abc import Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
+import joblib
+
 from ..errors import ModelFormatError, UnsafeModelError, UnsupportedModelError
 from ..graph import ForestGraph
+from .lightgbm import from_lightgbm, load_lightgbm_text
+from .sklearn import from_sklearn
+from .xgboost import from_xgboost, load_xgboost_json, load_xgboost_ubjson
 
 __all__ = ["load_model", "read_model_file", "MAX_FILE_BYTES"]
 
@@ -45,8 +51,6 @@ def _looks_pickled(path: Path, head: bytes) -> bool:
 
 
 def _load_pickle(path: Path, data: bytes) -> Any:
-    import joblib
-
     try:
         return joblib.load(path)
     except Exception as exc:  # noqa: BLE001 - any unpickling failure is a bad file
@@ -69,12 +73,8 @@ def read_model_file(path: Path, trust_pickle: bool = False) -> ForestGraph | Any
         return _load_pickle(path, data)
     stripped = data.lstrip()
     if stripped.startswith(b"tree\n") or stripped.startswith(b"tree\r\n") or b"\nversion=v" in data[:200]:
-        from .lightgbm import load_lightgbm_text
-
         return load_lightgbm_text(data, source=str(path))
     if stripped.startswith(b"{"):
-        from .xgboost import load_xgboost_json, load_xgboost_ubjson
-
         second = stripped[1:2]
         if path.suffix.lower() == ".ubj" or second in (b"L", b"U", b"i", b"I", b"l", b"$", b"#", b"}"):
             if second != b"}" or path.suffix.lower() == ".ubj":
@@ -89,16 +89,10 @@ def read_model_file(path: Path, trust_pickle: bool = False) -> ForestGraph | Any
 def _from_object(obj: Any, source: str) -> ForestGraph:
     module = type(obj).__module__.split(".")[0]
     if module == "xgboost":
-        from .xgboost import from_xgboost
-
         return from_xgboost(obj, source=source)
     if module == "lightgbm":
-        from .lightgbm import from_lightgbm
-
         return from_lightgbm(obj, source=source)
     if module == "sklearn":
-        from .sklearn import from_sklearn
-
         return from_sklearn(obj, source=source)
     raise UnsupportedModelError(
         f"{source}: cannot read a {type(obj).__module__}.{type(obj).__name__}; expected an XGBoost, LightGBM or "
@@ -161,8 +155,5 @@ def load_model(
             raise ModelFormatError(
                 f"{ens.source}: {len(names)} feature names given, the model has {ens.n_features} features"
             )
-        from dataclasses import replace
-
-        meta = {**ens.metadata, "generic_feature_names": False}
-        ens = replace(ens, feature_names=names, metadata=meta)
+        ens = replace(ens, feature_names=names, generic_feature_names=False)
     return ens

@@ -52,9 +52,9 @@ The link follows the objective: ``binary``, ``cross_entropy`` and
 ``multiclassova`` use "logit", ``multiclass`` "softmax", ``poisson``,
 ``gamma`` and ``tweedie`` "log", every other objective "identity". For
 ``binary`` LightGBM's probability is ``1 / (1 + exp(-sigmoid * raw))``; the
-``sigmoid`` factor (1 unless set at training) is kept in
-``metadata["objective_options"]`` and is not part of the "logit" link, so
-only the raw scale is exact when it differs from 1. Likewise the probability
+``sigmoid`` factor (1 unless set at training) is kept as
+``ForestGraph.link_scale``, which :meth:`ForestGraph.predict` applies inside
+the logit. Likewise the probability
 of ``cross_entropy_lambda`` (``log1p(exp(raw))``) and the squared output of
 ``reg_sqrt`` models are not links; their raw scores are still exact.
 
@@ -72,12 +72,13 @@ from __future__ import annotations
 
 import json
 from collections import Counter
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
 from ..errors import ModelFormatError, UnsupportedModelError
-from ..graph import ForestGraph
+from ..graph import ForestGraph, Provenance
 
 __all__ = ["load_lightgbm_text", "from_lightgbm"]
 
@@ -352,6 +353,243 @@ def _link(objective: str) -> str:
     return "identity"
 
 
+@dataclass(frozen=True)
+class _Header:
+    """The model-wide facts of the text's header."""
+
+    per_iteration: int
+    feature_names: list[str]
+    objective: str
+    objective_options: dict[str, str]
+    average_output: bool
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """Where LightGBM's internal nodes and leaves go in the common node numbering (see "Node layout")."""
+
+    num_leaves: np.ndarray
+    num_cat: np.ndarray
+    offsets: np.ndarray
+    internal_tree: np.ndarray
+    internal_local: np.ndarray
+    internal_at: np.ndarray
+    leaf_at: np.ndarray
+
+    @property
+    def n_internal(self) -> np.ndarray:
+        return self.num_leaves - 1
+
+    @property
+    def n_nodes(self) -> int:
+        return int(self.offsets[-1])
+
+
+def _read_header(header: dict, blocks: list[dict], source: str) -> _Header:
+    """Check the header keys against each other and the tree count."""
+    for key in _HEADER_REQUIRED:
+        if key not in header:
+            raise ModelFormatError(f"{source}: the model header lacks the key '{key}'")
+    if not blocks:
+        raise ModelFormatError(f"{source}: the model has no trees")
+    _header_int(header, "num_class", source, minimum=1)
+    per_iteration = _header_int(header, "num_tree_per_iteration", source, minimum=1)
+    n_features = _header_int(header, "max_feature_idx", source, minimum=0) + 1
+    feature_names = header["feature_names"][0].split()
+    if len(feature_names) != n_features:
+        raise ModelFormatError(
+            f"{source}: line {header['feature_names'][1]}: {len(feature_names)} feature names for "
+            f"max_feature_idx={n_features - 1} ({n_features} features)"
+        )
+    if len(set(feature_names)) != n_features:
+        # LightGBM itself refuses a feature name that appears twice; data columns could not be matched to it.
+        repeated = next(name for name, count in Counter(feature_names).items() if count > 1)
+        raise ModelFormatError(
+            f"{source}: line {header['feature_names'][1]}: feature name {repeated[:40]!r} appears more than once"
+        )
+    n_trees = len(blocks)
+    if n_trees % per_iteration:
+        raise ModelFormatError(
+            f"{source}: {n_trees} trees is not a multiple of num_tree_per_iteration={per_iteration}"
+        )
+    if "tree_sizes" in header and len(header["tree_sizes"][0].split()) != n_trees:
+        raise ModelFormatError(
+            f"{source}: line {header['tree_sizes'][1]}: 'tree_sizes' lists "
+            f"{len(header['tree_sizes'][0].split())} trees, the text holds {n_trees}"
+        )
+    objective_tokens = header.get("objective", ("", 0))[0].split()
+    return _Header(
+        per_iteration=per_iteration,
+        feature_names=feature_names,
+        objective=objective_tokens[0] if objective_tokens else "",
+        objective_options=dict(token.partition(":")[::2] for token in objective_tokens[1:]),
+        average_output="average_output" in header,
+    )
+
+
+def _tree_layout(blocks: list[dict], source: str) -> _Layout:
+    """Leaf and bitset counts of every tree (linear trees refused) and the node numbering they imply."""
+    n_trees = len(blocks)
+    num_leaves = np.empty(n_trees, dtype=np.int64)
+    num_cat = np.empty(n_trees, dtype=np.int64)
+    for tree, block in enumerate(blocks):
+        num_leaves[tree] = _tree_int(block, "num_leaves", tree, source)
+        num_cat[tree] = _tree_int(block, "num_cat", tree, source)
+        if num_leaves[tree] < 1:
+            raise ModelFormatError(f"{source}: Tree={tree}: num_leaves is {num_leaves[tree]}, expected at least 1")
+        if not 0 <= num_cat[tree] < max(num_leaves[tree], 2):
+            raise ModelFormatError(
+                f"{source}: Tree={tree}: num_cat is {num_cat[tree]}, expected 0..{max(num_leaves[tree] - 1, 0)}"
+            )
+        linear = _tree_int(block, "is_linear", tree, source, default=0)
+        if linear not in (0, 1):
+            raise ModelFormatError(f"{source}: Tree={tree}: is_linear is {linear}, expected 0 or 1")
+        if linear:
+            raise UnsupportedModelError(
+                f"{source}: Tree={tree} is a linear tree (trained with linear_tree=True); treeprobe reads "
+                "only constant-leaf trees"
+            )
+    n_internal = num_leaves - 1
+    offsets = np.concatenate([[0], np.cumsum(2 * num_leaves - 1)])
+    internal_tree = np.repeat(np.arange(n_trees), n_internal)
+    internal_local = np.arange(internal_tree.size) - np.repeat(np.cumsum(n_internal) - n_internal, n_internal)
+    leaf_tree = np.repeat(np.arange(n_trees), num_leaves)
+    leaf_local = np.arange(leaf_tree.size) - np.repeat(np.cumsum(num_leaves) - num_leaves, num_leaves)
+    return _Layout(
+        num_leaves=num_leaves,
+        num_cat=num_cat,
+        offsets=offsets,
+        internal_tree=internal_tree,
+        internal_local=internal_local,
+        internal_at=offsets[internal_tree] + internal_local,
+        leaf_at=offsets[leaf_tree] + n_internal[leaf_tree] + leaf_local,
+    )
+
+
+def _read_node_keys(blocks: list[dict], layout: _Layout, source: str) -> tuple[np.ndarray, dict, dict]:
+    """Leaf values, the per-internal-node keys and the per-leaf statistics of all trees."""
+    # leaf_value is read first: it bounds every allocation below by the text's own size.
+    leaf_value = _node_values(blocks, "leaf_value", np.float64, layout.num_leaves, source)
+    internal = {key: _node_values(blocks, key, dtype, layout.n_internal, source) for key, dtype in _INTERNAL_KEYS.items()}
+    single = layout.num_leaves == 1
+    leaf_stats = {key: _node_values(blocks, key, np.float64, layout.num_leaves, source, empty_as_nan=single)
+                  for key in _LEAF_STAT_KEYS}
+    return leaf_value, internal, leaf_stats
+
+
+def _checked_split_features(internal: dict, layout: _Layout, n_features: int, source: str) -> np.ndarray:
+    split_feature = internal["split_feature"]
+    bad = (split_feature < 0) | (split_feature >= n_features)
+    if bad.any():
+        tree, node = _locate(bad, layout.internal_tree, layout.internal_local)
+        raise ModelFormatError(
+            f"{source}: Tree={tree}, node {node}: key 'split_feature' is {split_feature[bad][0]}, "
+            f"expected 0..{n_features - 1}"
+        )
+    return split_feature
+
+
+def _local_children(internal: dict, layout: _Layout, source: str) -> dict[str, np.ndarray]:
+    """Left and right children as tree-local indices of the common layout (leaf ``~j`` -> ``n_internal + j``)."""
+    children = {}
+    own_internal = layout.n_internal[layout.internal_tree]
+    for key in ("left_child", "right_child"):
+        child = internal[key]
+        bad = (child >= own_internal) | (~child >= layout.num_leaves[layout.internal_tree])
+        if bad.any():
+            tree, node = _locate(bad, layout.internal_tree, layout.internal_local)
+            raise ModelFormatError(
+                f"{source}: Tree={tree}, node {node}: key '{key}' is {child[bad][0]}, expected an internal node "
+                f"0..{layout.n_internal[tree] - 1} or a leaf -1..-{layout.num_leaves[tree]}"
+            )
+        children[key] = np.where(child >= 0, child, own_internal + ~child)
+    return children
+
+
+def _decision_flags(internal: dict, layout: _Layout, source: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Categorical flag, missing-goes-left flag of numeric splits, and missing type of every internal node."""
+    decision = internal["decision_type"]
+    missing_type = (decision >> 2) & 3
+    bad = (decision < 0) | (decision > 15) | (missing_type > _MISSING_NAN)
+    if bad.any():
+        tree, node = _locate(bad, layout.internal_tree, layout.internal_local)
+        raise ModelFormatError(
+            f"{source}: Tree={tree}, node {node}: key 'decision_type' is {decision[bad][0]}, which is not a "
+            "LightGBM decision type (bits: 1 categorical, 2 default left, 4-8 missing type)"
+        )
+    categorical = (decision & _CATEGORICAL_BIT) != 0
+    default_left = (decision & _DEFAULT_LEFT_BIT) != 0
+    # Missing type "None" replaces NaN by 0.0 and compares it (see the module docstring).
+    numeric_missing_left = np.where(missing_type == _MISSING_NONE, internal["threshold"] >= 0.0, default_left)
+    return categorical, numeric_missing_left, missing_type
+
+
+def _split_categories(blocks: list[dict], internal: dict, categorical: np.ndarray, layout: _Layout,
+                      source: str) -> list[np.ndarray] | None:
+    """Listed categories of every node (global numbering), read from the bitsets; None without categorical splits."""
+    if not categorical.any():
+        return None
+    threshold = internal["threshold"]
+    categories = [np.zeros(0, dtype=np.int64)] * layout.n_nodes
+    cat_index = np.where(categorical, threshold, 0.0)
+    bad = categorical & ((cat_index != np.floor(cat_index)) | (cat_index < 0)
+                         | (cat_index >= layout.num_cat[layout.internal_tree]))
+    if bad.any():
+        tree, node = _locate(bad, layout.internal_tree, layout.internal_local)
+        raise ModelFormatError(
+            f"{source}: Tree={tree}, node {node}: categorical split has 'threshold' {threshold[bad][0]}, "
+            f"expected a bitset index 0..{layout.num_cat[tree] - 1}"
+        )
+    for tree in np.unique(layout.internal_tree[categorical]).tolist():
+        listed = _bitset_categories(blocks[tree], tree, int(layout.num_cat[tree]), source)
+        for row in np.flatnonzero(categorical & (layout.internal_tree == tree)).tolist():
+            categories[int(layout.internal_at[row])] = listed[int(cat_index[row])]
+    return categories
+
+
+def _scatter(layout: _Layout, fill: Any, dtype: Any, internal_values: Any, leaf_values: Any = None) -> np.ndarray:
+    """One array over all nodes: internal values at the internal nodes, leaf values at the leaves."""
+    out = np.full(layout.n_nodes, fill, dtype=dtype)
+    out[layout.internal_at] = internal_values
+    if leaf_values is not None:
+        out[layout.leaf_at] = leaf_values
+    return out
+
+
+def _feature_types(header: dict, parameters: dict[str, str], feature_names: list[str],
+                   split_categorical: set[int]) -> list[str]:
+    """Categorical where a split, the ``categorical_feature`` parameter or ``feature_infos`` says so."""
+    n_features = len(feature_names)
+    categorical = split_categorical | _declared_categorical(parameters, feature_names)
+    if "feature_infos" in header:
+        # LightGBM writes "[min:max]" for numeric features, "none" for unused
+        # ones, and the colon-joined category list for categorical ones.
+        infos = header["feature_infos"][0].split()
+        if len(infos) == n_features:
+            categorical |= {j for j, info in enumerate(infos) if not info.startswith("[") and info != "none"}
+    return ["categorical" if j in categorical else "numeric" for j in range(n_features)]
+
+
+def _category_levels(parameters: dict[str, str], feature_names: list[str], pandas_categorical: Any) -> dict:
+    """Level labels of the pandas categorical columns LightGBM saw at training, by feature name."""
+    declared = sorted(_declared_categorical(parameters, feature_names))
+    if isinstance(pandas_categorical, list) and pandas_categorical and len(declared) == len(pandas_categorical):
+        # LightGBM codes a pandas category column by the levels it saw at training,
+        # in the order of the frame's category columns.
+        return {feature_names[j]: list(levels) for j, levels in zip(declared, pandas_categorical, strict=True)}
+    return {}
+
+
+def _link_scale(head: _Header, source: str) -> float:
+    if _link(head.objective) != "logit":
+        return 1.0
+    try:
+        return float(head.objective_options.get("sigmoid", 1.0))
+    except ValueError:
+        raise ModelFormatError(
+            f"{source}: objective option sigmoid={head.objective_options['sigmoid']!r} is not a number") from None
+
+
 def load_lightgbm_text(data: bytes | str, *, source: str) -> ForestGraph:
     """Parse LightGBM model text into a :class:`~treeprobe.graph.ForestGraph`.
 
@@ -372,12 +610,12 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> ForestGraph:
         ``library="lightgbm"``, ``threshold_rule="<="``, ``split_dtype="float64"``.
         ``gain`` is LightGBM's ``split_gain``, ``cover`` its ``internal_weight`` /
         ``leaf_weight`` (hessian sums), ``n_samples`` its ``internal_count`` /
-        ``leaf_count``. ``metadata`` holds ``parameters`` (the training
-        parameters, name to string), ``objective_options`` (for instance
-        ``{"sigmoid": "1"}``), ``generic_feature_names`` (True when LightGBM
-        named the columns ``Column_0, Column_1, ...``), ``pandas_categorical``
-        (category lists of pandas categorical columns, or None),
-        ``format_version`` and ``average_output``.
+        ``leaf_count``. ``provenance.stored_params`` holds the training
+        parameters (name to text); ``link_scale`` is the binary objective's
+        ``sigmoid``; ``generic_feature_names`` is True when LightGBM named the
+        columns ``Column_0, Column_1, ...``; ``category_levels`` holds the
+        level lists of pandas categorical columns; ``negative_category`` is
+        "truncate" and ``unseen_category`` "missing".
 
     Raises
     ------
@@ -445,218 +683,49 @@ def load_lightgbm_text(data: bytes | str, *, source: str) -> ForestGraph:
     """
     if not isinstance(source, str):
         raise TypeError(f"source must be a str, got {type(source).__name__}")
-    text = _decode(data, source)
-    lines = [line.strip() for line in text.splitlines()]
+    lines = [line.strip() for line in _decode(data, source).splitlines()]
     header, blocks, tail = _split_sections(lines, source)
-    for key in _HEADER_REQUIRED:
-        if key not in header:
-            raise ModelFormatError(f"{source}: the model header lacks the key '{key}'")
-    if not blocks:
-        raise ModelFormatError(f"{source}: the model has no trees")
-    num_class = _header_int(header, "num_class", source, minimum=1)
-    per_iteration = _header_int(header, "num_tree_per_iteration", source, minimum=1)
-    n_features = _header_int(header, "max_feature_idx", source, minimum=0) + 1
-    feature_names = header["feature_names"][0].split()
-    if len(feature_names) != n_features:
-        raise ModelFormatError(
-            f"{source}: line {header['feature_names'][1]}: {len(feature_names)} feature names for "
-            f"max_feature_idx={n_features - 1} ({n_features} features)"
-        )
-    if len(set(feature_names)) != n_features:
-        # LightGBM itself refuses a feature name that appears twice; data columns could not be matched to it.
-        repeated = next(name for name, count in Counter(feature_names).items() if count > 1)
-        raise ModelFormatError(
-            f"{source}: line {header['feature_names'][1]}: feature name {repeated[:40]!r} appears more than once"
-        )
-    n_trees = len(blocks)
-    if n_trees % per_iteration:
-        raise ModelFormatError(
-            f"{source}: {n_trees} trees is not a multiple of num_tree_per_iteration={per_iteration}"
-        )
-    if "tree_sizes" in header and len(header["tree_sizes"][0].split()) != n_trees:
-        raise ModelFormatError(
-            f"{source}: line {header['tree_sizes'][1]}: 'tree_sizes' lists "
-            f"{len(header['tree_sizes'][0].split())} trees, the text holds {n_trees}"
-        )
-    objective_tokens = header.get("objective", ("", 0))[0].split()
-    objective = objective_tokens[0] if objective_tokens else ""
-    objective_options = dict(token.partition(":")[::2] for token in objective_tokens[1:])
-
-    num_leaves = np.empty(n_trees, dtype=np.int64)
-    num_cat = np.empty(n_trees, dtype=np.int64)
-    for tree, block in enumerate(blocks):
-        num_leaves[tree] = _tree_int(block, "num_leaves", tree, source)
-        num_cat[tree] = _tree_int(block, "num_cat", tree, source)
-        if num_leaves[tree] < 1:
-            raise ModelFormatError(f"{source}: Tree={tree}: num_leaves is {num_leaves[tree]}, expected at least 1")
-        if not 0 <= num_cat[tree] < max(num_leaves[tree], 2):
-            raise ModelFormatError(
-                f"{source}: Tree={tree}: num_cat is {num_cat[tree]}, expected 0..{max(num_leaves[tree] - 1, 0)}"
-            )
-        linear = _tree_int(block, "is_linear", tree, source, default=0)
-        if linear not in (0, 1):
-            raise ModelFormatError(f"{source}: Tree={tree}: is_linear is {linear}, expected 0 or 1")
-        if linear:
-            raise UnsupportedModelError(
-                f"{source}: Tree={tree} is a linear tree (trained with linear_tree=True); treeprobe reads "
-                "only constant-leaf trees"
-            )
-    # leaf_value is checked first: it bounds every allocation below by the text's own size.
-    leaf_value = _node_values(blocks, "leaf_value", np.float64, num_leaves, source)
-    n_internal = num_leaves - 1
-    single = num_leaves == 1
-    internal = {key: _node_values(blocks, key, dtype, n_internal, source) for key, dtype in _INTERNAL_KEYS.items()}
-    leaf_stats = {key: _node_values(blocks, key, np.float64, num_leaves, source, empty_as_nan=single)
-                  for key in _LEAF_STAT_KEYS}
-
-    sizes = 2 * num_leaves - 1
-    offsets = np.concatenate([[0], np.cumsum(sizes)])
-    n_nodes = int(offsets[-1])
-    internal_tree = np.repeat(np.arange(n_trees), n_internal)
-    internal_local = np.arange(internal_tree.size) - np.repeat(np.cumsum(n_internal) - n_internal, n_internal)
-    internal_at = offsets[internal_tree] + internal_local
-    leaf_tree = np.repeat(np.arange(n_trees), num_leaves)
-    leaf_local = np.arange(leaf_tree.size) - np.repeat(np.cumsum(num_leaves) - num_leaves, num_leaves)
-    leaf_at = offsets[leaf_tree] + n_internal[leaf_tree] + leaf_local
-
-    split_feature = internal["split_feature"]
-    bad = (split_feature < 0) | (split_feature >= n_features)
-    if bad.any():
-        tree, node = _locate(bad, internal_tree, internal_local)
-        raise ModelFormatError(
-            f"{source}: Tree={tree}, node {node}: key 'split_feature' is {split_feature[bad][0]}, "
-            f"expected 0..{n_features - 1}"
-        )
-    children = {}
-    for key in ("left_child", "right_child"):
-        child = internal[key]
-        own_internal = n_internal[internal_tree]
-        bad = (child >= own_internal) | (~child >= num_leaves[internal_tree])
-        if bad.any():
-            tree, node = _locate(bad, internal_tree, internal_local)
-            raise ModelFormatError(
-                f"{source}: Tree={tree}, node {node}: key '{key}' is {child[bad][0]}, expected an internal node "
-                f"0..{n_internal[tree] - 1} or a leaf -1..-{num_leaves[tree]}"
-            )
-        children[key] = np.where(child >= 0, child, own_internal + ~child)
-    decision = internal["decision_type"]
-    missing_type = (decision >> 2) & 3
-    bad = (decision < 0) | (decision > 15) | (missing_type > _MISSING_NAN)
-    if bad.any():
-        tree, node = _locate(bad, internal_tree, internal_local)
-        raise ModelFormatError(
-            f"{source}: Tree={tree}, node {node}: key 'decision_type' is {decision[bad][0]}, which is not a "
-            "LightGBM decision type (bits: 1 categorical, 2 default left, 4-8 missing type)"
-        )
-    categorical = (decision & _CATEGORICAL_BIT) != 0
-    default_left = (decision & _DEFAULT_LEFT_BIT) != 0
-    threshold = internal["threshold"]
-    numeric_missing_left = np.where(missing_type == _MISSING_NONE, threshold >= 0.0, default_left)
-
-    categories: list[np.ndarray] | None = None
-    if categorical.any():
-        empty = np.zeros(0, dtype=np.int64)
-        categories = [empty] * n_nodes
-        cat_index = np.where(categorical, threshold, 0.0)
-        bad = categorical & ((cat_index != np.floor(cat_index)) | (cat_index < 0)
-                             | (cat_index >= num_cat[internal_tree]))
-        if bad.any():
-            tree, node = _locate(bad, internal_tree, internal_local)
-            raise ModelFormatError(
-                f"{source}: Tree={tree}, node {node}: categorical split has 'threshold' {threshold[bad][0]}, "
-                f"expected a bitset index 0..{num_cat[tree] - 1}"
-            )
-        for tree in np.unique(internal_tree[categorical]).tolist():
-            listed = _bitset_categories(blocks[tree], tree, int(num_cat[tree]), source)
-            for row in np.flatnonzero(categorical & (internal_tree == tree)).tolist():
-                categories[int(internal_at[row])] = listed[int(cat_index[row])]
-
-    feature = np.full(n_nodes, -1, dtype=np.int64)
-    feature[internal_at] = split_feature
-    node_threshold = np.full(n_nodes, np.nan)
-    node_threshold[internal_at] = np.where(categorical, np.nan, threshold)
-    left = np.full(n_nodes, -1, dtype=np.int64)
-    right = np.full(n_nodes, -1, dtype=np.int64)
-    left[internal_at] = children["left_child"]
-    right[internal_at] = children["right_child"]
-    missing_left = np.zeros(n_nodes, dtype=bool)
-    missing_left[internal_at] = ~categorical & numeric_missing_left
-    zero_as_missing = np.zeros(n_nodes, dtype=bool)
-    zero_as_missing[internal_at] = ~categorical & (missing_type == _MISSING_ZERO)
-    is_categorical = np.zeros(n_nodes, dtype=bool)
-    is_categorical[internal_at] = categorical
-    value = np.empty(n_nodes)
-    value[internal_at] = internal["internal_value"]
-    value[leaf_at] = leaf_value
-    gain = np.zeros(n_nodes)
-    gain[internal_at] = internal["split_gain"]
-    cover = np.empty(n_nodes)
-    cover[internal_at] = internal["internal_weight"]
-    cover[leaf_at] = leaf_stats["leaf_weight"]
-    n_samples = np.empty(n_nodes)
-    n_samples[internal_at] = internal["internal_count"]
-    n_samples[leaf_at] = leaf_stats["leaf_count"]
-
+    head = _read_header(header, blocks, source)
+    layout = _tree_layout(blocks, source)
+    leaf_value, internal, leaf_stats = _read_node_keys(blocks, layout, source)
+    split_feature = _checked_split_features(internal, layout, len(head.feature_names), source)
+    children = _local_children(internal, layout, source)
+    categorical, numeric_missing_left, missing_type = _decision_flags(internal, layout, source)
+    categories = _split_categories(blocks, internal, categorical, layout, source)
     parameters, pandas_categorical = _parse_parameters(tail, source)
-    categorical_features = set(np.unique(split_feature[categorical]).tolist())
-    categorical_features |= _declared_categorical(parameters, feature_names)
-    if "feature_infos" in header:
-        # LightGBM writes "[min:max]" for numeric features, "none" for unused
-        # ones, and the colon-joined category list for categorical ones.
-        infos = header["feature_infos"][0].split()
-        if len(infos) == n_features:
-            categorical_features |= {j for j, info in enumerate(infos) if not info.startswith("[") and info != "none"}
-    feature_types = ["categorical" if j in categorical_features else "numeric" for j in range(n_features)]
-
-    average_output = "average_output" in header
-    tree_weight = np.full(n_trees, per_iteration / n_trees if average_output else 1.0)
-    metadata = {
-        "parameters": parameters,
-        "objective_options": objective_options,
-        "generic_feature_names": feature_names == [f"Column_{j}" for j in range(n_features)],
-        "pandas_categorical": pandas_categorical,
-        "format_version": header["version"][0],
-        "num_class": num_class,
-        "average_output": average_output,
-    }
-    declared = sorted(_declared_categorical(parameters, feature_names))
-    if isinstance(pandas_categorical, list) and pandas_categorical and len(declared) == len(pandas_categorical):
-        # LightGBM codes a pandas category column by the levels it saw at training,
-        # in the order of the frame's category columns.
-        metadata["category_levels"] = {feature_names[j]: list(levels) for j, levels in zip(declared, pandas_categorical)}
-    if _link(objective) == "logit":
-        try:
-            metadata["link_scale"] = float(objective_options.get("sigmoid", 1.0))
-        except ValueError:
-            raise ModelFormatError(f"{source}: objective option sigmoid={objective_options['sigmoid']!r} is not a number") from None
+    n_trees = len(blocks)
     return ForestGraph.from_arrays(
-        feature=feature,
-        threshold=node_threshold,
-        left=left,
-        right=right,
-        value=value,
-        tree_offsets=offsets,
-        feature_names=feature_names,
-        feature_types=feature_types,
-        missing_left=missing_left,
-        zero_as_missing=zero_as_missing,
-        is_categorical=is_categorical,
-        category_left=np.ones(n_nodes, dtype=bool),
+        feature=_scatter(layout, -1, np.int64, split_feature),
+        threshold=_scatter(layout, np.nan, np.float64, np.where(categorical, np.nan, internal["threshold"])),
+        left=_scatter(layout, -1, np.int64, children["left_child"]),
+        right=_scatter(layout, -1, np.int64, children["right_child"]),
+        value=_scatter(layout, np.nan, np.float64, internal["internal_value"], leaf_value),
+        tree_offsets=layout.offsets,
+        feature_names=head.feature_names,
+        feature_types=_feature_types(header, parameters, head.feature_names,
+                                     set(np.unique(split_feature[categorical]).tolist())),
+        missing_left=_scatter(layout, False, bool, ~categorical & numeric_missing_left),
+        zero_as_missing=_scatter(layout, False, bool, ~categorical & (missing_type == _MISSING_ZERO)),
+        is_categorical=_scatter(layout, False, bool, categorical),
+        category_left=np.ones(layout.n_nodes, dtype=bool),
         categories=categories,
-        gain=gain,
-        cover=cover,
-        n_samples=n_samples,
-        output_of_tree=np.arange(n_trees) % per_iteration,
-        tree_weight=tree_weight,
+        gain=_scatter(layout, 0.0, np.float64, internal["split_gain"]),
+        cover=_scatter(layout, np.nan, np.float64, internal["internal_weight"], leaf_stats["leaf_weight"]),
+        n_samples=_scatter(layout, np.nan, np.float64, internal["internal_count"], leaf_stats["leaf_count"]),
+        output_of_tree=np.arange(n_trees) % head.per_iteration,
+        tree_weight=np.full(n_trees, head.per_iteration / n_trees if head.average_output else 1.0),
         base_score=0.0,
-        n_outputs=per_iteration,
-        link=_link(objective),
+        n_outputs=head.per_iteration,
+        link=_link(head.objective),
         threshold_rule="<=",
         split_dtype="float64",
-        library="lightgbm",
-        objective=objective,
-        source=source,
-        metadata=metadata,
+        provenance=Provenance(library="lightgbm", objective=head.objective, source=source,
+                              stored_params=parameters, file_format="text"),
+        link_scale=_link_scale(head, source),
+        category_levels=_category_levels(parameters, head.feature_names, pandas_categorical),
+        unseen_category="missing",
+        negative_category="truncate",
+        generic_feature_names=head.feature_names == [f"Column_{j}" for j in range(len(head.feature_names))],
         local_children=True,
     )
 
@@ -714,4 +783,6 @@ def from_lightgbm(obj: Any, *, source: str) -> ForestGraph:
         raise UnsupportedModelError(
             f"{source}: expected a lightgbm.Booster or LGBMModel, got {type(obj).__module__}.{type(obj).__name__}"
         )
-    return load_lightgbm_text(booster.model_to_string(), source=source)
+    graph = load_lightgbm_text(booster.model_to_string(), source=source)
+    return replace(graph, provenance=replace(graph.provenance, library_version=str(lightgbm.__version__),
+                                             file_format="object"))

@@ -41,21 +41,44 @@ References
 
 from __future__ import annotations
 
+import importlib
 import json
 from typing import Any
 
 import numpy as np
 
 from ..errors import UnsupportedModelError
-from ..graph import ForestGraph
+from ..graph import ForestGraph, Provenance
 
-__all__ = ["from_sklearn", "sklearn_feature_importances"]
+__all__ = ["from_sklearn", "sklearn_feature_importances", "PRIVATE_ATTRIBUTES"]
 
-# How scikit-learn pools per-tree impurity importances (metadata key
-# "importance_pooling"): forests and single trees normalise every tree to sum
-# to one before averaging; classic gradient boosting averages the raw sums.
+# How scikit-learn pools per-tree impurity importances (Provenance.importance_pooling):
+# forests and single trees normalise every tree to sum to one before averaging;
+# classic gradient boosting averages the raw sums.
 _POOL_NORMALISED = "normalised_per_tree"
 _POOL_RAW = "raw_per_tree"
+
+#: Every private part of scikit-learn this converter reads, in one place:
+#: ``(owner, attribute, what it holds)``. The owner is an estimator family
+#: ("GradientBoosting*", "HistGradientBoosting*"), the ``TreePredictor`` of
+#: histogram boosting, or a private module. scikit-learn may rename or
+#: reshape any of them in a release: each is read through :func:`_private` or
+#: :func:`_private_module_attribute`, which fail with an error naming the
+#: attribute, and ``tests/test_io_sklearn.py`` checks every entry against the
+#: installed version.
+PRIVATE_ATTRIBUTES: tuple[tuple[str, str, str], ...] = (
+    ("GradientBoosting*", "_raw_predict_init", "raw prediction of the init estimator: the boosting intercept"),
+    ("HistGradientBoosting*", "_predictors", "one list of TreePredictor objects per boosting iteration"),
+    ("HistGradientBoosting*", "_baseline_prediction", "raw intercept of every output"),
+    ("HistGradientBoosting*", "_bin_mapper", "the bin mapper; its bin_thresholds_ list the known categories"),
+    ("HistGradientBoosting*", "_preprocessor", "ColumnTransformer putting categorical columns first, or None"),
+    ("TreePredictor", "nodes", "structured node array (feature_idx, num_threshold, left, right, value, ...)"),
+    ("TreePredictor", "raw_left_cat_bitsets", "bitsets of the categories each categorical split sends left"),
+    ("sklearn.ensemble._forest", "ForestClassifier", "base class of random-forest and extra-trees classifiers"),
+    ("sklearn.ensemble._forest", "ForestRegressor", "base class of random-forest and extra-trees regressors"),
+    ("sklearn.ensemble._hist_gradient_boosting.common", "X_DTYPE", "dtype in which histogram boosting compares"),
+)
+_PRIVATE_NAMES = {attribute for _, attribute, _ in PRIVATE_ATTRIBUTES}
 
 _LOG_LINK_LOSSES = {"poisson", "gamma"}
 _CONSTANT_DUMMY_STRATEGIES = {"prior", "most_frequent", "uniform", "constant", "mean", "median", "quantile"}
@@ -64,6 +87,45 @@ _CONSTANT_DUMMY_STRATEGIES = {"prior", "most_frequent", "uniform", "constant", "
 # --------------------------------------------------------------------- helpers
 def _estimator_label(estimator: Any) -> str:
     return type(estimator).__name__
+
+
+def _sklearn_version() -> str:
+    import sklearn
+
+    return str(sklearn.__version__)
+
+
+def _is_classifier(estimator: Any) -> bool:
+    from sklearn.base import is_classifier
+
+    return bool(is_classifier(estimator))
+
+
+def _private(obj: Any, attribute: str, source: str) -> Any:
+    """``obj.attribute`` for one of the private parts listed in ``PRIVATE_ATTRIBUTES``, or a clear error."""
+    if attribute not in _PRIVATE_NAMES:
+        raise AssertionError(f"{attribute!r} is not listed in PRIVATE_ATTRIBUTES")
+    try:
+        return getattr(obj, attribute)
+    except AttributeError:
+        raise UnsupportedModelError(
+            f"{source}: the {type(obj).__name__} has no attribute {attribute!r}, which treeprobe reads from "
+            f"scikit-learn's internals; scikit-learn {_sklearn_version()} changed it, so this estimator "
+            "cannot be converted with this treeprobe version"
+        ) from None
+
+
+def _private_module_attribute(module: str, attribute: str) -> Any:
+    """A class or constant from a private scikit-learn module listed in ``PRIVATE_ATTRIBUTES``, or a clear error."""
+    if attribute not in _PRIVATE_NAMES:
+        raise AssertionError(f"{attribute!r} is not listed in PRIVATE_ATTRIBUTES")
+    try:
+        return getattr(importlib.import_module(module), attribute)
+    except (ImportError, AttributeError):
+        raise UnsupportedModelError(
+            f"scikit-learn {_sklearn_version()} has no {module}.{attribute}, which treeprobe reads from its "
+            "internals; this treeprobe version cannot convert its estimators"
+        ) from None
 
 
 def _check_fitted(estimator: Any, source: str) -> None:
@@ -156,16 +218,21 @@ def _stack_trees(per_tree: list[dict]) -> dict:
     return stacked
 
 
-def _common_metadata(estimator: Any, generic_names: bool) -> dict:
-    meta = {
-        "estimator": _estimator_label(estimator),
-        "params": _json_params(estimator),
-        "generic_feature_names": generic_names,
-    }
+def _provenance(estimator: Any, source: str, objective: str, *, importance_pooling: str = "",
+                margin_scale: float = 1.0) -> Provenance:
     classes = getattr(estimator, "classes_", None)
-    if classes is not None:
-        meta["classes"] = [_json_value(c) for c in np.asarray(classes).tolist()]
-    return meta
+    return Provenance(
+        library="sklearn",
+        library_version=_sklearn_version(),
+        objective=objective,
+        source=source,
+        estimator=_estimator_label(estimator),
+        stored_params=_json_params(estimator),
+        file_format="object",
+        class_labels=() if classes is None else tuple(_json_value(c) for c in np.asarray(classes).tolist()),
+        importance_pooling=importance_pooling,
+        margin_scale=margin_scale,
+    )
 
 
 def _single_output_classes(estimator: Any, source: str) -> int:
@@ -180,10 +247,8 @@ def _single_output_classes(estimator: Any, source: str) -> int:
 
 # ------------------------------------------------------------ classic trees
 def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool) -> ForestGraph:
-    from sklearn.base import is_classifier
-
     names, generic = _feature_names(estimator)
-    if is_classifier(estimator):
+    if _is_classifier(estimator):
         n_classes = _single_output_classes(estimator, source)
         parts = [_classic_tree_nodes(t.tree_, value_mode="proba", n_classes=n_classes) for t in trees]
         link = "proba"
@@ -192,8 +257,6 @@ def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool
         link = "identity"
     nodes = _stack_trees(parts)
     n_values = nodes["value"].shape[1]
-    meta = _common_metadata(estimator, generic)
-    meta["importance_pooling"] = _POOL_NORMALISED
     return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
@@ -206,10 +269,8 @@ def _from_trees(estimator: Any, trees: list[Any], *, source: str, averaged: bool
         link=link,
         threshold_rule="<=",
         split_dtype="float32",
-        library="sklearn",
-        objective=str(estimator.criterion),
-        source=source,
-        metadata=meta,
+        provenance=_provenance(estimator, source, str(estimator.criterion), importance_pooling=_POOL_NORMALISED),
+        generic_feature_names=generic,
     )
 
 
@@ -231,7 +292,7 @@ def _boosting_base_score(estimator: Any, source: str) -> np.ndarray:
     # A constant init predicts the same for any row, so one all-zero row yields
     # the intercept through scikit-learn's own link.
     row = np.zeros((1, int(estimator.n_features_in_)), dtype=np.float32)
-    base = np.asarray(estimator._raw_predict_init(row), dtype=np.float64).ravel()
+    base = np.asarray(_private(estimator, "_raw_predict_init", source)(row), dtype=np.float64).ravel()
     if not np.all(np.isfinite(base)):
         raise UnsupportedModelError(
             f"{source}: the init estimator's raw prediction is not finite ({base}); treeprobe needs a finite intercept"
@@ -240,8 +301,6 @@ def _boosting_base_score(estimator: Any, source: str) -> np.ndarray:
 
 
 def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
-    from sklearn.base import is_classifier
-
     names, generic = _feature_names(estimator)
     stages = estimator.estimators_
     n_stages, n_per_stage = stages.shape
@@ -253,9 +312,8 @@ def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
     base = _boosting_base_score(estimator, source)
     weight = np.full(n_stages * n_per_stage, float(estimator.learning_rate))
     loss = str(estimator.loss)
-    meta = _common_metadata(estimator, generic)
-    meta["importance_pooling"] = _POOL_RAW
-    if not is_classifier(estimator):
+    margin_scale = 1.0
+    if not _is_classifier(estimator):
         link = "identity"
     elif n_per_stage > 1:
         link = "softmax"
@@ -266,7 +324,7 @@ def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
             # through expit(2 f); doubling the margin lets the logit link apply.
             base = 2.0 * base
             weight = 2.0 * weight
-            meta["margin_scale"] = 2.0
+            margin_scale = 2.0
     return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
@@ -279,10 +337,8 @@ def _from_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
         link=link,
         threshold_rule="<=",
         split_dtype="float32",
-        library="sklearn",
-        objective=loss,
-        source=source,
-        metadata=meta,
+        provenance=_provenance(estimator, source, loss, importance_pooling=_POOL_RAW, margin_scale=margin_scale),
+        generic_feature_names=generic,
     )
 
 
@@ -293,10 +349,10 @@ def _bitset_members(words: np.ndarray) -> np.ndarray:
     return np.flatnonzero(bits.ravel())
 
 
-def _hist_column_map(estimator: Any) -> np.ndarray:
+def _hist_column_map(estimator: Any, source: str) -> np.ndarray:
     """Original column of every column the trees see (the preprocessor puts categorical columns first)."""
     n_features = int(estimator.n_features_in_)
-    pre = getattr(estimator, "_preprocessor", None)
+    pre = _private(estimator, "_preprocessor", source)
     if pre is None:
         return np.arange(n_features)
     original = np.full(n_features, -1, dtype=np.int64)
@@ -319,11 +375,11 @@ def _hist_category_levels(estimator: Any, names: tuple[str, ...], source: str) -
     (strings, a pandas ``category`` column) are numbered by position, and their
     labels are returned so callers can encode data the same way.
     """
-    pre = getattr(estimator, "_preprocessor", None)
+    pre = _private(estimator, "_preprocessor", source)
     if pre is None:
         return {}, {}
     encoder = pre.named_transformers_["encoder"]
-    encoder_columns = _hist_column_map(estimator)[pre.output_indices_["encoder"]]
+    encoder_columns = _hist_column_map(estimator, source)[pre.output_indices_["encoder"]]
     from_dtype = isinstance(estimator.categorical_features, str)
     code_values: dict[int, np.ndarray] = {}
     labels: dict[str, list] = {}
@@ -351,7 +407,7 @@ def _hist_category_levels(estimator: Any, names: tuple[str, ...], source: str) -
     return code_values, labels
 
 
-def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, code_values: dict) -> dict:
+def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, code_values: dict, source: str) -> dict:
     """Per-node arrays of one ``TreePredictor``, categorical splits normalised to the common semantics.
 
     scikit-learn sends a category left when it is in the split's left bitset,
@@ -361,7 +417,7 @@ def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, c
     bitset (``category_left=True``) when missing goes right, makes every
     unlisted value follow the missing-value branch, as scikit-learn does.
     """
-    nodes = predictor.nodes
+    nodes = _private(predictor, "nodes", source)
     is_leaf = nodes["is_leaf"].astype(bool)
     inner = ~is_leaf
     is_cat = nodes["is_categorical"].astype(bool) & inner
@@ -371,7 +427,7 @@ def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, c
     category_left = np.ones(nodes.shape[0], bool)
     for i in np.flatnonzero(is_cat):
         column = int(feature[i])
-        left_codes = _bitset_members(predictor.raw_left_cat_bitsets[nodes["bitset_idx"][i]])
+        left_codes = _bitset_members(_private(predictor, "raw_left_cat_bitsets", source)[nodes["bitset_idx"][i]])
         if missing_left[i]:
             listed = np.setdiff1d(known_codes[column], left_codes)
             category_left[i] = False
@@ -395,47 +451,44 @@ def _hist_tree_nodes(predictor: Any, column_of: np.ndarray, known_codes: dict, c
 
 
 def _from_hist_gradient_boosting(estimator: Any, *, source: str) -> ForestGraph:
-    from sklearn.base import is_classifier
-    from sklearn.ensemble._hist_gradient_boosting.common import X_DTYPE
-
+    x_dtype = _private_module_attribute("sklearn.ensemble._hist_gradient_boosting.common", "X_DTYPE")
     names, generic = _feature_names(estimator)
-    column_of = _hist_column_map(estimator)
+    column_of = _hist_column_map(estimator, source)
     code_values, labels = _hist_category_levels(estimator, names, source)
     is_categorical = estimator.is_categorical_
     cat_columns = np.zeros(len(names), bool) if is_categorical is None else np.asarray(is_categorical, bool)
     known_codes: dict[int, np.ndarray] = {}
     if cat_columns.any():
-        thresholds = estimator._bin_mapper.bin_thresholds_
+        thresholds = _private(estimator, "_bin_mapper", source).bin_thresholds_
         for model_column, column in enumerate(column_of):
             if cat_columns[column]:
                 known_codes[int(column)] = np.asarray(thresholds[model_column]).astype(np.int64)
-    predictors = [p for iteration in estimator._predictors for p in iteration]
+    iterations = _private(estimator, "_predictors", source)
+    predictors = [p for iteration in iterations for p in iteration]
     n_per_iteration = int(estimator.n_trees_per_iteration_)
-    nodes = _stack_trees([_hist_tree_nodes(p, column_of, known_codes, code_values) for p in predictors])
+    nodes = _stack_trees([_hist_tree_nodes(p, column_of, known_codes, code_values, source) for p in predictors])
     loss = str(estimator.loss)
-    if not is_classifier(estimator):
+    if not _is_classifier(estimator):
         link = "log" if loss in _LOG_LINK_LOSSES else "identity"
     else:
         link = "softmax" if n_per_iteration > 1 else "logit"
-    meta = _common_metadata(estimator, generic)
-    if labels:
-        meta["category_levels"] = labels
     return ForestGraph.from_arrays(
         **nodes,
         local_children=True,
         feature_names=names,
         feature_types=["categorical" if c else "numeric" for c in cat_columns],
-        output_of_tree=np.tile(np.arange(n_per_iteration), len(estimator._predictors)),
+        output_of_tree=np.tile(np.arange(n_per_iteration), len(iterations)),
         tree_weight=np.ones(len(predictors)),
-        base_score=np.asarray(estimator._baseline_prediction, dtype=np.float64).ravel(),
+        base_score=np.asarray(_private(estimator, "_baseline_prediction", source), dtype=np.float64).ravel(),
         n_outputs=n_per_iteration,
         link=link,
         threshold_rule="<=",
-        split_dtype=np.dtype(X_DTYPE).name,
-        library="sklearn",
-        objective=loss,
-        source=source,
-        metadata=meta,
+        split_dtype=np.dtype(x_dtype).name,
+        provenance=_provenance(estimator, source, loss),
+        category_levels=labels,
+        unseen_category="missing",
+        negative_category="none",
+        generic_feature_names=generic,
     )
 
 
@@ -459,11 +512,11 @@ def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
     -------
     ForestGraph
         With ``library="sklearn"``; ``objective`` is the criterion (trees,
-        forests) or the loss (boosting); ``metadata`` holds ``estimator`` (class
-        name), ``params`` (JSON-serialisable ``get_params()``), ``classes``
-        for classifiers, ``importance_pooling`` for estimators with
-        ``feature_importances_`` and ``category_levels`` for histogram boosting
-        with non-integer categories.
+        forests) or the loss (boosting); ``provenance`` holds ``estimator`` (class
+        name), ``stored_params`` (JSON-serialisable ``get_params()``),
+        ``class_labels`` for classifiers, ``importance_pooling`` for estimators
+        with ``feature_importances_``; ``category_levels`` holds the levels of
+        histogram boosting's non-integer categories.
 
     Raises
     ------
@@ -486,7 +539,7 @@ def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
       output ``k``; links "logit" and "softmax" for binary and multiclass);
       with ``loss="exponential"`` the raw output is twice
       ``decision_function``, because scikit-learn's probability is
-      ``expit(2 f)`` (``metadata["margin_scale"] = 2``);
+      ``expit(2 f)`` (``provenance.margin_scale = 2``);
     * ``HistGradientBoosting*``: ``decision_function`` / ``predict`` before
       the inverse link (link "log" for the poisson and gamma losses).
 
@@ -506,7 +559,7 @@ def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
     Other levels (strings; any pandas ``category`` column picked by
     ``categorical_features="from_dtype"``) are numbered by their position in
     the sorted levels seen at fit time, listed in
-    ``metadata["category_levels"]``; data must be encoded the same way.
+    ``ForestGraph.category_levels``; data must be encoded the same way.
     A non-integer value of a categorical column is truncated to an integer,
     where scikit-learn treats it as unseen.
 
@@ -536,7 +589,8 @@ def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
         HistGradientBoostingClassifier,
         HistGradientBoostingRegressor,
     )
-    from sklearn.ensemble._forest import ForestClassifier, ForestRegressor
+    forest_classes = tuple(_private_module_attribute("sklearn.ensemble._forest", name)
+                           for name in ("ForestClassifier", "ForestRegressor"))
     from sklearn.pipeline import Pipeline
     from sklearn.tree import BaseDecisionTree
 
@@ -546,7 +600,7 @@ def from_sklearn(estimator: Any, *, source: str) -> ForestGraph:
             f"{source}: got a Pipeline; pass its final step (pipeline[-1]) and transform the data with "
             "pipeline[:-1].transform(X) yourself before analysing it"
         )
-    forest = isinstance(estimator, (ForestClassifier, ForestRegressor))
+    forest = isinstance(estimator, forest_classes)
     boosted = isinstance(estimator, (GradientBoostingClassifier, GradientBoostingRegressor))
     histogram = isinstance(estimator, (HistGradientBoostingClassifier, HistGradientBoostingRegressor))
     single = isinstance(estimator, BaseDecisionTree)
@@ -572,7 +626,7 @@ def sklearn_feature_importances(ensemble: ForestGraph) -> np.ndarray:
     ----------
     ensemble : ForestGraph
         Built by :func:`from_sklearn` from a tree, forest or classic gradient
-        boosting estimator (``metadata["importance_pooling"]`` present).
+        boosting estimator (``provenance.importance_pooling`` set).
 
     Returns
     -------
@@ -616,11 +670,11 @@ def sklearn_feature_importances(ensemble: ForestGraph) -> np.ndarray:
     """
     if not isinstance(ensemble, ForestGraph):
         raise TypeError(f"ensemble must be a ForestGraph, got {type(ensemble).__name__}")
-    pooling = ensemble.metadata.get("importance_pooling")
+    pooling = ensemble.provenance.importance_pooling
     if pooling not in (_POOL_NORMALISED, _POOL_RAW):
         raise UnsupportedModelError(
             f"{ensemble.source}: scikit-learn has no impurity importances for this model "
-            f"({ensemble.library} {ensemble.metadata.get('estimator', '')}); "
+            f"({ensemble.library} {ensemble.provenance.estimator}); "
             "use ensemble.feature_totals() for gain sums"
         )
     inner = ~ensemble.is_leaf

@@ -32,9 +32,8 @@ object it is given.
 
 Limits: a categorical value is the category's integer code in the training
 data's category list. XGBoost >= 3.1 stores that list (kept here as
-``metadata["category_names"]`` and ``metadata["category_levels"]``) and
-re-codes pandas categories by name when predicting, as
-:meth:`ForestGraph.check_X` then does; for older files give data whose
+``ForestGraph.category_levels``) and re-codes pandas categories by name when
+predicting, as :func:`treeprobe.data.model_matrix` then does; for older files give data whose
 categorical columns use the training categories in the training order, or
 integer codes. Linear boosters
 (``gblinear``) have no trees and are refused.
@@ -55,7 +54,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import ModelFormatError, UnsupportedModelError
-from ..graph import ForestGraph
+from ..graph import ForestGraph, Provenance
 from .ubjson import decode_ubjson
 
 __all__ = ["load_xgboost_json", "load_xgboost_ubjson", "from_xgboost"]
@@ -578,26 +577,26 @@ def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> Fores
             kinds[j] = "categorical"
     gbtree_param = model.get("gbtree_model_param", {})
     attributes = learner.get("attributes", {})
-    metadata = {
-        "format": file_format,
-        "xgboost_version": _version_string(doc.get("version")),
-        "booster": booster_name,
-        "num_parallel_tree": _int_param(gbtree_param, "num_parallel_tree", "gbtree_model_param", source, 1)
-        if isinstance(gbtree_param, dict) else 1,
-        "base_score_stored": params["stored_base"].tolist(),
-        "num_class": params["n_class"],
-        "num_target": params["n_target"],
-        "attributes": dict(attributes) if isinstance(attributes, dict) else {},
-        "generic_feature_names": names is None,
-        "pruned_nodes_dropped": nodes["pruned_nodes_dropped"],
-    }
-    category_names = _category_names(model, names) if names is not None else {}
-    if category_names:
-        metadata["category_names"] = category_names
-        # check_X codes pandas categories by these labels, as XGBoost >= 3.1 does.
-        metadata["category_levels"] = category_names
-        # XGBoost codes an unseen label as no known category: it takes the unlisted branch, not the missing one.
-        metadata["unseen_category"] = "unlisted"
+    parallel = (_int_param(gbtree_param, "num_parallel_tree", "gbtree_model_param", source, 1)
+                if isinstance(gbtree_param, dict) else 1)
+    provenance = Provenance(
+        library="xgboost",
+        library_version=_version_string(doc.get("version")) or "",
+        objective=params["objective"],
+        source=source,
+        stored_params={
+            "booster": booster_name,
+            "num_parallel_tree": parallel,
+            "base_score": params["stored_base"].tolist(),
+            "num_class": params["n_class"],
+            "num_target": params["n_target"],
+            "attributes": dict(attributes) if isinstance(attributes, dict) else {},
+        },
+        file_format=file_format,
+        pruned_nodes_dropped=nodes["pruned_nodes_dropped"],
+    )
+    # check_X codes pandas categories by these labels, as XGBoost >= 3.1 does.
+    category_levels = _category_names(model, names) if names is not None else {}
     return ForestGraph.from_arrays(
         feature=nodes["feature"],
         threshold=nodes["threshold"],
@@ -622,10 +621,13 @@ def _ensemble_from_document(doc: Any, *, source: str, file_format: str) -> Fores
         link=params["link"],
         threshold_rule="<",
         split_dtype="float32",
-        library="xgboost",
-        objective=params["objective"],
-        source=source,
-        metadata=metadata,
+        provenance=provenance,
+        category_levels=category_levels,
+        # XGBoost codes an unseen label as no known category: it takes the unlisted branch, not the missing one.
+        unseen_category="unlisted",
+        negative_category="none",
+        generic_feature_names=names is None,
+        trees_per_round=max(int(parallel), 1),
     )
 
 

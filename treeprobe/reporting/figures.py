@@ -426,11 +426,7 @@ def draw_arc_diagram(canvas: Canvas, layout: ArcLayout) -> Any:
 
 # ------------------------------------------------------------------ dependence
 def _category_labels(graph: ForestGraph, feature: int) -> list[str] | None:
-    # The typed field of the graph contract; the metadata dict serves until that field lands on main.
-    levels_of = getattr(graph, "category_levels", None)
-    if levels_of is None:
-        levels_of = graph.metadata.get("category_levels") or {}
-    levels = levels_of.get(graph.feature_names[feature])
+    levels = graph.category_levels.get(graph.feature_names[feature])
     return [str(level) for level in levels] if levels is not None else None
 
 
