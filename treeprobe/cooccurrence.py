@@ -35,15 +35,25 @@ from __future__ import annotations
 import string
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from functools import lru_cache
-from itertools import combinations
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from .checks import check_int
+from .errors import ParameterError
 from .graph import ForestGraph
+from .io import load_model
+from .paths import (
+    ancestor_masks,
+    decode_sets,
+    depth_levels,
+    encode_sets,
+    mask_members,
+    member_subsets,
+    parent_links,
+    tree_nodes,
+)
 
 __all__ = ["StructureResult", "structure", "structure_by_round", "MAX_ORDER", "LIMITS"]
 
@@ -62,20 +72,8 @@ LIMITS = (
 
 
 # --------------------------------------------------------------------- validation
-def _as_ensemble(ensemble: Any) -> ForestGraph:
-    if isinstance(ensemble, ForestGraph):
-        return ensemble
-    from .io import load_model
-
-    return load_model(ensemble)
-
-
 def _check_order(value: Any, name: str) -> int:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
-        raise DataError(f"{name} must be an integer in 2..{MAX_ORDER}, got {value!r}")
-    if not 2 <= value <= MAX_ORDER:
-        raise DataError(f"{name} must lie in 2..{MAX_ORDER}, got {value}")
-    return int(value)
+    return check_int(name, value, low=2, high=MAX_ORDER)
 
 
 def _selected_trees(ensemble: ForestGraph, trees: Any, output: Any) -> np.ndarray:
@@ -88,46 +86,26 @@ def _selected_trees(ensemble: ForestGraph, trees: Any, output: Any) -> np.ndarra
     else:
         raw = np.asarray(trees)
         if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
-            raise DataError(f"trees must be a slice, a range or a 1-D sequence of tree indices, got {trees!r}")
+            raise ParameterError(f"trees must be a slice, a range or a 1-D sequence of tree indices, got {trees!r}")
         chosen = raw.astype(np.int64)
         bad = (chosen < 0) | (chosen >= n_trees)
         if bad.any():
-            raise DataError(f"trees holds index {int(chosen[bad][0])}; the model has trees 0..{n_trees - 1}")
+            raise ParameterError(f"trees holds index {int(chosen[bad][0])}; the model has trees 0..{n_trees - 1}")
         if np.unique(chosen).size != chosen.size:
-            raise DataError("trees lists a tree more than once; each tree can be walked once")
+            raise ParameterError("trees lists a tree more than once; each tree can be walked once")
     if output is not None:
         if isinstance(output, (bool, np.bool_)) or not isinstance(output, (int, np.integer)):
-            raise DataError(f"output must be an integer output index or None, got {output!r}")
+            raise ParameterError(f"output must be an integer output index or None, got {output!r}")
         if not 0 <= output < ensemble.n_outputs:
-            raise DataError(f"output must lie in 0..{ensemble.n_outputs - 1}, got {output}")
+            raise ParameterError(f"output must lie in 0..{ensemble.n_outputs - 1}, got {output}")
         chosen = np.intersect1d(chosen, ensemble.trees_of_output(int(output)))
     chosen = np.sort(chosen)
     if chosen.size == 0:
-        raise DataError(f"the selection trees={trees!r}, output={output!r} holds no tree of the model's {n_trees}")
+        raise ParameterError(f"the selection trees={trees!r}, output={output!r} holds no tree of the model's {n_trees}")
     return chosen
 
 
 # --------------------------------------------------------------------- helpers
-def _parents(ensemble: ForestGraph) -> np.ndarray:
-    parent = np.full(ensemble.n_nodes, -1, dtype=np.int64)
-    inner = np.flatnonzero(ensemble.feature >= 0)
-    parent[ensemble.left[inner]] = inner
-    parent[ensemble.right[inner]] = inner
-    return parent
-
-
-def _node_range(starts: np.ndarray, sizes: np.ndarray) -> np.ndarray:
-    """Concatenation of ``arange(start, start + size)`` for every pair, without a Python loop."""
-    ends = np.cumsum(sizes)
-    return np.repeat(starts - (ends - sizes), sizes) + np.arange(ends[-1] if ends.size else 0)
-
-
-@lru_cache(maxsize=256)
-def _combination_table(n_items: int, size: int) -> np.ndarray:
-    table = np.array(list(combinations(range(n_items), size)), dtype=np.int64)
-    return table.reshape(-1, size)
-
-
 def _group_sorted(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Sort rows of a 2-D unsigned array; return the order and the start of every group of equal rows."""
     order = np.lexsort(columns.T[::-1])
@@ -135,48 +113,6 @@ def _group_sorted(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     new = np.ones(len(order), dtype=bool)
     new[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
     return order, np.flatnonzero(new)
-
-
-def _mask_bits(masks: np.ndarray, n_bits: int) -> np.ndarray:
-    """Boolean (rows x n_bits) matrix of the bits set in uint64 masks, bit b of word w = item 64 w + b."""
-    as_bytes = np.ascontiguousarray(masks.astype("<u8", copy=False)).view(np.uint8)
-    return np.unpackbits(as_bytes, axis=1, bitorder="little")[:, :n_bits].astype(bool)
-
-
-def _subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
-    """Every ``size``-subset of the set items of every row.
-
-    Returns the owning row of each subset and its members (ascending), shape (n, size).
-    Rows are grouped by their item count so that each group is one fancy-indexing step
-    through a table of index combinations.
-    """
-    counts = bits.sum(axis=1)
-    rows, items = np.nonzero(bits)
-    starts = np.cumsum(counts) - counts
-    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
-    for n_items in np.unique(counts[counts >= size]):
-        owners = np.flatnonzero(counts == n_items)
-        members = items[starts[owners][:, None] + np.arange(n_items)]
-        table = _combination_table(int(n_items), size)
-        owner_parts.append(np.repeat(owners, table.shape[0]))
-        member_parts.append(members[:, table].reshape(-1, size))
-    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
-
-
-def _encode(members: np.ndarray, radix: int) -> np.ndarray:
-    key = np.zeros(members.shape[0], dtype=np.int64)
-    for column in members.T:
-        key = key * radix + column
-    return key
-
-
-def _decode(key: np.ndarray, radix: int, size: int) -> np.ndarray:
-    members = np.empty((key.size, size), dtype=np.int64)
-    rest = key.copy()
-    for position in range(size - 1, -1, -1):
-        members[:, position] = rest % radix
-        rest //= radix
-    return members
 
 
 @dataclass
@@ -279,9 +215,7 @@ def _walk(
     Returns the records of every order 2..max_order and, per used feature (by rank),
     the number of leaves whose path splits on it.
     """
-    n_words = max(1, -(-n_used // 64))
-    parent = _parents(ensemble)
-    depth = ensemble.depth
+    parent, _ = parent_links(ensemble)
     sizes = (ensemble.tree_offsets[walked + 1] - ensemble.tree_offsets[walked]).astype(np.int64)
     chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
     boundaries = np.append(np.flatnonzero(np.diff(chunk_of_tree, prepend=-1)), walked.size)
@@ -290,22 +224,14 @@ def _walk(
     one = np.uint64(1)
     for first, stop in zip(boundaries[:-1], boundaries[1:], strict=True):
         positions = np.arange(first, stop)
-        nodes = _node_range(ensemble.tree_offsets[walked[positions]], sizes[positions])
+        nodes = tree_nodes(ensemble, walked[positions])
         node_position = np.repeat(positions, sizes[positions])
         rank = np.where(ensemble.feature[nodes] >= 0, feature_rank[np.maximum(ensemble.feature[nodes], 0)], -1)
-        node_depth = depth[nodes].astype(np.int64)
+        node_depth = ensemble.depth[nodes].astype(np.int64)
         local_parent = np.searchsorted(nodes, parent[nodes])
         is_leaf = rank < 0
-        by_depth = np.argsort(node_depth, kind="stable")
-        level_start = np.searchsorted(node_depth[by_depth], np.arange(node_depth.max() + 2))
-        levels = [by_depth[level_start[d]:level_start[d + 1]] for d in range(node_depth.max() + 1)]
-
-        # Path masks top-down: a node's mask is its parent's plus the parent's feature.
-        masks = np.zeros((nodes.size, n_words), dtype=np.uint64)
-        for members in levels[1:]:
-            up = local_parent[members]
-            masks[members] = masks[up]
-            masks[members, rank[up] >> 6] |= one << (rank[up] & 63).astype(np.uint64)
+        levels = depth_levels(node_depth)
+        masks = ancestor_masks(local_parent, rank, levels, n_used)
 
         # Leaf count and leaf weight of every subtree, bottom-up.
         below_leaves = is_leaf.astype(np.int64)
@@ -340,14 +266,14 @@ def _walk(
         group_leaves = np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts)
         group_weight = np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts)
         group_depth = np.minimum.reduceat(node_depth[split_nodes][order], starts) + 1
-        ancestor_bits = _mask_bits(ancestors[order][starts], n_used)
+        ancestor_bits = mask_members(ancestors[order][starts], n_used)
 
         for size in range(2, max_order + 1):
-            owner, others = _subsets(ancestor_bits, size - 1)
+            owner, others = member_subsets(ancestor_bits, size - 1)
             members = np.sort(np.column_stack([others, group_feature[owner]]), axis=1)
             parts[size].append(
                 _aggregate_chunk(
-                    key=_encode(members, n_used),
+                    key=encode_sets(members, n_used),
                     bucket_of_position=bucket_of_position,
                     position=group_position[owner],
                     paths=group_leaves[owner],
@@ -362,12 +288,12 @@ def _walk(
 
 def _prepare(ensemble: ForestGraph, walked: np.ndarray, max_order: int) -> tuple[np.ndarray, np.ndarray, int]:
     """Dense ranks of the features the walked trees split on, so masks and keys stay small."""
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     used = np.unique(ensemble.feature[nodes][ensemble.feature[nodes] >= 0])
     rank = np.full(ensemble.n_features, -1, dtype=np.int64)
     rank[used] = np.arange(used.size)
     if used.size and float(used.size) ** max_order >= 2.0**62:
-        raise DataError(
+        raise ParameterError(
             f"max_order={max_order} is too high for {used.size} used features (set keys would overflow); lower it"
         )
     return used, rank, int(used.size)
@@ -381,7 +307,7 @@ def _set_frame(
     walked: np.ndarray,
     total_cover: float,
 ) -> pd.DataFrame:
-    members = used[_decode(records.key, max(used.size, 1), size)] if records.key.size else np.zeros((0, size), np.int64)
+    members = used[decode_sets(records.key, max(used.size, 1), size)] if records.key.size else np.zeros((0, size), np.int64)
     names = np.asarray(ensemble.feature_names, dtype=object)
     order = np.lexsort((records.key, -records.paths, -records.nested_gain))
     frame = {_MEMBER_COLUMNS[i]: names[members[order, i]] for i in range(size)}
@@ -398,7 +324,7 @@ def _set_frame(
 
 
 def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     position = np.repeat(np.arange(walked.size), np.diff(ensemble.tree_offsets)[walked])
     inner = ensemble.feature[nodes] >= 0
     split_nodes = nodes[inner]
@@ -429,7 +355,7 @@ def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.nda
 
 
 def _total_leaf_cover(ensemble: ForestGraph, walked: np.ndarray) -> tuple[float, str, np.ndarray]:
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     leaves = nodes[ensemble.feature[nodes] < 0]
     weight, basis = _leaf_weights(ensemble, leaves)
     per_position = np.bincount(
@@ -504,7 +430,7 @@ class StructureResult:
             return self.triples
         if order in self.sets:
             return self.sets[order]
-        raise DataError(f"order must lie in 1..{self.max_order} for this result, got {order!r}")
+        raise ParameterError(f"order must lie in 1..{self.max_order} for this result, got {order!r}")
 
     def to_dict(self) -> dict:
         """A JSON-ready dict; see the schema in :func:`structure`."""
@@ -594,7 +520,7 @@ def structure(
 
     Raises
     ------
-    DataError
+    ParameterError
         For an invalid ``max_order``, ``trees`` or ``output``.
     ModelFormatError
         When ``ensemble`` is a model file or object that cannot be read.
@@ -647,9 +573,9 @@ def structure(
     >>> result = structure(ens, max_order=2)
     >>> result.pairs[["feature_a", "feature_b", "paths", "cover_share", "nested_gain", "first_level"]]
         feature_a     feature_b  paths  cover_share  nested_gain  first_level
-    0  fuel_price  shift_length      2          0.5          4.0          2
+    0  fuel_price  shift_length      2          0.5          4.0            2
     """
-    ensemble = _as_ensemble(ensemble)
+    ensemble = load_model(ensemble)
     max_order = _check_order(max_order, "max_order")
     walked = _selected_trees(ensemble, trees, output)
     used, rank, n_used = _prepare(ensemble, walked, max_order)
@@ -737,16 +663,13 @@ def structure_by_round(
        round   feature_a     feature_b  paths  first_round
     0      1  fuel_price  shift_length      2            1
     """
-    ensemble = _as_ensemble(ensemble)
+    ensemble = load_model(ensemble)
     max_order = _check_order(max_order, "max_order")
     walked = _selected_trees(ensemble, None, output)
     tree_round = walked // _trees_per_round(ensemble)
     rounds, round_of_position = np.unique(tree_round, return_inverse=True)
     n_rounds = rounds.size
-    if step is None:
-        step = max(1, -(-n_rounds // 100))
-    elif isinstance(step, (bool, np.bool_)) or not isinstance(step, (int, np.integer)) or step < 1:
-        raise DataError(f"step must be a positive integer, got {step!r}")
+    step = max(1, -(-n_rounds // 100)) if step is None else check_int("step", step, low=1)
     checkpoints = np.unique(np.append(np.arange(step - 1, n_rounds, step), n_rounds - 1))
     checkpoint_of_round = np.searchsorted(checkpoints, np.arange(n_rounds))
     used, rank, n_used = _prepare(ensemble, walked, max_order)
@@ -769,7 +692,7 @@ def structure_by_round(
         first_position = np.full(n_sets, walked.size, dtype=np.int64)
         np.minimum.at(first_position, set_of_row, rec.first_position)
         present_set, present_check = np.nonzero(dense["paths"] > 0)
-        members = used[_decode(set_ids, max(n_used, 1), size)][present_set]
+        members = used[decode_sets(set_ids, max(n_used, 1), size)][present_set]
         frame = {"round": rounds[checkpoints[present_check]], "order": np.full(present_set.size, size)}
         for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
             frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
