@@ -195,6 +195,83 @@ def _leaf_weights(ensemble: ForestGraph, leaves: np.ndarray) -> tuple[np.ndarray
     return np.full(leaves.size, np.nan), "unknown"
 
 
+def _subtree_totals(
+    ensemble: ForestGraph, nodes: np.ndarray, is_leaf: np.ndarray, levels: list[np.ndarray]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Leaf count and leaf weight below every node of a chunk of whole trees, bottom-up."""
+    below_leaves = is_leaf.astype(np.int64)
+    below_weight = np.zeros(nodes.size)
+    below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
+    local_left = np.searchsorted(nodes, ensemble.left[nodes])
+    local_right = np.searchsorted(nodes, ensemble.right[nodes])
+    for members in levels[-2::-1]:
+        inner = members[~is_leaf[members]]
+        below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
+        below_weight[inner] = below_weight[local_left[inner]] + below_weight[local_right[inner]]
+    return below_leaves, below_weight
+
+
+@dataclass
+class _SplitGroups:
+    """Split nodes of one chunk merged by (tree, feature, ancestor features other than the node's own).
+
+    ``leaves`` and ``weight`` count only nodes where the feature completes on the
+    path (it is not among the ancestors); ``leaf_paths`` is per used feature.
+    """
+
+    position: np.ndarray
+    feature: np.ndarray
+    gain: np.ndarray
+    leaves: np.ndarray
+    weight: np.ndarray
+    depth: np.ndarray
+    ancestor_bits: np.ndarray
+    leaf_paths: np.ndarray
+
+    @classmethod
+    def of_chunk(cls, ensemble, nodes, node_position, rank, masks, below_leaves, below_weight, n_used) -> _SplitGroups:
+        one = np.uint64(1)
+        split_nodes = np.flatnonzero(rank >= 0)
+        split_rank = rank[split_nodes]
+        word, bit = split_rank >> 6, one << (split_rank & 63).astype(np.uint64)
+        ancestors = masks[split_nodes]
+        row = np.arange(split_nodes.size)
+        completes = (ancestors[row, word] & bit) == 0
+        ancestors[row, word] &= ~bit
+        leaf_paths = np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
+                                 minlength=n_used).astype(np.int64)
+        order, starts = _group_sorted(
+            np.column_stack([node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors])
+        )
+        if starts.size == 0:
+            empty = np.zeros(0, np.int64)
+            return cls(empty, empty, np.zeros(0), empty, np.zeros(0), empty, np.zeros((0, n_used), bool), leaf_paths)
+        return cls(
+            position=node_position[split_nodes][order][starts],
+            feature=split_rank[order][starts],
+            gain=np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts),
+            leaves=np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts),
+            weight=np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts),
+            depth=np.minimum.reduceat(ensemble.depth[nodes[split_nodes]].astype(np.int64)[order], starts) + 1,
+            ancestor_bits=mask_members(ancestors[order][starts], n_used),
+            leaf_paths=leaf_paths,
+        )
+
+    def records(self, size: int, bucket_of_position: np.ndarray, n_used: int) -> _SetRecords:
+        """Records of the ``size``-sets ``{feature} + T``, ``T`` among the ancestors, of every group."""
+        owner, others = member_subsets(self.ancestor_bits, size - 1)
+        members = np.sort(np.column_stack([others, self.feature[owner]]), axis=1)
+        return _aggregate_chunk(
+            key=encode_sets(members, n_used),
+            bucket_of_position=bucket_of_position,
+            position=self.position[owner],
+            paths=self.leaves[owner],
+            leaf_cover=self.weight[owner],
+            nested_gain=self.gain[owner],
+            depth=self.depth[owner],
+        )
+
+
 def _walk(
     ensemble: ForestGraph,
     walked: np.ndarray,
@@ -221,67 +298,20 @@ def _walk(
     boundaries = np.append(np.flatnonzero(np.diff(chunk_of_tree, prepend=-1)), walked.size)
     parts: dict[int, list[_SetRecords]] = {k: [] for k in range(2, max_order + 1)}
     leaf_paths = np.zeros(n_used, dtype=np.int64)
-    one = np.uint64(1)
     for first, stop in zip(boundaries[:-1], boundaries[1:], strict=True):
         positions = np.arange(first, stop)
         nodes = tree_nodes(ensemble, walked[positions])
-        node_position = np.repeat(positions, sizes[positions])
         rank = np.where(ensemble.feature[nodes] >= 0, feature_rank[np.maximum(ensemble.feature[nodes], 0)], -1)
-        node_depth = ensemble.depth[nodes].astype(np.int64)
-        local_parent = np.searchsorted(nodes, parent[nodes])
-        is_leaf = rank < 0
-        levels = depth_levels(node_depth)
-        masks = ancestor_masks(local_parent, rank, levels, n_used)
-
-        # Leaf count and leaf weight of every subtree, bottom-up.
-        below_leaves = is_leaf.astype(np.int64)
-        below_weight = np.zeros(nodes.size)
-        below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
-        local_left = np.searchsorted(nodes, ensemble.left[nodes])
-        local_right = np.searchsorted(nodes, ensemble.right[nodes])
-        for members in levels[-2::-1]:
-            inner = members[~is_leaf[members]]
-            below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
-            below_weight[inner] = below_weight[local_left[inner]] + below_weight[local_right[inner]]
-
-        split_nodes = np.flatnonzero(~is_leaf)
-        split_rank = rank[split_nodes]
-        word, bit = split_rank >> 6, one << (split_rank & 63).astype(np.uint64)
-        ancestors = masks[split_nodes]
-        row = np.arange(split_nodes.size)
-        completes = (ancestors[row, word] & bit) == 0
-        ancestors[row, word] &= ~bit
-        leaf_paths += np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
-                                  minlength=n_used).astype(np.int64)
-
-        split_rows = np.column_stack(
-            [node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors]
-        )
-        order, starts = _group_sorted(split_rows)
-        if starts.size == 0:
+        levels = depth_levels(ensemble.depth[nodes])
+        masks = ancestor_masks(np.searchsorted(nodes, parent[nodes]), rank, levels, n_used)
+        below_leaves, below_weight = _subtree_totals(ensemble, nodes, rank < 0, levels)
+        split = _SplitGroups.of_chunk(ensemble, nodes, np.repeat(positions, sizes[positions]), rank, masks,
+                                      below_leaves, below_weight, n_used)
+        leaf_paths += split.leaf_paths
+        if split.position.size == 0:
             continue
-        group_position = node_position[split_nodes][order][starts]
-        group_feature = split_rank[order][starts]
-        group_gain = np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts)
-        group_leaves = np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts)
-        group_weight = np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts)
-        group_depth = np.minimum.reduceat(node_depth[split_nodes][order], starts) + 1
-        ancestor_bits = mask_members(ancestors[order][starts], n_used)
-
         for size in range(2, max_order + 1):
-            owner, others = member_subsets(ancestor_bits, size - 1)
-            members = np.sort(np.column_stack([others, group_feature[owner]]), axis=1)
-            parts[size].append(
-                _aggregate_chunk(
-                    key=encode_sets(members, n_used),
-                    bucket_of_position=bucket_of_position,
-                    position=group_position[owner],
-                    paths=group_leaves[owner],
-                    leaf_cover=group_weight[owner],
-                    nested_gain=group_gain[owner],
-                    depth=group_depth[owner],
-                )
-            )
+            parts[size].append(split.records(size, bucket_of_position, n_used))
     records = {size: _SetRecords.concat(chunks).combined() for size, chunks in parts.items()}
     return records, leaf_paths
 
@@ -384,6 +414,9 @@ def _json_records(frame: pd.DataFrame) -> list[dict]:
 class StructureResult:
     """Path structure of the walked trees; see :func:`structure` for every column.
 
+    Tables have the same columns whatever ``max_order`` (an empty ``triples``
+    keeps its columns). ``==`` compares every table and fact.
+
     Attributes
     ----------
     features : DataFrame
@@ -419,6 +452,22 @@ class StructureResult:
     total_leaf_cover: float = float("nan")
     cover_basis: str = "unknown"
     max_order: int = 2
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, StructureResult):
+            return NotImplemented
+        facts = ("ensemble_summary", "n_trees_walked", "cover_basis", "max_order")
+        return (
+            all(getattr(self, name) == getattr(other, name) for name in facts)
+            and np.array_equal(self.tree_indices, other.tree_indices)
+            and (self.total_leaf_cover == other.total_leaf_cover
+                 or (np.isnan(self.total_leaf_cover) and np.isnan(other.total_leaf_cover)))
+            and all(getattr(self, name).equals(getattr(other, name)) for name in ("features", "pairs", "triples"))
+            and self.sets.keys() == other.sets.keys()
+            and all(self.sets[k].equals(other.sets[k]) for k in self.sets)
+        )
+
+    __hash__ = None  # type: ignore[assignment]
 
     def table(self, order: int) -> pd.DataFrame:
         """The set table of one order (1 gives ``features``)."""
@@ -582,15 +631,12 @@ def structure(
     total_cover, basis, _ = _total_leaf_cover(ensemble, walked)
     records, leaf_paths = _walk(ensemble, walked, np.zeros(walked.size, np.int64), max_order, rank, n_used)
     share_total = total_cover if basis != "unknown" else float("nan")
+    records.setdefault(3, _SetRecords.concat([]))
     tables = {size: _set_frame(ensemble, records[size], used, size, walked, share_total) for size in records}
-    empty_triples = pd.DataFrame({name: pd.Series(dtype=object) for name in _MEMBER_COLUMNS[:3]} | {
-        name: pd.Series(dtype=np.float64 if name in ("leaf_cover", "cover_share", "nested_gain") else np.int64)
-        for name in _SET_COLUMNS
-    })
     return StructureResult(
         features=_feature_frame(ensemble, walked, leaf_paths, used),
         pairs=tables[2],
-        triples=tables.get(3, empty_triples),
+        triples=tables[3],
         sets={size: frame for size, frame in tables.items() if size > 3},
         ensemble_summary=ensemble.summary(),
         n_trees_walked=int(walked.size),
