@@ -19,7 +19,9 @@ Two ways to get the partial dependence functions:
 * brute force, for any predictor: ``n`` predictions per point and set, so
   ``n^2`` per function (batched to bound memory, parallel over functions);
 * exact, for tree ensembles (:mod:`treeprobe.pdp` derives the leaf-wise form
-  ``F_S(z) = sum_L v_L prod_{j in S} C_Lj(z_j) w_L(S)``). Substituting it in
+  ``F_S(z) = sum_L v_L prod_{j in S} C_Lj(z_j) w_L(S)`` and owns the engine,
+  :func:`treeprobe.pdp.exact_parts`; this module turns its per-row parts into
+  statistics). Substituting it in
   eq. 44, a leaf whose path splits on ``j`` but not on ``k`` contributes the
   same term to ``F_jk`` and to ``F_j`` (its share ``w_L({j, k}) = w_L({j})``) and
   a constant to ``F_k``, so only leaves whose paths split on both features
@@ -41,8 +43,9 @@ values; when features are dependent this evaluates the model off the data and
 H-statistics may report interactions the model never uses on real rows.
 H-statistics describe the model, not the world: a model's interactions are not
 the data's, and neither is causation. H2 is a ratio: a large H2 on a tiny
-partial dependence is noise; read it beside ``h``. Values are estimates on the
-sampled rows.
+partial dependence is noise; read it beside ``h`` (tables rank by ``h``, and
+``h_negligible`` flags an ``h`` of at most 1% of the predictions' spread).
+Values are estimates on the sampled rows.
 
 References
 ----------
@@ -486,29 +489,41 @@ def h_statistic(
     random_state : int or None, default 0
         Seed of the row sample.
     output : int, optional
-        Output (class) of a multi-output model; None scores every output and adds
-        an ``output`` column.
+        Output (class) of a multi-output model; None scores every output. The
+        ``output`` column is there either way.
     scale : {"margin", "probability"}, default "margin"
         Raw margin (log-odds for classifiers, as in [1]_) or the link's scale
-        (probabilities; brute force through ``ForestGraph.predict``).
+        (probabilities; brute force through ``ForestGraph.predict``). Refused
+        for a model whose link is the identity (regression) or whose margin
+        already is a probability: there both scales agree and ``"margin"``
+        gets the exact engine.
     n_jobs : int, default 1
         Parallel jobs (joblib) over partial dependence functions (brute) or tree
         chunks (exact); -1 uses every core.
     progress : bool or None, default None
-        Progress line on stderr; None shows it only when stderr is a terminal.
+        Progress bar on stderr (:func:`treeprobe.progress.progress_bar`); None
+        shows it only when stderr is a terminal.
 
     Returns
     -------
     MeasureResult
-        Tables ``pairs``, ``against_rest`` and ``triples`` and the facts of the run.
+        Tables ``pairs``, ``against_rest`` and ``triples`` (fixed columns, see
+        :class:`MeasureResult`), each ranked by ``h`` descending within
+        ``output``, and the facts of the run. ``h_negligible`` marks rows with
+        ``h <= NEGLIGIBLE_H_SHARE * sd(prediction)`` (1%, our convention): such
+        an interaction moves predictions by a hundredth of their spread, whatever
+        its ``h2``.
 
     Raises
     ------
+    ParameterError
+        An invalid option, an unknown or repeated feature in ``pairs`` /
+        ``triples``, ``method="exact"`` for a callable or on the probability
+        scale, ``scale="probability"`` on an identity link.
     DataError
         Columns that do not match the model, fewer than 2 rows, an all-missing
-        column, an unknown feature in ``pairs``/``triples``, a predictor that
-        returns the wrong shape, or an invalid option. A constant column only
-        warns (its statistics are 0 or undefined).
+        column, or a predictor that returns the wrong shape. A constant column
+        only warns (its statistics are 0 or undefined).
 
     Notes
     -----

@@ -33,6 +33,13 @@ The engine below computes, per chunk of trees, the boolean matrix ``fail`` of
 shape (rows, path entries), one column per (leaf, distinct path feature), and the
 per-leaf failure counts; everything else is sums over those columns.
 
+This module owns both engines. :func:`partial_dependence` is the public entry
+point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
+of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
+``F - F_notj`` for H-statistics, from the tree structure) and
+:func:`brute_parts` (``F_S`` by averaging predictions), besides the row
+preparation helpers. Paths and parents come from :mod:`treeprobe.paths`.
+
 References
 ----------
 .. [1] J. H. Friedman, "Greedy function approximation: a gradient boosting
