@@ -653,6 +653,41 @@ def _trees_per_round(ensemble: ForestGraph) -> int:
     return (ensemble.n_outputs if per_class else 1) * max(parallel, 1)
 
 
+def _cumulative_frame(
+    rec: _SetRecords,
+    size: int,
+    max_order: int,
+    used: np.ndarray,
+    names: np.ndarray,
+    checkpoint_round: np.ndarray,
+    total_by_checkpoint: np.ndarray,
+    round_of_position: np.ndarray,
+) -> pd.DataFrame:
+    """Rows (checkpoint, set present by then) of one order, sums accumulated over the checkpoints."""
+    set_ids, set_of_row = np.unique(rec.key, return_inverse=True)
+    dense = {}
+    for name in ("paths", "trees", "leaf_cover", "nested_gain"):
+        grid = np.zeros((set_ids.size, checkpoint_round.size))
+        grid[set_of_row, rec.bucket] = getattr(rec, name)
+        dense[name] = np.cumsum(grid, axis=1)
+    # Every set has at least one record, so the minimum always replaces the start value.
+    first_position = np.full(set_ids.size, round_of_position.size - 1, dtype=np.int64)
+    np.minimum.at(first_position, set_of_row, rec.first_position)
+    present_set, present_check = np.nonzero(dense["paths"] > 0)
+    members = used[decode_sets(set_ids, max(used.size, 1), size)][present_set]
+    frame = {"round": checkpoint_round[present_check], "order": np.full(present_set.size, size)}
+    for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
+        frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
+    frame["paths"] = dense["paths"][present_set, present_check].astype(np.int64)
+    frame["trees"] = dense["trees"][present_set, present_check].astype(np.int64)
+    frame["leaf_cover"] = dense["leaf_cover"][present_set, present_check]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frame["cover_share"] = frame["leaf_cover"] / total_by_checkpoint[present_check]
+    frame["nested_gain"] = dense["nested_gain"][present_set, present_check]
+    frame["first_round"] = round_of_position[first_position[present_set]]
+    return pd.DataFrame(frame)
+
+
 def structure_by_round(
     ensemble: Any,
     *,
@@ -724,35 +759,11 @@ def structure_by_round(
     records, _ = _walk(ensemble, walked, bucket, max_order, rank, n_used)
     total_by_checkpoint = np.cumsum(np.bincount(bucket, weights=cover_per_position, minlength=checkpoints.size))
     names = np.asarray(ensemble.feature_names, dtype=object)
-    frames = []
-    for size, rec in records.items():
-        if rec.key.size == 0:
-            continue
-        set_ids, set_of_row = np.unique(rec.key, return_inverse=True)
-        n_sets, n_checks = set_ids.size, checkpoints.size
-        dense = {}
-        for name in ("paths", "trees", "leaf_cover", "nested_gain"):
-            grid = np.zeros((n_sets, n_checks))
-            grid[set_of_row, rec.bucket] = getattr(rec, name)
-            dense[name] = np.cumsum(grid, axis=1)
-        first_position = np.full(n_sets, walked.size, dtype=np.int64)
-        np.minimum.at(first_position, set_of_row, rec.first_position)
-        present_set, present_check = np.nonzero(dense["paths"] > 0)
-        members = used[decode_sets(set_ids, max(n_used, 1), size)][present_set]
-        frame = {"round": rounds[checkpoints[present_check]], "order": np.full(present_set.size, size)}
-        for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
-            frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
-        frame["paths"] = dense["paths"][present_set, present_check].astype(np.int64)
-        frame["trees"] = dense["trees"][present_set, present_check].astype(np.int64)
-        frame["leaf_cover"] = dense["leaf_cover"][present_set, present_check]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frame["cover_share"] = (
-                frame["leaf_cover"] / total_by_checkpoint[present_check]
-                if basis != "unknown" else np.full(present_set.size, np.nan)
-            )
-        frame["nested_gain"] = dense["nested_gain"][present_set, present_check]
-        frame["first_round"] = tree_round[first_position[present_set]]
-        frames.append(pd.DataFrame(frame))
+    share_total = total_by_checkpoint if basis != "unknown" else np.full(checkpoints.size, np.nan)
+    frames = [
+        _cumulative_frame(rec, size, max_order, used, names, rounds[checkpoints], share_total, tree_round)
+        for size, rec in records.items() if rec.key.size
+    ]
     columns = ["round", "order", *_MEMBER_COLUMNS[:max_order], "paths", "trees", "leaf_cover", "cover_share",
                "nested_gain", "first_round"]
     if not frames:
