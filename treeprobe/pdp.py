@@ -803,12 +803,21 @@ def partial_dependence(
     output : int, optional
         Output (class) of a multi-output model; None returns every output.
     scale : {"margin", "probability"}, default "margin"
-        Raw margin (log-odds for classifiers) or the link's scale (brute only).
+        Raw margin (log-odds for classifiers) or the link's scale (brute only;
+        refused when the link is the identity, where both scales agree).
 
     Returns
     -------
     ndarray of shape (n_points,), or (n_points, n_outputs) for all outputs of a multi-output model
         Uncentred partial dependence, ``F_S(z) = (1/n) sum_i f(z_S, x_{i, not S})``.
+
+    Raises
+    ------
+    ParameterError
+        An invalid ``method``, ``scale``, ``features``, ``grid`` or ``output``,
+        or a combination the model does not support (see ``scale``).
+    DataError
+        Rows that do not fit the model, or a predictor returning the wrong shape.
 
     Notes
     -----
