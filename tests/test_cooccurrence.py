@@ -523,3 +523,13 @@ def test_rounds_match_xgboost_model_slices(interaction_data):
         got = by_round[by_round["round"] == last_round].drop(columns=["round", "order", "first_round"])
         pd.testing.assert_frame_equal(_comparable(got), _comparable(sliced.drop(columns=["first_level", "first_tree"])),
                                       check_dtype=False, rtol=1e-6)
+
+
+def test_results_compare_and_keep_their_columns(two_trees):
+    """StructureResult == compares tables and facts without raising; triples keeps its columns at max_order=2."""
+    pairs_only, again, deeper = (structure(two_trees, max_order=2), structure(two_trees, max_order=2),
+                                 structure(two_trees, max_order=3))
+    assert pairs_only == again and pairs_only != deeper and pairs_only != "a result"
+    assert pairs_only.triples.empty and len(deeper.triples) > 0
+    assert list(pairs_only.triples.columns) == list(deeper.triples.columns)
+    assert list(pairs_only.triples.dtypes) == list(deeper.triples.dtypes)

@@ -386,6 +386,7 @@ def test_tables_keep_their_columns_whatever_the_options(small_tree_model):
         columns = list(getattr(full, name).columns)
         assert list(getattr(bare, name).columns) == columns
         assert list(getattr(called, name).columns) == columns
+        assert list(getattr(bare, name).dtypes) == list(getattr(full, name).dtypes)
     assert bare.triples.empty and bare.against_rest.empty and len(full.triples) > 0
     assert list(full.pairs.columns) == ["feature_a", "feature_b", "output", "h2", "h", "pd_variance",
                                         "h_negligible", "shares_path"]

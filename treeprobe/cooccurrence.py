@@ -350,7 +350,9 @@ def _set_frame(
         first_level=records.first_level[order].astype(np.int64),
         first_tree=walked[records.first_position[order]].astype(np.int64),
     )
-    return pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
+    table = pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
+    # Name columns get pandas' text dtype even when empty, so dtypes do not depend on the row count.
+    return table.astype({column: "str" for column in _MEMBER_COLUMNS[:size]})
 
 
 def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:

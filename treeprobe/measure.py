@@ -326,7 +326,8 @@ def _rows_of(parts: _Parts, names: Sequence[str], on_paths: dict[int, np.ndarray
 def _frame(rows: list[dict], columns: list[str]) -> pd.DataFrame:
     """One ranked table: fixed columns and dtypes, by output, then ``h`` descending (NaN last)."""
     frame = pd.DataFrame(rows, columns=columns)
-    frame = frame.astype({"output": np.int64, "h2": np.float64, "h": np.float64, "pd_variance": np.float64,
+    names = {column: "str" for column in columns if column.startswith("feature")}
+    frame = frame.astype({**names, "output": np.int64, "h2": np.float64, "h": np.float64, "pd_variance": np.float64,
                           "h_negligible": bool})
     if "shares_path" in frame:
         frame["shares_path"] = frame["shares_path"].astype("boolean")
