@@ -23,7 +23,7 @@ from hypothesis import strategies as st
 import treeprobe
 import treeprobe.cooccurrence as structure_module
 from treeprobe.cooccurrence import structure, structure_by_round
-from treeprobe.errors import DataError, TreeprobeError
+from treeprobe.errors import ParameterError, TreeprobeError
 from treeprobe.graph import ForestGraph
 
 NAMES = ["fuel_price", "shift_length", "crew_size"]
@@ -167,14 +167,14 @@ def test_to_dict_is_json(two_trees):
     ],
 )
 def test_bad_parameters_name_themselves(two_trees, kwargs, fragment):
-    """Every bad parameter raises one DataError naming the parameter or the problem."""
-    with pytest.raises(DataError, match=fragment):
+    """Every bad parameter raises one ParameterError naming the parameter or the problem."""
+    with pytest.raises(ParameterError, match=fragment):
         structure(two_trees, **kwargs)
 
 
 def test_bad_step_and_bad_source(two_trees, tmp_path):
     """structure_by_round validates step; a corrupt file is a TreeprobeError, not a traceback."""
-    with pytest.raises(DataError, match="step"):
+    with pytest.raises(ParameterError, match="step"):
         structure_by_round(two_trees, step=0)
     bad = tmp_path / "broken.json"
     bad.write_text('{"learner": ')
@@ -523,3 +523,13 @@ def test_rounds_match_xgboost_model_slices(interaction_data):
         got = by_round[by_round["round"] == last_round].drop(columns=["round", "order", "first_round"])
         pd.testing.assert_frame_equal(_comparable(got), _comparable(sliced.drop(columns=["first_level", "first_tree"])),
                                       check_dtype=False, rtol=1e-6)
+
+
+def test_results_compare_and_keep_their_columns(two_trees):
+    """StructureResult == compares tables and facts without raising; triples keeps its columns at max_order=2."""
+    pairs_only, again, deeper = (structure(two_trees, max_order=2), structure(two_trees, max_order=2),
+                                 structure(two_trees, max_order=3))
+    assert pairs_only == again and pairs_only != deeper and pairs_only != "a result"
+    assert pairs_only.triples.empty and len(deeper.triples) > 0
+    assert list(pairs_only.triples.columns) == list(deeper.triples.columns)
+    assert list(pairs_only.triples.dtypes) == list(deeper.triples.dtypes)

@@ -17,6 +17,7 @@ import pytest
 from sklearn.datasets import make_friedman1
 
 from treeprobe import DataError, load_model
+from treeprobe.errors import ParameterError
 from treeprobe.measure import MeasureResult, h_statistic
 
 
@@ -224,11 +225,11 @@ def test_result_facts_sampling_and_json(fleet_frame):
     assert everything.n_rows == 70 and everything.output is None
     assert set(everything.pairs.output) == {0, 1, 2}
     one = h_statistic(model, frame, sample=70, triples=True, output=1)
-    assert "output" not in one.pairs
-    subset = everything.pairs[everything.pairs.output == 1].drop(columns="output").reset_index(drop=True)
+    assert list(one.pairs.columns) == list(everything.pairs.columns) and (one.pairs.output == 1).all()
+    subset = everything.pairs[everything.pairs.output == 1].reset_index(drop=True)
     pd.testing.assert_frame_equal(subset, one.pairs, check_exact=False, rtol=1e-12)
     for _, group in everything.pairs.groupby("output"):
-        assert group.h2.is_monotonic_decreasing
+        assert group.h.is_monotonic_decreasing
     payload = json.loads(json.dumps(one.to_dict()))
     assert payload["method"] == "exact" and payload["n_rows"] == 70 and "limits" in payload
     assert len(payload["pairs"]) == len(one.pairs)
@@ -248,13 +249,9 @@ def test_parallel_matches_serial(fleet_frame):
     small_budget = pdp.CELL_BUDGET
     try:
         pdp.CELL_BUDGET = 2000  # many chunks, so the parallel sum really combines parts
-        import treeprobe.measure as measure_module
-
-        measure_module.CELL_BUDGET = 2000
         chunked = h_statistic(ensemble, frame, sample=50, n_jobs=2)
     finally:
         pdp.CELL_BUDGET = small_budget
-        measure_module.CELL_BUDGET = small_budget
     _compare(chunked, serial, rtol=1e-9)
 
 
@@ -305,17 +302,17 @@ def test_bad_callable_and_options(small_tree_model):
         h_statistic(lambda A: A[:50, 0], X)
     with pytest.raises(DataError, match="non-finite"):
         h_statistic(lambda A: np.full(len(A), np.inf), X)
-    with pytest.raises(DataError, match="method='exact' needs a tree ensemble"):
+    with pytest.raises(ParameterError, match="method='exact' needs a tree ensemble"):
         h_statistic(lambda A: A[:, 0], X, method="exact")
     for option, value, word in (("method", "fast", "method"), ("sample", 1, "sample"), ("scale", "odds", "scale"),
                                 ("n_jobs", 0, "n_jobs"), ("output", 3, "output"), ("progress", "yes", "progress")):
-        with pytest.raises(DataError, match=word):
+        with pytest.raises(ParameterError, match=word):
             h_statistic(ensemble, frame, **{option: value})
-    with pytest.raises(DataError, match="unknown feature 'wind_speed'"):
+    with pytest.raises(ParameterError, match="unknown feature 'wind_speed'"):
         h_statistic(ensemble, frame, pairs=[("fuel_price", "wind_speed")])
-    with pytest.raises(DataError, match="triples must be"):
+    with pytest.raises(ParameterError, match="triples must be"):
         h_statistic(ensemble, frame, triples="all")
-    with pytest.raises(DataError, match="repeats a feature"):
+    with pytest.raises(ParameterError, match="repeats a feature"):
         h_statistic(ensemble, frame, pairs=[("fuel_price", "fuel_price")])
 
 
@@ -343,4 +340,75 @@ def test_progress_only_when_asked_or_on_a_terminal(capsys):
     h_statistic(lambda A: A[:, 0] * A[:, 1], X)
     assert capsys.readouterr().err == ""
     h_statistic(lambda A: A[:, 0] * A[:, 1], X, progress=True)
-    assert "H-statistics (brute): 5/5" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "H-statistics (brute)" in err and "/5" in err  # the tqdm bar of treeprobe.progress, 5 functions
+
+
+# --------------------------------------------------------------------------- ranking, negligible h, fixed columns
+def _noise_and_signal(A):
+    """10 (x0 + x1) + 12 x0 x1 + 0.03 x2 x3: a real interaction on big main effects, and a tiny pure one."""
+    return 10 * (A[:, 0] + A[:, 1]) + 12 * A[:, 0] * A[:, 1] + 0.03 * A[:, 2] * A[:, 3]
+
+
+def test_pairs_rank_by_h_not_h2():
+    """Closed forms (Friedman & Popescu 2008, eq. 44, x ~ U(-1,1)^4, E x^2 = 1/3): pair (x0, x1) has
+    H2 = (144/9) / (200/3 + 144/9) = 0.19 and h = 12/3 = 4; pair (x2, x3) is all interaction, H2 = 1, but
+    h = 0.03/3 = 0.01. Ranked by h2 the tiny pair would come first; ranked by h the real one does."""
+    X = np.random.default_rng(21).uniform(-1, 1, size=(800, 4))
+    result = h_statistic(_noise_and_signal, X, pairs=[("x0", "x1"), ("x2", "x3")], against_rest=False)
+    first, second = result.pairs.iloc[0], result.pairs.iloc[1]
+    assert (first.feature_a, first.feature_b) == ("x0", "x1")
+    assert abs(first.h - 4.0) < 0.4 and abs(first.h2 - 0.19) < 0.04
+    assert abs(second.h2 - 1.0) < 0.05 and second.h < 0.012 and second.h2 > first.h2
+
+
+def test_h_negligible_marks_h_below_one_percent_of_the_prediction_sd():
+    """The convention NEGLIGIBLE_H_SHARE = 0.01: h <= 1% of the prediction's standard deviation on the rows.
+    Here sd(f) = sqrt(200/3 + 16) = 9.1 (closed form), so the cut is about 0.09: (x2, x3) with h = 0.01 is
+    negligible, (x0, x1) with h = 4 is not."""
+    from treeprobe.measure import NEGLIGIBLE_H_SHARE
+
+    X = np.random.default_rng(22).uniform(-1, 1, size=(600, 4))
+    result = h_statistic(_noise_and_signal, X, pairs=[("x0", "x1"), ("x2", "x3")], against_rest=True)
+    flags = dict(zip(zip(result.pairs.feature_a, result.pairs.feature_b), result.pairs.h_negligible, strict=True))
+    assert flags == {("x0", "x1"): False, ("x2", "x3"): True}
+    cut = NEGLIGIBLE_H_SHARE * np.std(_noise_and_signal(X))
+    np.testing.assert_array_equal(result.against_rest.h_negligible, result.against_rest.h <= cut)
+    assert result.to_dict()["negligible_h_share"] == NEGLIGIBLE_H_SHARE
+
+
+def test_tables_keep_their_columns_whatever_the_options(small_tree_model):
+    ensemble, frame = small_tree_model
+    full = h_statistic(ensemble, frame, triples=[("fuel_price", "shift_length", "load_kg")], sample=50)
+    bare = h_statistic(ensemble, frame, triples=None, against_rest=False, sample=50, output=0)
+    called = h_statistic(lambda A: A[:, 0] * A[:, 2], frame.to_numpy(), triples=None, sample=50)
+    for name in ("pairs", "against_rest", "triples"):
+        columns = list(getattr(full, name).columns)
+        assert list(getattr(bare, name).columns) == columns
+        assert list(getattr(called, name).columns) == columns
+        assert list(getattr(bare, name).dtypes) == list(getattr(full, name).dtypes)
+    assert bare.triples.empty and bare.against_rest.empty and len(full.triples) > 0
+    assert list(full.pairs.columns) == ["feature_a", "feature_b", "output", "h2", "h", "pd_variance",
+                                        "h_negligible", "shares_path"]
+
+
+def test_results_compare_without_raising(small_tree_model):
+    ensemble, frame = small_tree_model
+    first = h_statistic(ensemble, frame, sample=40)
+    again = h_statistic(ensemble, frame, sample=40)
+    other = h_statistic(ensemble, frame, sample=40, random_state=5)
+    assert first == again and first != other and first != "a result"
+    assert first.seconds >= 0  # wall time differs between runs and is not compared
+
+
+def test_probability_scale_refused_on_identity_link(small_tree_model):
+    """A regression model's link is the identity: its probability scale is its margin, which the exact
+    engine handles. Asking for it used to run brute force silently; now it is one ParameterError."""
+    ensemble, frame = small_tree_model
+    assert ensemble.link == "identity"
+    with pytest.raises(ParameterError, match=r"scale='probability'.*link is 'identity'.*scale='margin'"):
+        h_statistic(ensemble, frame, scale="probability")
+    from treeprobe.pdp import partial_dependence
+
+    with pytest.raises(ParameterError, match="link is 'identity'"):
+        partial_dependence(ensemble, frame, ["fuel_price"], [[0.0]], scale="probability")

@@ -17,6 +17,7 @@ from sklearn.ensemble import GradientBoostingRegressor
 from sklearn.inspection import partial_dependence as sklearn_partial_dependence
 
 from treeprobe import DataError, load_model
+from treeprobe.errors import ParameterError
 from treeprobe.pdp import partial_dependence
 
 
@@ -97,13 +98,13 @@ def test_callable_closed_form():
 def test_bad_arguments_name_the_parameter(delivery_data):
     X, y = delivery_data
     f = lambda A: A[:, 0]  # noqa: E731
-    with pytest.raises(DataError, match="method"):
+    with pytest.raises(ParameterError, match="method"):
         partial_dependence(f, X, [0], [[1.0]], method="fast")
-    with pytest.raises(DataError, match="exact"):
+    with pytest.raises(ParameterError, match="exact"):
         partial_dependence(f, X, [0], [[1.0]], method="exact")
-    with pytest.raises(DataError, match="grid"):
+    with pytest.raises(ParameterError, match="grid"):
         partial_dependence(f, X, [0, 1], [[1.0]])
-    with pytest.raises(DataError, match="unknown feature 'wind'"):
+    with pytest.raises(ParameterError, match="unknown feature 'wind'"):
         partial_dependence(f, X, ["wind"], [[1.0]])
     with pytest.raises(DataError, match="shape"):
         partial_dependence(lambda A: A[:2, 0], X, [0], [[1.0]])

@@ -86,6 +86,7 @@ from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedM
 from .graph import ForestGraph
 from .io import load_model
 from .output import atomic_write, dumps_json, to_jsonable
+from .paths import leaf_feature_sets
 from .progress import progress_bar
 from .refit import (
     BINARY,
@@ -666,23 +667,6 @@ def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> 
     return {"log_loss": float(log_loss(y, probability, labels=list(range(n_classes))))}
 
 
-def _leaf_feature_sets(ensemble: ForestGraph) -> np.ndarray:
-    """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix."""
-    n_bytes = max(1, -(-ensemble.n_features // 8))
-    masks = np.zeros((ensemble.n_nodes, n_bytes), dtype=np.uint8)
-    inner = np.flatnonzero(~ensemble.is_leaf)
-    depth = ensemble.depth
-    # Top-down by depth: each child's mask is its parent's plus the parent's feature.
-    for level in range(int(depth.max()) if ensemble.n_nodes else 0):
-        parents = inner[depth[inner] == level]
-        feature = ensemble.feature[parents]
-        for children in (ensemble.left[parents], ensemble.right[parents]):
-            masks[children] = masks[parents]
-            masks[children, feature >> 3] |= (1 << (feature & 7)).astype(np.uint8)
-    leaf_masks = np.unique(masks[ensemble.is_leaf], axis=0)
-    return np.unpackbits(leaf_masks, axis=1, bitorder="little")[:, :ensemble.n_features].astype(bool)
-
-
 def _cross_group(refit: ForestGraph, groups: list[list[int]],
                  columns: tuple[str, ...]) -> tuple[list[tuple[str, str]], list[list[str]]]:
     """Pairs on a path that no group contains, and path feature sets that no group contains."""
@@ -696,7 +680,7 @@ def _cross_group(refit: ForestGraph, groups: list[list[int]],
     membership = np.zeros((len(groups), len(columns)), dtype=bool)
     for g, group in enumerate(groups):
         membership[g, group] = True
-    path_sets = _leaf_feature_sets(refit)
+    path_sets = leaf_feature_sets(refit)
     outside_counts = path_sets.astype(np.int64) @ (~membership).T.astype(np.int64)
     stray = path_sets[~(outside_counts == 0).any(axis=1)]
     return sorted(crossing), [[columns[j] for j in np.flatnonzero(row)] for row in stray]

@@ -35,15 +35,25 @@ from __future__ import annotations
 import string
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from functools import lru_cache
-from itertools import combinations
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from .checks import check_int
+from .errors import ParameterError
 from .graph import ForestGraph
+from .io import load_model
+from .paths import (
+    ancestor_masks,
+    decode_sets,
+    depth_levels,
+    encode_sets,
+    mask_members,
+    member_subsets,
+    parent_links,
+    tree_nodes,
+)
 
 __all__ = ["StructureResult", "structure", "structure_by_round", "MAX_ORDER", "LIMITS"]
 
@@ -62,20 +72,8 @@ LIMITS = (
 
 
 # --------------------------------------------------------------------- validation
-def _as_ensemble(ensemble: Any) -> ForestGraph:
-    if isinstance(ensemble, ForestGraph):
-        return ensemble
-    from .io import load_model
-
-    return load_model(ensemble)
-
-
 def _check_order(value: Any, name: str) -> int:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
-        raise DataError(f"{name} must be an integer in 2..{MAX_ORDER}, got {value!r}")
-    if not 2 <= value <= MAX_ORDER:
-        raise DataError(f"{name} must lie in 2..{MAX_ORDER}, got {value}")
-    return int(value)
+    return check_int(name, value, low=2, high=MAX_ORDER)
 
 
 def _selected_trees(ensemble: ForestGraph, trees: Any, output: Any) -> np.ndarray:
@@ -88,46 +86,26 @@ def _selected_trees(ensemble: ForestGraph, trees: Any, output: Any) -> np.ndarra
     else:
         raw = np.asarray(trees)
         if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
-            raise DataError(f"trees must be a slice, a range or a 1-D sequence of tree indices, got {trees!r}")
+            raise ParameterError(f"trees must be a slice, a range or a 1-D sequence of tree indices, got {trees!r}")
         chosen = raw.astype(np.int64)
         bad = (chosen < 0) | (chosen >= n_trees)
         if bad.any():
-            raise DataError(f"trees holds index {int(chosen[bad][0])}; the model has trees 0..{n_trees - 1}")
+            raise ParameterError(f"trees holds index {int(chosen[bad][0])}; the model has trees 0..{n_trees - 1}")
         if np.unique(chosen).size != chosen.size:
-            raise DataError("trees lists a tree more than once; each tree can be walked once")
+            raise ParameterError("trees lists a tree more than once; each tree can be walked once")
     if output is not None:
         if isinstance(output, (bool, np.bool_)) or not isinstance(output, (int, np.integer)):
-            raise DataError(f"output must be an integer output index or None, got {output!r}")
+            raise ParameterError(f"output must be an integer output index or None, got {output!r}")
         if not 0 <= output < ensemble.n_outputs:
-            raise DataError(f"output must lie in 0..{ensemble.n_outputs - 1}, got {output}")
+            raise ParameterError(f"output must lie in 0..{ensemble.n_outputs - 1}, got {output}")
         chosen = np.intersect1d(chosen, ensemble.trees_of_output(int(output)))
     chosen = np.sort(chosen)
     if chosen.size == 0:
-        raise DataError(f"the selection trees={trees!r}, output={output!r} holds no tree of the model's {n_trees}")
+        raise ParameterError(f"the selection trees={trees!r}, output={output!r} holds no tree of the model's {n_trees}")
     return chosen
 
 
 # --------------------------------------------------------------------- helpers
-def _parents(ensemble: ForestGraph) -> np.ndarray:
-    parent = np.full(ensemble.n_nodes, -1, dtype=np.int64)
-    inner = np.flatnonzero(ensemble.feature >= 0)
-    parent[ensemble.left[inner]] = inner
-    parent[ensemble.right[inner]] = inner
-    return parent
-
-
-def _node_range(starts: np.ndarray, sizes: np.ndarray) -> np.ndarray:
-    """Concatenation of ``arange(start, start + size)`` for every pair, without a Python loop."""
-    ends = np.cumsum(sizes)
-    return np.repeat(starts - (ends - sizes), sizes) + np.arange(ends[-1] if ends.size else 0)
-
-
-@lru_cache(maxsize=256)
-def _combination_table(n_items: int, size: int) -> np.ndarray:
-    table = np.array(list(combinations(range(n_items), size)), dtype=np.int64)
-    return table.reshape(-1, size)
-
-
 def _group_sorted(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Sort rows of a 2-D unsigned array; return the order and the start of every group of equal rows."""
     order = np.lexsort(columns.T[::-1])
@@ -135,48 +113,6 @@ def _group_sorted(columns: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     new = np.ones(len(order), dtype=bool)
     new[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
     return order, np.flatnonzero(new)
-
-
-def _mask_bits(masks: np.ndarray, n_bits: int) -> np.ndarray:
-    """Boolean (rows x n_bits) matrix of the bits set in uint64 masks, bit b of word w = item 64 w + b."""
-    as_bytes = np.ascontiguousarray(masks.astype("<u8", copy=False)).view(np.uint8)
-    return np.unpackbits(as_bytes, axis=1, bitorder="little")[:, :n_bits].astype(bool)
-
-
-def _subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
-    """Every ``size``-subset of the set items of every row.
-
-    Returns the owning row of each subset and its members (ascending), shape (n, size).
-    Rows are grouped by their item count so that each group is one fancy-indexing step
-    through a table of index combinations.
-    """
-    counts = bits.sum(axis=1)
-    rows, items = np.nonzero(bits)
-    starts = np.cumsum(counts) - counts
-    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
-    for n_items in np.unique(counts[counts >= size]):
-        owners = np.flatnonzero(counts == n_items)
-        members = items[starts[owners][:, None] + np.arange(n_items)]
-        table = _combination_table(int(n_items), size)
-        owner_parts.append(np.repeat(owners, table.shape[0]))
-        member_parts.append(members[:, table].reshape(-1, size))
-    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
-
-
-def _encode(members: np.ndarray, radix: int) -> np.ndarray:
-    key = np.zeros(members.shape[0], dtype=np.int64)
-    for column in members.T:
-        key = key * radix + column
-    return key
-
-
-def _decode(key: np.ndarray, radix: int, size: int) -> np.ndarray:
-    members = np.empty((key.size, size), dtype=np.int64)
-    rest = key.copy()
-    for position in range(size - 1, -1, -1):
-        members[:, position] = rest % radix
-        rest //= radix
-    return members
 
 
 @dataclass
@@ -259,6 +195,83 @@ def _leaf_weights(ensemble: ForestGraph, leaves: np.ndarray) -> tuple[np.ndarray
     return np.full(leaves.size, np.nan), "unknown"
 
 
+def _subtree_totals(
+    ensemble: ForestGraph, nodes: np.ndarray, is_leaf: np.ndarray, levels: list[np.ndarray]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Leaf count and leaf weight below every node of a chunk of whole trees, bottom-up."""
+    below_leaves = is_leaf.astype(np.int64)
+    below_weight = np.zeros(nodes.size)
+    below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
+    local_left = np.searchsorted(nodes, ensemble.left[nodes])
+    local_right = np.searchsorted(nodes, ensemble.right[nodes])
+    for members in levels[-2::-1]:
+        inner = members[~is_leaf[members]]
+        below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
+        below_weight[inner] = below_weight[local_left[inner]] + below_weight[local_right[inner]]
+    return below_leaves, below_weight
+
+
+@dataclass
+class _SplitGroups:
+    """Split nodes of one chunk merged by (tree, feature, ancestor features other than the node's own).
+
+    ``leaves`` and ``weight`` count only nodes where the feature completes on the
+    path (it is not among the ancestors); ``leaf_paths`` is per used feature.
+    """
+
+    position: np.ndarray
+    feature: np.ndarray
+    gain: np.ndarray
+    leaves: np.ndarray
+    weight: np.ndarray
+    depth: np.ndarray
+    ancestor_bits: np.ndarray
+    leaf_paths: np.ndarray
+
+    @classmethod
+    def of_chunk(cls, ensemble, nodes, node_position, rank, masks, below_leaves, below_weight, n_used) -> _SplitGroups:
+        one = np.uint64(1)
+        split_nodes = np.flatnonzero(rank >= 0)
+        split_rank = rank[split_nodes]
+        word, bit = split_rank >> 6, one << (split_rank & 63).astype(np.uint64)
+        ancestors = masks[split_nodes]
+        row = np.arange(split_nodes.size)
+        completes = (ancestors[row, word] & bit) == 0
+        ancestors[row, word] &= ~bit
+        leaf_paths = np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
+                                 minlength=n_used).astype(np.int64)
+        order, starts = _group_sorted(
+            np.column_stack([node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors])
+        )
+        if starts.size == 0:
+            empty = np.zeros(0, np.int64)
+            return cls(empty, empty, np.zeros(0), empty, np.zeros(0), empty, np.zeros((0, n_used), bool), leaf_paths)
+        return cls(
+            position=node_position[split_nodes][order][starts],
+            feature=split_rank[order][starts],
+            gain=np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts),
+            leaves=np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts),
+            weight=np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts),
+            depth=np.minimum.reduceat(ensemble.depth[nodes[split_nodes]].astype(np.int64)[order], starts) + 1,
+            ancestor_bits=mask_members(ancestors[order][starts], n_used),
+            leaf_paths=leaf_paths,
+        )
+
+    def records(self, size: int, bucket_of_position: np.ndarray, n_used: int) -> _SetRecords:
+        """Records of the ``size``-sets ``{feature} + T``, ``T`` among the ancestors, of every group."""
+        owner, others = member_subsets(self.ancestor_bits, size - 1)
+        members = np.sort(np.column_stack([others, self.feature[owner]]), axis=1)
+        return _aggregate_chunk(
+            key=encode_sets(members, n_used),
+            bucket_of_position=bucket_of_position,
+            position=self.position[owner],
+            paths=self.leaves[owner],
+            leaf_cover=self.weight[owner],
+            nested_gain=self.gain[owner],
+            depth=self.depth[owner],
+        )
+
+
 def _walk(
     ensemble: ForestGraph,
     walked: np.ndarray,
@@ -279,95 +292,38 @@ def _walk(
     Returns the records of every order 2..max_order and, per used feature (by rank),
     the number of leaves whose path splits on it.
     """
-    n_words = max(1, -(-n_used // 64))
-    parent = _parents(ensemble)
-    depth = ensemble.depth
+    parent, _ = parent_links(ensemble)
     sizes = (ensemble.tree_offsets[walked + 1] - ensemble.tree_offsets[walked]).astype(np.int64)
     chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
     boundaries = np.append(np.flatnonzero(np.diff(chunk_of_tree, prepend=-1)), walked.size)
     parts: dict[int, list[_SetRecords]] = {k: [] for k in range(2, max_order + 1)}
     leaf_paths = np.zeros(n_used, dtype=np.int64)
-    one = np.uint64(1)
     for first, stop in zip(boundaries[:-1], boundaries[1:], strict=True):
         positions = np.arange(first, stop)
-        nodes = _node_range(ensemble.tree_offsets[walked[positions]], sizes[positions])
-        node_position = np.repeat(positions, sizes[positions])
+        nodes = tree_nodes(ensemble, walked[positions])
         rank = np.where(ensemble.feature[nodes] >= 0, feature_rank[np.maximum(ensemble.feature[nodes], 0)], -1)
-        node_depth = depth[nodes].astype(np.int64)
-        local_parent = np.searchsorted(nodes, parent[nodes])
-        is_leaf = rank < 0
-        by_depth = np.argsort(node_depth, kind="stable")
-        level_start = np.searchsorted(node_depth[by_depth], np.arange(node_depth.max() + 2))
-        levels = [by_depth[level_start[d]:level_start[d + 1]] for d in range(node_depth.max() + 1)]
-
-        # Path masks top-down: a node's mask is its parent's plus the parent's feature.
-        masks = np.zeros((nodes.size, n_words), dtype=np.uint64)
-        for members in levels[1:]:
-            up = local_parent[members]
-            masks[members] = masks[up]
-            masks[members, rank[up] >> 6] |= one << (rank[up] & 63).astype(np.uint64)
-
-        # Leaf count and leaf weight of every subtree, bottom-up.
-        below_leaves = is_leaf.astype(np.int64)
-        below_weight = np.zeros(nodes.size)
-        below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
-        local_left = np.searchsorted(nodes, ensemble.left[nodes])
-        local_right = np.searchsorted(nodes, ensemble.right[nodes])
-        for members in levels[-2::-1]:
-            inner = members[~is_leaf[members]]
-            below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
-            below_weight[inner] = below_weight[local_left[inner]] + below_weight[local_right[inner]]
-
-        split_nodes = np.flatnonzero(~is_leaf)
-        split_rank = rank[split_nodes]
-        word, bit = split_rank >> 6, one << (split_rank & 63).astype(np.uint64)
-        ancestors = masks[split_nodes]
-        row = np.arange(split_nodes.size)
-        completes = (ancestors[row, word] & bit) == 0
-        ancestors[row, word] &= ~bit
-        leaf_paths += np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
-                                  minlength=n_used).astype(np.int64)
-
-        split_rows = np.column_stack(
-            [node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors]
-        )
-        order, starts = _group_sorted(split_rows)
-        if starts.size == 0:
+        levels = depth_levels(ensemble.depth[nodes])
+        masks = ancestor_masks(np.searchsorted(nodes, parent[nodes]), rank, levels, n_used)
+        below_leaves, below_weight = _subtree_totals(ensemble, nodes, rank < 0, levels)
+        split = _SplitGroups.of_chunk(ensemble, nodes, np.repeat(positions, sizes[positions]), rank, masks,
+                                      below_leaves, below_weight, n_used)
+        leaf_paths += split.leaf_paths
+        if split.position.size == 0:
             continue
-        group_position = node_position[split_nodes][order][starts]
-        group_feature = split_rank[order][starts]
-        group_gain = np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts)
-        group_leaves = np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts)
-        group_weight = np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts)
-        group_depth = np.minimum.reduceat(node_depth[split_nodes][order], starts) + 1
-        ancestor_bits = _mask_bits(ancestors[order][starts], n_used)
-
         for size in range(2, max_order + 1):
-            owner, others = _subsets(ancestor_bits, size - 1)
-            members = np.sort(np.column_stack([others, group_feature[owner]]), axis=1)
-            parts[size].append(
-                _aggregate_chunk(
-                    key=_encode(members, n_used),
-                    bucket_of_position=bucket_of_position,
-                    position=group_position[owner],
-                    paths=group_leaves[owner],
-                    leaf_cover=group_weight[owner],
-                    nested_gain=group_gain[owner],
-                    depth=group_depth[owner],
-                )
-            )
+            parts[size].append(split.records(size, bucket_of_position, n_used))
     records = {size: _SetRecords.concat(chunks).combined() for size, chunks in parts.items()}
     return records, leaf_paths
 
 
 def _prepare(ensemble: ForestGraph, walked: np.ndarray, max_order: int) -> tuple[np.ndarray, np.ndarray, int]:
     """Dense ranks of the features the walked trees split on, so masks and keys stay small."""
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     used = np.unique(ensemble.feature[nodes][ensemble.feature[nodes] >= 0])
     rank = np.full(ensemble.n_features, -1, dtype=np.int64)
     rank[used] = np.arange(used.size)
     if used.size and float(used.size) ** max_order >= 2.0**62:
-        raise DataError(
+        raise ParameterError(
             f"max_order={max_order} is too high for {used.size} used features (set keys would overflow); lower it"
         )
     return used, rank, int(used.size)
@@ -381,7 +337,7 @@ def _set_frame(
     walked: np.ndarray,
     total_cover: float,
 ) -> pd.DataFrame:
-    members = used[_decode(records.key, max(used.size, 1), size)] if records.key.size else np.zeros((0, size), np.int64)
+    members = used[decode_sets(records.key, max(used.size, 1), size)] if records.key.size else np.zeros((0, size), np.int64)
     names = np.asarray(ensemble.feature_names, dtype=object)
     order = np.lexsort((records.key, -records.paths, -records.nested_gain))
     frame = {_MEMBER_COLUMNS[i]: names[members[order, i]] for i in range(size)}
@@ -394,11 +350,13 @@ def _set_frame(
         first_level=records.first_level[order].astype(np.int64),
         first_tree=walked[records.first_position[order]].astype(np.int64),
     )
-    return pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
+    table = pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
+    # Name columns get pandas' text dtype even when empty, so dtypes do not depend on the row count.
+    return table.astype({column: "str" for column in _MEMBER_COLUMNS[:size]})
 
 
 def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     position = np.repeat(np.arange(walked.size), np.diff(ensemble.tree_offsets)[walked])
     inner = ensemble.feature[nodes] >= 0
     split_nodes = nodes[inner]
@@ -429,7 +387,7 @@ def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.nda
 
 
 def _total_leaf_cover(ensemble: ForestGraph, walked: np.ndarray) -> tuple[float, str, np.ndarray]:
-    nodes = _node_range(ensemble.tree_offsets[walked], np.diff(ensemble.tree_offsets)[walked])
+    nodes = tree_nodes(ensemble, walked)
     leaves = nodes[ensemble.feature[nodes] < 0]
     weight, basis = _leaf_weights(ensemble, leaves)
     per_position = np.bincount(
@@ -457,6 +415,9 @@ def _json_records(frame: pd.DataFrame) -> list[dict]:
 @dataclass(frozen=True, eq=False)
 class StructureResult:
     """Path structure of the walked trees; see :func:`structure` for every column.
+
+    Tables have the same columns whatever ``max_order`` (an empty ``triples``
+    keeps its columns). ``==`` compares every table and fact.
 
     Attributes
     ----------
@@ -494,6 +455,22 @@ class StructureResult:
     cover_basis: str = "unknown"
     max_order: int = 2
 
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, StructureResult):
+            return NotImplemented
+        facts = ("ensemble_summary", "n_trees_walked", "cover_basis", "max_order")
+        return (
+            all(getattr(self, name) == getattr(other, name) for name in facts)
+            and np.array_equal(self.tree_indices, other.tree_indices)
+            and (self.total_leaf_cover == other.total_leaf_cover
+                 or (np.isnan(self.total_leaf_cover) and np.isnan(other.total_leaf_cover)))
+            and all(getattr(self, name).equals(getattr(other, name)) for name in ("features", "pairs", "triples"))
+            and self.sets.keys() == other.sets.keys()
+            and all(self.sets[k].equals(other.sets[k]) for k in self.sets)
+        )
+
+    __hash__ = None  # type: ignore[assignment]
+
     def table(self, order: int) -> pd.DataFrame:
         """The set table of one order (1 gives ``features``)."""
         if order == 1:
@@ -504,7 +481,7 @@ class StructureResult:
             return self.triples
         if order in self.sets:
             return self.sets[order]
-        raise DataError(f"order must lie in 1..{self.max_order} for this result, got {order!r}")
+        raise ParameterError(f"order must lie in 1..{self.max_order} for this result, got {order!r}")
 
     def to_dict(self) -> dict:
         """A JSON-ready dict; see the schema in :func:`structure`."""
@@ -594,7 +571,7 @@ def structure(
 
     Raises
     ------
-    DataError
+    ParameterError
         For an invalid ``max_order``, ``trees`` or ``output``.
     ModelFormatError
         When ``ensemble`` is a model file or object that cannot be read.
@@ -647,24 +624,21 @@ def structure(
     >>> result = structure(ens, max_order=2)
     >>> result.pairs[["feature_a", "feature_b", "paths", "cover_share", "nested_gain", "first_level"]]
         feature_a     feature_b  paths  cover_share  nested_gain  first_level
-    0  fuel_price  shift_length      2          0.5          4.0          2
+    0  fuel_price  shift_length      2          0.5          4.0            2
     """
-    ensemble = _as_ensemble(ensemble)
+    ensemble = load_model(ensemble)
     max_order = _check_order(max_order, "max_order")
     walked = _selected_trees(ensemble, trees, output)
     used, rank, n_used = _prepare(ensemble, walked, max_order)
     total_cover, basis, _ = _total_leaf_cover(ensemble, walked)
     records, leaf_paths = _walk(ensemble, walked, np.zeros(walked.size, np.int64), max_order, rank, n_used)
     share_total = total_cover if basis != "unknown" else float("nan")
+    records.setdefault(3, _SetRecords.concat([]))
     tables = {size: _set_frame(ensemble, records[size], used, size, walked, share_total) for size in records}
-    empty_triples = pd.DataFrame({name: pd.Series(dtype=object) for name in _MEMBER_COLUMNS[:3]} | {
-        name: pd.Series(dtype=np.float64 if name in ("leaf_cover", "cover_share", "nested_gain") else np.int64)
-        for name in _SET_COLUMNS
-    })
     return StructureResult(
         features=_feature_frame(ensemble, walked, leaf_paths, used),
         pairs=tables[2],
-        triples=tables.get(3, empty_triples),
+        triples=tables[3],
         sets={size: frame for size, frame in tables.items() if size > 3},
         ensemble_summary=ensemble.summary(),
         n_trees_walked=int(walked.size),
@@ -679,6 +653,41 @@ def _trees_per_round(ensemble: ForestGraph) -> int:
     per_class = ensemble.n_outputs > 1 and bool(np.all(ensemble.output_of_tree >= 0))
     parallel = ensemble.trees_per_round
     return (ensemble.n_outputs if per_class else 1) * max(parallel, 1)
+
+
+def _cumulative_frame(
+    rec: _SetRecords,
+    size: int,
+    max_order: int,
+    used: np.ndarray,
+    names: np.ndarray,
+    checkpoint_round: np.ndarray,
+    total_by_checkpoint: np.ndarray,
+    round_of_position: np.ndarray,
+) -> pd.DataFrame:
+    """Rows (checkpoint, set present by then) of one order, sums accumulated over the checkpoints."""
+    set_ids, set_of_row = np.unique(rec.key, return_inverse=True)
+    dense = {}
+    for name in ("paths", "trees", "leaf_cover", "nested_gain"):
+        grid = np.zeros((set_ids.size, checkpoint_round.size))
+        grid[set_of_row, rec.bucket] = getattr(rec, name)
+        dense[name] = np.cumsum(grid, axis=1)
+    # Every set has at least one record, so the minimum always replaces the start value.
+    first_position = np.full(set_ids.size, round_of_position.size - 1, dtype=np.int64)
+    np.minimum.at(first_position, set_of_row, rec.first_position)
+    present_set, present_check = np.nonzero(dense["paths"] > 0)
+    members = used[decode_sets(set_ids, max(used.size, 1), size)][present_set]
+    frame = {"round": checkpoint_round[present_check], "order": np.full(present_set.size, size)}
+    for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
+        frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
+    frame["paths"] = dense["paths"][present_set, present_check].astype(np.int64)
+    frame["trees"] = dense["trees"][present_set, present_check].astype(np.int64)
+    frame["leaf_cover"] = dense["leaf_cover"][present_set, present_check]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frame["cover_share"] = frame["leaf_cover"] / total_by_checkpoint[present_check]
+    frame["nested_gain"] = dense["nested_gain"][present_set, present_check]
+    frame["first_round"] = round_of_position[first_position[present_set]]
+    return pd.DataFrame(frame)
 
 
 def structure_by_round(
@@ -737,16 +746,13 @@ def structure_by_round(
        round   feature_a     feature_b  paths  first_round
     0      1  fuel_price  shift_length      2            1
     """
-    ensemble = _as_ensemble(ensemble)
+    ensemble = load_model(ensemble)
     max_order = _check_order(max_order, "max_order")
     walked = _selected_trees(ensemble, None, output)
     tree_round = walked // _trees_per_round(ensemble)
     rounds, round_of_position = np.unique(tree_round, return_inverse=True)
     n_rounds = rounds.size
-    if step is None:
-        step = max(1, -(-n_rounds // 100))
-    elif isinstance(step, (bool, np.bool_)) or not isinstance(step, (int, np.integer)) or step < 1:
-        raise DataError(f"step must be a positive integer, got {step!r}")
+    step = max(1, -(-n_rounds // 100)) if step is None else check_int("step", step, low=1)
     checkpoints = np.unique(np.append(np.arange(step - 1, n_rounds, step), n_rounds - 1))
     checkpoint_of_round = np.searchsorted(checkpoints, np.arange(n_rounds))
     used, rank, n_used = _prepare(ensemble, walked, max_order)
@@ -755,35 +761,11 @@ def structure_by_round(
     records, _ = _walk(ensemble, walked, bucket, max_order, rank, n_used)
     total_by_checkpoint = np.cumsum(np.bincount(bucket, weights=cover_per_position, minlength=checkpoints.size))
     names = np.asarray(ensemble.feature_names, dtype=object)
-    frames = []
-    for size, rec in records.items():
-        if rec.key.size == 0:
-            continue
-        set_ids, set_of_row = np.unique(rec.key, return_inverse=True)
-        n_sets, n_checks = set_ids.size, checkpoints.size
-        dense = {}
-        for name in ("paths", "trees", "leaf_cover", "nested_gain"):
-            grid = np.zeros((n_sets, n_checks))
-            grid[set_of_row, rec.bucket] = getattr(rec, name)
-            dense[name] = np.cumsum(grid, axis=1)
-        first_position = np.full(n_sets, walked.size, dtype=np.int64)
-        np.minimum.at(first_position, set_of_row, rec.first_position)
-        present_set, present_check = np.nonzero(dense["paths"] > 0)
-        members = used[_decode(set_ids, max(n_used, 1), size)][present_set]
-        frame = {"round": rounds[checkpoints[present_check]], "order": np.full(present_set.size, size)}
-        for i, column in enumerate(_MEMBER_COLUMNS[:max_order]):
-            frame[column] = names[members[:, i]] if i < size else np.full(present_set.size, None, dtype=object)
-        frame["paths"] = dense["paths"][present_set, present_check].astype(np.int64)
-        frame["trees"] = dense["trees"][present_set, present_check].astype(np.int64)
-        frame["leaf_cover"] = dense["leaf_cover"][present_set, present_check]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frame["cover_share"] = (
-                frame["leaf_cover"] / total_by_checkpoint[present_check]
-                if basis != "unknown" else np.full(present_set.size, np.nan)
-            )
-        frame["nested_gain"] = dense["nested_gain"][present_set, present_check]
-        frame["first_round"] = tree_round[first_position[present_set]]
-        frames.append(pd.DataFrame(frame))
+    share_total = total_by_checkpoint if basis != "unknown" else np.full(checkpoints.size, np.nan)
+    frames = [
+        _cumulative_frame(rec, size, max_order, used, names, rounds[checkpoints], share_total, tree_round)
+        for size, rec in records.items() if rec.key.size
+    ]
     columns = ["round", "order", *_MEMBER_COLUMNS[:max_order], "paths", "trees", "leaf_cover", "cover_share",
                "nested_gain", "first_round"]
     if not frames:

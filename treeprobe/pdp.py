@@ -33,6 +33,13 @@ The engine below computes, per chunk of trees, the boolean matrix ``fail`` of
 shape (rows, path entries), one column per (leaf, distinct path feature), and the
 per-leaf failure counts; everything else is sums over those columns.
 
+This module owns both engines. :func:`partial_dependence` is the public entry
+point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
+of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
+``F - F_notj`` for H-statistics, from the tree structure) and
+:func:`brute_parts` (``F_S`` by averaging predictions), besides the row
+preparation helpers. Paths and parents come from :mod:`treeprobe.paths`.
+
 References
 ----------
 .. [1] J. H. Friedman, "Greedy function approximation: a gradient boosting
@@ -43,15 +50,22 @@ References
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from joblib import Parallel, delayed
+from scipy.sparse import csr_matrix
 
-from .errors import DataError
+from .checks import check_choice, check_int
+from .errors import DataError, ParameterError
 from .graph import ForestGraph
+from .io import load_model
+from .paths import encode_sets, leaf_steps, parent_links, tree_nodes
+from .progress import progress_bar
 
 __all__ = ["partial_dependence"]
 
@@ -85,8 +99,6 @@ def resolve_model(model: Any) -> FittedModel:
         return FittedModel(model, None)
     if callable(model) and not hasattr(model, "predict"):
         return FittedModel(None, model)
-    from .io import load_model
-
     return FittedModel(load_model(model), None)
 
 
@@ -168,12 +180,12 @@ def feature_index(names: Sequence[str], feature: Any, *, parameter: str) -> int:
     """Position of ``feature`` (a name, or an integer position) among ``names``."""
     if isinstance(feature, (int, np.integer)) and not isinstance(feature, bool):
         if not 0 <= feature < len(names):
-            raise DataError(f"{parameter}: feature position {feature} is outside 0..{len(names) - 1}")
+            raise ParameterError(f"{parameter}: feature position {feature} is outside 0..{len(names) - 1}")
         return int(feature)
     name = str(feature)
     if name not in names:
         shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
-        raise DataError(f"{parameter}: unknown feature {name!r}; the model's features are {shown}")
+        raise ParameterError(f"{parameter}: unknown feature {name!r}; the model's features are {shown}")
     return names.index(name)
 
 
@@ -217,43 +229,20 @@ class PathTable:
         return int(self.entry_leaf.shape[0])
 
 
-def parent_links(ens: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
-    """Parent of every node (-1 at roots) and whether the node is its parent's left child."""
-    parent = np.full(ens.n_nodes, -1, dtype=np.int64)
-    is_left = np.zeros(ens.n_nodes, dtype=bool)
-    inner = np.flatnonzero(ens.feature >= 0)
-    parent[ens.left[inner]] = inner
-    parent[ens.right[inner]] = inner
-    is_left[ens.left[inner]] = True
-    return parent, is_left
-
-
 def path_table(
     ens: ForestGraph, trees: np.ndarray, node_value: np.ndarray, links: tuple[np.ndarray, np.ndarray]
 ) -> PathTable:
     """Build the :class:`PathTable` of ``trees`` (global tree indices)."""
     parent, is_left = links
-    nodes = np.concatenate([np.arange(ens.tree_offsets[t], ens.tree_offsets[t + 1]) for t in trees])
+    nodes = tree_nodes(ens, trees)
     leaf_nodes = nodes[ens.feature[nodes] < 0]
     single = leaf_nodes[parent[leaf_nodes] < 0]
     leaves = leaf_nodes[parent[leaf_nodes] >= 0]
-    step_leaf, step_node, step_left = [], [], []
-    current, owner = leaves, np.arange(leaves.size)
-    while current.size:
-        up = parent[current]
-        keep = up >= 0
-        owner, current, up = owner[keep], current[keep], up[keep]
-        step_leaf.append(owner)
-        step_node.append(up)
-        step_left.append(is_left[current])
-        current = up
     if not leaves.size:
         empty = np.zeros(0, dtype=np.int64)
         return PathTable(np.zeros(0), empty, empty, np.zeros(0, bool), empty, empty, empty, empty,
                          float(node_value[single].sum()))
-    leaf_of_step = np.concatenate(step_leaf)
-    node_of_step = np.concatenate(step_node)
-    left_of_step = np.concatenate(step_left)
+    leaf_of_step, node_of_step, left_of_step = leaf_steps(parent, is_left, leaves)
     feature_of_step = ens.feature[node_of_step].astype(np.int64)
     order = np.lexsort((node_of_step, feature_of_step, leaf_of_step))
     leaf_of_step, node_of_step = leaf_of_step[order], node_of_step[order]
@@ -306,7 +295,7 @@ def failed_conditions(ens: ForestGraph, table: PathTable, matrix: np.ndarray) ->
     return fail, n_failed
 
 
-def sum_rows_by(values: np.ndarray, group: np.ndarray, into: np.ndarray) -> None:
+def _sum_rows_by(values: np.ndarray, group: np.ndarray, into: np.ndarray) -> None:
     """Add row ``r`` of ``values`` into row ``group[r]`` of ``into`` (groups < 0 are dropped)."""
     keep = group >= 0
     if not keep.any():
@@ -316,6 +305,269 @@ def sum_rows_by(values: np.ndarray, group: np.ndarray, into: np.ndarray) -> None
     sorted_group = group[order]
     starts = np.flatnonzero(np.r_[True, sorted_group[1:] != sorted_group[:-1]])
     into[sorted_group[starts]] += np.add.reduceat(values[np.flatnonzero(keep)[order]], starts, axis=0)
+
+
+# --------------------------------------------------------------------------- exact engine (H-statistics)
+def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None) -> list:
+    """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar."""
+    results = []
+    with progress_bar(len(tasks), label, enabled=progress) as bar:
+        if n_jobs == 1:
+            for task in tasks:
+                results.append(function(*task))
+                bar.update()
+            return results
+        for result in Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(*task) for task in tasks):
+            results.append(result)
+            bar.update()
+    return results
+
+
+def _entry_combos(table: PathTable, order: int) -> tuple[np.ndarray, ...]:
+    """All sets of ``order`` entries of one leaf, as index arrays in feature order."""
+    counts = np.diff(np.r_[table.leaf_entry_start, table.n_entries])
+    size = counts[table.entry_leaf]
+    position = np.arange(table.n_entries) - table.leaf_entry_start[table.entry_leaf]
+    largest = int(counts.max(initial=0))
+    parts: list[tuple[np.ndarray, ...]] = []
+    for offsets in itertools.combinations(range(1, largest), order - 1):
+        first = np.flatnonzero(position + offsets[-1] < size)
+        parts.append((first,) + tuple(first + d for d in offsets))
+    if not parts:
+        return tuple(np.zeros(0, dtype=np.int64) for _ in range(order))
+    return tuple(np.concatenate([p[i] for p in parts]) for i in range(order))
+
+
+def _combo_keys(table: PathTable, combos: tuple[np.ndarray, ...], n_features: int) -> np.ndarray:
+    """:func:`~treeprobe.paths.encode_sets` keys of the features of entry combos."""
+    return encode_sets(np.column_stack([table.entry_feature[member] for member in combos]), n_features)
+
+
+def _lookup(keys: np.ndarray, known: np.ndarray) -> np.ndarray:
+    """Position of each key in the sorted array ``known``, -1 when absent."""
+    if not known.size:
+        return np.full(keys.shape, -1, dtype=np.int64)
+    position = np.minimum(np.searchsorted(known, keys), known.size - 1)
+    return np.where(known[position] == keys, position, -1)
+
+
+def _exact_sums(
+    ens: ForestGraph,
+    matrix: np.ndarray,
+    trees: np.ndarray,
+    output: int,
+    pair_keys: np.ndarray,
+    triple_keys: np.ndarray,
+    want_against_rest: bool,
+) -> dict[str, np.ndarray]:
+    """Leaf-wise sums of one group of trees (see the module docstring); all are additive over trees.
+
+    Returns, one row per function and one column per data row: ``main`` (p, n),
+    the uncentred ``F_j``; ``pair`` (n_pairs, n) and ``triple`` (n_triples, n), the
+    interaction parts; ``prediction`` (n,) and ``rest`` (p, n), ``F`` and
+    ``F - F_notj`` (``rest`` only when ``want_against_rest``); all up to constants.
+    """
+    n_rows, n_features = matrix.shape[0], ens.n_features
+    _, node_value = leaf_value_column(ens, output)
+    links = parent_links(ens)
+    sums = {
+        "main": np.zeros((n_features, n_rows)),
+        "pair": np.zeros((pair_keys.size, n_rows)),
+        "triple": np.zeros((triple_keys.size, n_rows)),
+        "prediction": np.zeros(n_rows),
+        "rest": np.zeros((n_features, n_rows)),
+    }
+    block = max(1, CELL_BUDGET // max(n_rows, 1))
+    for chunk in tree_chunks(ens, trees, n_rows):
+        table = path_table(ens, chunk, node_value, links)
+        if not table.n_leaves:
+            continue
+        fail, n_failed = failed_conditions(ens, table, matrix)
+        entry_value = table.leaf_value[table.entry_leaf]
+        reach_apart = (n_failed[table.entry_leaf] - fail) == 0
+        share_one = reach_apart.mean(axis=1)
+        passed = (~fail).astype(np.float64)
+        sums["main"] += _grouping(table.entry_feature, entry_value * share_one, n_features) @ passed
+        sums["prediction"] += table.leaf_value @ (n_failed == 0)
+        if want_against_rest:
+            centred_pass = reach_apart * (passed - passed.mean(axis=1, keepdims=True))
+            sums["rest"] += _grouping(table.entry_feature, entry_value, n_features) @ centred_pass
+            del centred_pass
+        del reach_apart
+        if pair_keys.size:
+            _add_pair_terms(table, fail, n_failed, passed, share_one, pair_keys, n_features, block, sums["pair"])
+        if triple_keys.size:
+            combos = _entry_combos(table, 3)
+            target = _lookup(_combo_keys(table, combos, n_features), triple_keys)
+            wanted = np.flatnonzero(target >= 0)
+            for start in range(0, wanted.size, block):
+                pick = wanted[start:start + block]
+                term = _interaction_term(table, fail, n_failed, share_one, [c[pick] for c in combos])
+                _sum_rows_by(term, target[pick], sums["triple"])
+    return sums
+
+
+def _grouping(group: np.ndarray, weight: np.ndarray, n_groups: int) -> csr_matrix:
+    """Sparse (n_groups, n_members) matrix: ``matrix @ values`` sums weighted rows by group."""
+    return csr_matrix((weight, (group, np.arange(group.size))), shape=(n_groups, group.size))
+
+
+def _double_failure_share(
+    table: PathTable, fail: np.ndarray, n_failed: np.ndarray, first: np.ndarray, second: np.ndarray
+) -> np.ndarray:
+    """Share of rows failing exactly the two entries ``first`` and ``second`` of their leaf, and nothing else.
+
+    Such rows are few, so they are counted from the sparse set of (entry, row)
+    failures on leaves failed twice, grouped by (row, leaf).
+    """
+    entries, rows = np.nonzero(fail & (n_failed[table.entry_leaf] == 2))
+    order = np.lexsort((entries, rows * table.n_leaves + table.entry_leaf[entries]))
+    entries = entries[order]
+    n_entries = table.n_entries
+    keys, counts = np.unique(entries[0::2] * n_entries + entries[1::2], return_counts=True)
+    position = _lookup(first * n_entries + second, keys)
+    return np.where(position >= 0, counts[np.maximum(position, 0)], 0) / fail.shape[1]
+
+
+def _add_pair_terms(
+    table: PathTable,
+    fail: np.ndarray,
+    n_failed: np.ndarray,
+    passed: np.ndarray,
+    share_one: np.ndarray,
+    pair_keys: np.ndarray,
+    n_features: int,
+    block: int,
+    into: np.ndarray,
+) -> None:
+    """Add ``v_L [C_a C_b w_L(ab) - C_a w_L(a) - C_b w_L(b)]`` of every leaf into its pair's row.
+
+    ``w_L(ab) = w_L(a) + w_L(b) - w_L(none) + share failing exactly a and b``
+    (rows whose failures lie inside {a, b}). The linear terms are one sparse
+    product; only the product ``C_a C_b`` needs a pass per leaf and pair.
+    """
+    first, second = _entry_combos(table, 2)
+    target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
+    order = np.flatnonzero(target >= 0)
+    order = order[np.argsort(target[order], kind="stable")]
+    first, second, target = first[order], second[order], target[order]
+    if not target.size:
+        return
+    leaf = table.entry_leaf[first]
+    value = table.leaf_value[leaf]
+    share_none = (n_failed == 0).mean(axis=1)[leaf]
+    share_two = share_one[first] + share_one[second] - share_none + _double_failure_share(
+        table, fail, n_failed, first, second)
+    linear = csr_matrix(
+        (-np.r_[value * share_one[first], value * share_one[second]], (np.r_[target, target], np.r_[first, second])),
+        shape=(pair_keys.size, table.n_entries),
+    )
+    into += linear @ passed
+    weight = (value * share_two)[:, None]
+    for start in range(0, target.size, block):
+        stop = min(start + block, target.size)
+        both = ~(fail[first[start:stop]] | fail[second[start:stop]])
+        piece_target = target[start:stop]
+        starts = np.flatnonzero(np.r_[True, piece_target[1:] != piece_target[:-1]])
+        into[piece_target[starts]] += np.add.reduceat(both * weight[start:stop], starts, axis=0)
+
+
+def _interaction_term(
+    table: PathTable, fail: np.ndarray, n_failed: np.ndarray, share_one: np.ndarray, members: list[np.ndarray]
+) -> np.ndarray:
+    """Inclusion-exclusion over the subsets of each combo's features, one row per combo.
+
+    For members ``M`` of one leaf ``L``: ``v_L * sum_{T subset of M, T nonempty}
+    (-1)^{|M|-|T|} prod_{j in T} C_Lj(x_j) w_L(T)``. The empty set gives a
+    constant, which centring removes.
+    """
+    leaf = table.entry_leaf[members[0]]
+    leaf_failed = n_failed[leaf]
+    member_fail = [fail[m] for m in members]
+    term = np.zeros(leaf_failed.shape)
+    order = len(members)
+    for size in range(1, order + 1):
+        sign = 1.0 if (order - size) % 2 == 0 else -1.0
+        for subset in itertools.combinations(range(order), size):
+            if size == 1:
+                share = share_one[members[subset[0]]]
+            else:
+                outside = leaf_failed.copy()
+                for s in subset:
+                    outside -= member_fail[s]
+                share = (outside == 0).mean(axis=1)
+            inside = ~member_fail[subset[0]]
+            for s in subset[1:]:
+                inside = inside & ~member_fail[s]
+            term += inside * (sign * share)[:, None]
+    return term * table.leaf_value[leaf][:, None]
+
+
+
+@dataclass(frozen=True)
+class ExactParts:
+    """Per-row pieces of the partial dependence functions of one output, from the tree structure.
+
+    Every array is uncentred and exact up to an additive constant per column
+    (centring over the rows removes it), one row per data row.
+
+    Attributes
+    ----------
+    main : ndarray (n_rows, n_features)
+        ``F_j`` for every feature ``j``.
+    pair : ndarray (n_rows, len(pairs))
+        ``F_jk - F_j - F_k`` for each requested pair, in the order given.
+    triple : ndarray (n_rows, len(triples))
+        ``F_jkl - F_jk - F_jl - F_kl + F_j + F_k + F_l`` for each requested triple.
+    prediction : ndarray (n_rows,)
+        The model's raw output ``F``.
+    rest : ndarray (n_rows, n_features)
+        ``F - F_notj`` (zeros unless ``against_rest``).
+    """
+
+    main: np.ndarray
+    pair: np.ndarray
+    triple: np.ndarray
+    prediction: np.ndarray
+    rest: np.ndarray
+
+
+def exact_parts(
+    ens: ForestGraph,
+    matrix: np.ndarray,
+    output: int,
+    pairs: Sequence[tuple[int, int]],
+    triples: Sequence[tuple[int, int, int]],
+    *,
+    against_rest: bool,
+    n_jobs: int = 1,
+    progress: bool | None = None,
+) -> ExactParts:
+    """The exact engine: :class:`ExactParts` of raw output ``output`` at the rows of ``matrix``.
+
+    ``matrix`` is both the background and the evaluation points (as for
+    H-statistics); ``pairs`` and ``triples`` hold feature indices in ascending
+    order. Tree chunks run in ``n_jobs`` joblib workers; their sums add up.
+    """
+    p = ens.n_features
+    pair_keys = encode_sets(np.array(pairs, dtype=np.int64).reshape(-1, 2), p)
+    triple_keys = encode_sets(np.array(triples, dtype=np.int64).reshape(-1, 3), p)
+    sorted_pairs, sorted_triples = np.unique(pair_keys), np.unique(triple_keys)
+    chunks = tree_chunks(ens, ens.trees_of_output(output), matrix.shape[0])
+    tasks = [(ens, matrix, chunk, output, sorted_pairs, sorted_triples, bool(against_rest)) for chunk in chunks]
+    n_rows = matrix.shape[0]
+    total = {"main": np.zeros((p, n_rows)), "pair": np.zeros((sorted_pairs.size, n_rows)),
+             "triple": np.zeros((sorted_triples.size, n_rows)), "prediction": np.zeros(n_rows),
+             "rest": np.zeros((p, n_rows))}
+    for part in _run_tasks(_exact_sums, tasks, n_jobs, f"H-statistics (exact, output {output})", progress):
+        total = {name: total[name] + part[name] for name in total}
+    return ExactParts(
+        main=total["main"].T,
+        pair=total["pair"].T[:, np.searchsorted(sorted_pairs, pair_keys)],
+        triple=total["triple"].T[:, np.searchsorted(sorted_triples, triple_keys)],
+        prediction=total["prediction"],
+        rest=total["rest"].T,
+    )
 
 
 # --------------------------------------------------------------------------- brute force
@@ -396,6 +648,31 @@ def ensemble_predictor(ens: ForestGraph, scale: str) -> Callable[[np.ndarray], n
     return ens.predict
 
 
+
+def brute_parts(
+    fitted: FittedModel,
+    data: PreparedData,
+    sets: Sequence[tuple[int, ...]],
+    output: int | None,
+    *,
+    scale: str = "margin",
+    n_jobs: int = 1,
+    progress: bool | None = None,
+) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The brute-force engine: the prediction at the rows and ``F_S`` at the rows for every set ``S``.
+
+    ``data`` is both the background and the evaluation points. Predicting the
+    rows themselves first checks the model's output shape on the user's own
+    data. Each value is (n_rows,) or (n_rows, n_outputs) when ``output`` is
+    None on a multi-output model; sets run in ``n_jobs`` joblib workers.
+    """
+    predict = ensemble_predictor(fitted.ensemble, scale) if fitted.is_tree else fitted.predict
+    row_bytes = predictor_row_bytes(fitted.ensemble, data.matrix.shape[1])
+    prediction = model_output(predict(data.frame if data.frame is not None else data.matrix), data.n_rows, output)
+    tasks = [(predict, data, data, list(s), output, row_bytes) for s in sets]
+    return prediction, _run_tasks(brute_partial_dependence, tasks, n_jobs, "H-statistics (brute)", progress)
+
+
 # --------------------------------------------------------------------------- exact
 def exact_partial_dependence(
     ens: ForestGraph, background: np.ndarray, grid_rows: np.ndarray, columns: Sequence[int], output: int
@@ -422,6 +699,76 @@ def exact_partial_dependence(
         grid_failed_in_set = np.add.reduceat(grid_fail & entry_in_set, table.leaf_entry_start, axis=0, dtype=np.int16)
         result += (table.leaf_value * share) @ (grid_failed_in_set == 0)
     return result
+
+
+METHODS = ("auto", "exact", "brute")
+SCALES = ("margin", "probability")
+# Links under which the raw margin already is the prediction scale.
+_MARGIN_IS_PREDICTION = ("identity", "proba")
+
+
+def check_output(ens: ForestGraph, output: Any) -> int:
+    """The ``output`` option of a tree ensemble: an integer in ``0..n_outputs - 1``."""
+    return check_int("output", output, low=0, high=ens.n_outputs - 1)
+
+
+def choose_exact(fitted: FittedModel, method: str, scale: str) -> bool:
+    """Whether the exact engine runs for these (checked) ``method`` and ``scale`` options.
+
+    Raises
+    ------
+    ParameterError
+        ``method="exact"`` without a tree ensemble or on the probability
+        scale, and ``scale="probability"`` on a model whose link leaves the
+        margin unchanged (regression): there the two scales agree and only the
+        margin gets the exact engine.
+    """
+    ens = fitted.ensemble
+    if method == "exact" and not fitted.is_tree:
+        raise ParameterError("method='exact' needs a tree ensemble; a callable model needs method='brute' or 'auto'")
+    if method == "exact" and scale != "margin":
+        raise ParameterError("method='exact' computes margin-scale values; use scale='margin' or method='brute'")
+    if scale == "probability" and ens is not None and ens.link in _MARGIN_IS_PREDICTION:
+        raise ParameterError(
+            f"scale='probability' needs a model with a probability link, but this model's link is {ens.link!r} "
+            f"(objective {ens.objective!r}): its margin already is its prediction; use scale='margin', which "
+            "gives the same values with the exact engine"
+        )
+    return fitted.is_tree and method != "brute" and scale == "margin"
+
+
+def _feature_columns(features: Any, names: Sequence[str]) -> list[int]:
+    if isinstance(features, (str, int, np.integer)) or len(features) == 0:
+        raise ParameterError(f"features must be a non-empty sequence of feature names, got {features!r}")
+    columns = [feature_index(names, f, parameter="features") for f in features]
+    if len(set(columns)) != len(columns):
+        raise ParameterError(f"features lists a feature twice: {list(features)}")
+    return columns
+
+
+def _grid_values(grid: Any, n_columns: int) -> np.ndarray:
+    values = np.asarray(grid, dtype=np.float64)
+    if values.ndim == 1 and n_columns == 1:
+        values = values[:, None]
+    if values.ndim != 2 or values.shape[1] != n_columns:
+        raise ParameterError(f"grid must have shape (n_points, {n_columns}), got {values.shape}")
+    return values
+
+
+def _grid_frame(data: PreparedData, columns: list[int], grid_values: np.ndarray) -> pd.DataFrame | None:
+    """Grid points as a DataFrame of the background's dtypes (for a callable given a DataFrame)."""
+    if data.frame is None:
+        return None
+    frame = data.frame.iloc[np.zeros(grid_values.shape[0], dtype=np.int64)].reset_index(drop=True)
+    for position, j in enumerate(columns):
+        name = data.frame.columns[j]
+        column = data.frame[name]
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            codes = np.where(np.isnan(grid_values[:, position]), -1, grid_values[:, position]).astype(np.int64)
+            frame[name] = pd.Categorical.from_codes(codes, dtype=column.dtype)
+        else:
+            frame[name] = grid_values[:, position]
+    return frame
 
 
 def partial_dependence(
@@ -456,12 +803,21 @@ def partial_dependence(
     output : int, optional
         Output (class) of a multi-output model; None returns every output.
     scale : {"margin", "probability"}, default "margin"
-        Raw margin (log-odds for classifiers) or the link's scale (brute only).
+        Raw margin (log-odds for classifiers) or the link's scale (brute only;
+        refused when the link is the identity, where both scales agree).
 
     Returns
     -------
     ndarray of shape (n_points,), or (n_points, n_outputs) for all outputs of a multi-output model
         Uncentred partial dependence, ``F_S(z) = (1/n) sum_i f(z_S, x_{i, not S})``.
+
+    Raises
+    ------
+    ParameterError
+        An invalid ``method``, ``scale``, ``features``, ``grid`` or ``output``,
+        or a combination the model does not support (see ``scale``).
+    DataError
+        Rows that do not fit the model, or a predictor returning the wrong shape.
 
     Notes
     -----
@@ -483,46 +839,23 @@ def partial_dependence(
     >>> partial_dependence(f, X, [0], [[1.0], [2.0]])
     array([3., 6.])
     """
-    if method not in ("auto", "exact", "brute"):
-        raise DataError(f"method must be 'auto', 'exact' or 'brute', got {method!r}")
-    if scale not in ("margin", "probability"):
-        raise DataError(f"scale must be 'margin' or 'probability', got {scale!r}")
+    method = check_choice("method", method, METHODS)
+    scale = check_choice("scale", scale, SCALES)
     fitted = resolve_model(model)
-    if method == "exact" and (not fitted.is_tree or scale != "margin"):
-        raise DataError("method='exact' needs a tree ensemble and scale='margin'")
+    use_exact = choose_exact(fitted, method, scale)
     data = prepare_rows(fitted, X, min_rows=1)
-    if isinstance(features, (str, int, np.integer)) or len(features) == 0:
-        raise DataError(f"features must be a non-empty sequence of feature names, got {features!r}")
-    columns = [feature_index(data.names, f, parameter="features") for f in features]
-    if len(set(columns)) != len(columns):
-        raise DataError(f"features lists a feature twice: {list(features)}")
-    grid_values = np.asarray(grid, dtype=np.float64)
-    if grid_values.ndim == 1 and len(columns) == 1:
-        grid_values = grid_values[:, None]
-    if grid_values.ndim != 2 or grid_values.shape[1] != len(columns):
-        raise DataError(f"grid must have shape (n_points, {len(columns)}), got {grid_values.shape}")
-    n_outputs = fitted.ensemble.n_outputs if fitted.is_tree else None
-    if output is not None and n_outputs is not None and not 0 <= output < n_outputs:
-        raise DataError(f"output must lie in 0..{n_outputs - 1}, got {output}")
+    columns = _feature_columns(features, data.names)
+    grid_values = _grid_values(grid, len(columns))
+    if fitted.is_tree and output is not None:
+        check_output(fitted.ensemble, output)
     grid_matrix = np.full((grid_values.shape[0], data.matrix.shape[1]), np.nan)
     grid_matrix[:, columns] = grid_values
-    if fitted.is_tree and method != "brute" and scale == "margin":
+    if use_exact:
         ens = fitted.ensemble
         outputs = [output] if output is not None else list(range(ens.n_outputs))
         values = [exact_partial_dependence(ens, data.matrix, grid_matrix, columns, k) for k in outputs]
         return values[0] if len(values) == 1 else np.column_stack(values)
+    points = PreparedData(grid_matrix, _grid_frame(data, columns, grid_values), data.names)
     predict = ensemble_predictor(fitted.ensemble, scale) if fitted.is_tree else fitted.predict
-    points_frame = None
-    if data.frame is not None:
-        points_frame = data.frame.iloc[np.zeros(grid_values.shape[0], dtype=np.int64)].reset_index(drop=True)
-        for position, j in enumerate(columns):
-            name = data.frame.columns[j]
-            column = data.frame[name]
-            if isinstance(column.dtype, pd.CategoricalDtype):
-                codes = np.where(np.isnan(grid_values[:, position]), -1, grid_values[:, position]).astype(np.int64)
-                points_frame[name] = pd.Categorical.from_codes(codes, dtype=column.dtype)
-            else:
-                points_frame[name] = grid_values[:, position]
-    points = PreparedData(grid_matrix, points_frame, data.names)
     return brute_partial_dependence(predict, data, points, columns, output,
                                     predictor_row_bytes(fitted.ensemble, data.matrix.shape[1]))

@@ -1,0 +1,103 @@
+"""Tests of :mod:`treeprobe.paths`, the one parent builder and path walk.
+
+Outside reference: XGBoost's own tree dump (``Booster.trees_to_dataframe``:
+``Node``, ``Feature``, ``Yes``, ``No`` per node), walked here recursively from
+the root, and hand-built trees.
+"""
+
+from __future__ import annotations
+
+from itertools import combinations
+
+import numpy as np
+import pytest
+
+from treeprobe import load_model
+from treeprobe.graph import ForestGraph
+from treeprobe.paths import (
+    decode_sets,
+    encode_sets,
+    leaf_feature_sets,
+    leaf_steps,
+    parent_links,
+    sets_on_paths,
+    tree_nodes,
+)
+
+
+@pytest.fixture(scope="module")
+def booster_and_graph():
+    xgb = pytest.importorskip("xgboost")
+    rng = np.random.default_rng(3)
+    X = rng.normal(size=(400, 6))
+    y = X[:, 0] * X[:, 1] + np.sin(X[:, 2]) * X[:, 3] + X[:, 4] + rng.normal(scale=0.2, size=400)
+    model = xgb.XGBRegressor(n_estimators=12, max_depth=4, n_jobs=1, random_state=0).fit(X, y)
+    return model.get_booster(), load_model(model)
+
+
+def _dump_leaf_sets(booster) -> set[frozenset[int]]:
+    """Feature sets of every root-to-leaf path, walked from XGBoost's own dump."""
+    frame = booster.trees_to_dataframe()
+    out: set[frozenset[int]] = set()
+    for _, tree in frame.groupby("Tree"):
+        rows = {row.ID: row for row in tree.itertuples()}
+
+        def walk(node_id, above, rows=rows):
+            row = rows[node_id]
+            if row.Feature == "Leaf":
+                out.add(frozenset(above))
+                return
+            feature = int(row.Feature[1:])
+            walk(row.Yes, above | {feature}, rows)
+            walk(row.No, above | {feature}, rows)
+
+        walk(f"{int(tree.Tree.iloc[0])}-0", frozenset())
+    return out
+
+
+def test_leaf_feature_sets_match_the_xgboost_dump(booster_and_graph):
+    booster, graph = booster_and_graph
+    ours = {frozenset(np.flatnonzero(row).tolist()) for row in leaf_feature_sets(graph)}
+    assert ours == _dump_leaf_sets(booster)
+
+
+def test_sets_on_paths_are_the_subsets_of_the_dump_paths(booster_and_graph):
+    booster, graph = booster_and_graph
+    for size in (2, 3):
+        expected = sorted({tuple(sorted(c)) for s in _dump_leaf_sets(booster) for c in combinations(s, size)})
+        got = [tuple(m) for m in decode_sets(sets_on_paths(graph, size), graph.n_features, size).tolist()]
+        assert got == expected
+
+
+def test_subset_of_trees_and_chunking(booster_and_graph, monkeypatch):
+    """Walking trees 3..5 equals walking the graph of those trees alone; tiny chunks change nothing."""
+    _, graph = booster_and_graph
+    import treeprobe.paths as paths_module
+
+    whole = leaf_feature_sets(graph)
+    alone = leaf_feature_sets(graph.select_trees(np.arange(3, 6)))
+    monkeypatch.setattr(paths_module, "_CHUNK_NODES", 7)
+    np.testing.assert_array_equal(leaf_feature_sets(graph), whole)
+    np.testing.assert_array_equal(leaf_feature_sets(graph, np.arange(3, 6)), alone)
+
+
+def test_parents_and_leaf_climb_on_a_hand_built_tree():
+    """n0 f0 -> (n1 f1 -> (n3, n4), n2): leaf n4's path is n1 (right), n0 (left)."""
+    graph = ForestGraph.from_arrays(
+        feature=[0, 1, -1, -1, -1], threshold=[0.5, 2.0, 0, 0, 0], left=[1, 3, -1, -1, -1],
+        right=[2, 4, -1, -1, -1], value=[0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 5])
+    parent, is_left = parent_links(graph)
+    assert parent.tolist() == [-1, 0, 0, 1, 1]
+    assert is_left.tolist() == [False, True, False, True, False]
+    owner, node, left = leaf_steps(parent, is_left, np.array([4]))
+    assert (owner.tolist(), node.tolist(), left.tolist()) == ([0, 0], [1, 0], [False, True])
+    assert tree_nodes(graph, np.array([0])).tolist() == [0, 1, 2, 3, 4]
+
+
+def test_set_keys_round_trip_and_sort_like_tuples():
+    rng = np.random.default_rng(0)
+    members = np.sort(rng.choice(40, size=(200, 3)), axis=1)
+    keys = encode_sets(members, 40)
+    np.testing.assert_array_equal(decode_sets(keys, 40, 3), members)
+    order = np.lexsort(members.T[::-1])
+    assert np.all(np.diff(keys[order]) >= 0)

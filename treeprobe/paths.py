@@ -1,0 +1,287 @@
+"""Root-to-leaf paths of a forest graph: parents, ancestor feature sets and set keys.
+
+Every stage that reads a tree's paths starts from the same three facts: the
+parent of each node, the set of features split on above it (its *ancestor
+feature set*, kept as a bitmask propagated from the root level by level), and
+the climb from a leaf to its root. This module computes them once, on the
+columnar arrays of :class:`~treeprobe.graph.ForestGraph`, with vectorised
+numpy and no per-node Python loop; the structure walk
+(:mod:`treeprobe.cooccurrence`), the exact partial-dependence engine
+(:mod:`treeprobe.pdp`), the H-statistics (:mod:`treeprobe.measure`) and the
+constraint checks (:mod:`treeprobe.constraints`) all use it.
+
+A leaf's value depends on the features of its root-to-leaf path only, so the
+feature sets found here bound which interactions a tree can express ([1]_,
+section 5; [2]_, section 8). Feature sets of one size are identified by one
+integer key (:func:`encode_sets`), members in ascending order.
+
+References
+----------
+.. [1] J. H. Friedman and B. E. Popescu, "Predictive learning via rule
+   ensembles", The Annals of Applied Statistics 2(3), 916-954, 2008.
+.. [2] J. H. Friedman, "Greedy function approximation: a gradient boosting
+   machine", The Annals of Statistics 29(5), 1189-1232, 2001.
+
+Examples
+--------
+One tree: the root splits on feature 0, its left child on feature 1.
+
+>>> from treeprobe.graph import ForestGraph
+>>> graph = ForestGraph.from_arrays(
+...     feature=[0, 1, -1, -1, -1], threshold=[0.5, 2.0, 0, 0, 0],
+...     left=[1, 2, -1, -1, -1], right=[4, 3, -1, -1, -1],
+...     value=[0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 5])
+>>> leaf_feature_sets(graph).astype(int)
+array([[1, 0],
+       [1, 1]])
+>>> sets_on_paths(graph, 2)
+array([1])
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from itertools import combinations
+
+import numpy as np
+
+from .graph import ForestGraph
+
+__all__ = [
+    "parent_links",
+    "tree_nodes",
+    "depth_levels",
+    "ancestor_masks",
+    "mask_members",
+    "member_subsets",
+    "encode_sets",
+    "decode_sets",
+    "leaf_feature_sets",
+    "sets_on_paths",
+    "leaf_steps",
+]
+
+# Nodes per chunk of :func:`leaf_feature_sets`: bounds the (nodes x words) masks.
+_CHUNK_NODES = 1 << 16
+
+
+def parent_links(graph: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
+    """Parent of every node (-1 at roots) and whether the node is its parent's left child.
+
+    Examples
+    --------
+    >>> from treeprobe.graph import ForestGraph
+    >>> graph = ForestGraph.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
+    ...                                 right=[2, -1, -1], value=[0, 1.0, 2.0], tree_offsets=[0, 3])
+    >>> parent, is_left = parent_links(graph)
+    >>> parent.tolist(), is_left.tolist()
+    ([-1, 0, 0], [False, True, False])
+    """
+    parent = np.full(graph.n_nodes, -1, dtype=np.int64)
+    is_left = np.zeros(graph.n_nodes, dtype=bool)
+    inner = np.flatnonzero(graph.feature >= 0)
+    parent[graph.left[inner]] = inner
+    parent[graph.right[inner]] = inner
+    is_left[graph.left[inner]] = True
+    return parent, is_left
+
+
+def tree_nodes(graph: ForestGraph, trees: np.ndarray) -> np.ndarray:
+    """Node indices of the trees ``trees`` (in the given order), concatenated without a Python loop.
+
+    Examples
+    --------
+    >>> from treeprobe.graph import ForestGraph
+    >>> graph = ForestGraph.from_arrays(feature=[-1, 0, -1, -1], threshold=[0, 0.5, 0, 0], left=[-1, 2, -1, -1],
+    ...                                 right=[-1, 3, -1, -1], value=[1.0, 0, 1.0, 2.0], tree_offsets=[0, 1, 4])
+    >>> tree_nodes(graph, np.array([1])).tolist()
+    [1, 2, 3]
+    """
+    trees = np.asarray(trees, dtype=np.int64)
+    starts = graph.tree_offsets[trees].astype(np.int64)
+    sizes = (graph.tree_offsets[trees + 1] - graph.tree_offsets[trees]).astype(np.int64)
+    ends = np.cumsum(sizes)
+    return np.repeat(starts - (ends - sizes), sizes) + np.arange(ends[-1] if ends.size else 0)
+
+
+def depth_levels(depth: np.ndarray) -> list[np.ndarray]:
+    """Positions of ``depth`` grouped by value 0, 1, ..., max: the order of a level-by-level walk.
+
+    Examples
+    --------
+    >>> [level.tolist() for level in depth_levels(np.array([0, 1, 1, 2]))]
+    [[0], [1, 2], [3]]
+    """
+    depth = np.asarray(depth, dtype=np.int64)
+    if depth.size == 0:
+        return []
+    by_depth = np.argsort(depth, kind="stable")
+    start = np.searchsorted(depth[by_depth], np.arange(int(depth.max()) + 2))
+    return [by_depth[start[d]:start[d + 1]] for d in range(int(depth.max()) + 1)]
+
+
+def ancestor_masks(local_parent: np.ndarray, code: np.ndarray, levels: list[np.ndarray], n_codes: int) -> np.ndarray:
+    """Bitmask of the codes of every node's strict ancestors, propagated top-down.
+
+    Parameters
+    ----------
+    local_parent : ndarray of int
+        Position of each node's parent in the same arrays (ignored at level 0).
+    code : ndarray of int
+        Code of each node's split (a feature index or rank); leaves may hold -1.
+    levels : list of ndarray
+        Node positions by depth, from :func:`depth_levels`.
+    n_codes : int
+        Number of distinct codes; bit ``b`` of word ``w`` stands for code ``64 w + b``.
+
+    Returns
+    -------
+    ndarray of uint64, shape (n_nodes, ceil(n_codes / 64))
+        A node's mask is its parent's mask plus its parent's code.
+
+    Examples
+    --------
+    >>> masks = ancestor_masks(np.array([-1, 0, 0, 1]), np.array([0, 1, -1, -1]),
+    ...                        depth_levels(np.array([0, 1, 1, 2])), 2)
+    >>> masks[:, 0].tolist()
+    [0, 1, 1, 3]
+    """
+    n_words = max(1, -(-int(n_codes) // 64))
+    masks = np.zeros((np.asarray(code).size, n_words), dtype=np.uint64)
+    one = np.uint64(1)
+    for members in levels[1:]:
+        up = local_parent[members]
+        up_code = code[up]
+        masks[members] = masks[up]
+        masks[members, up_code >> 6] |= one << (up_code & 63).astype(np.uint64)
+    return masks
+
+
+def mask_members(masks: np.ndarray, n_bits: int) -> np.ndarray:
+    """Boolean (rows x n_bits) matrix of the bits set in uint64 masks, bit b of word w = item 64 w + b.
+
+    Examples
+    --------
+    >>> mask_members(np.array([[5]], dtype=np.uint64), 3).astype(int)
+    array([[1, 0, 1]])
+    """
+    as_bytes = np.ascontiguousarray(masks.astype("<u8", copy=False)).view(np.uint8)
+    return np.unpackbits(as_bytes, axis=1, bitorder="little")[:, :n_bits].astype(bool)
+
+
+@lru_cache(maxsize=256)
+def _combination_table(n_items: int, size: int) -> np.ndarray:
+    table = np.array(list(combinations(range(n_items), size)), dtype=np.int64)
+    return table.reshape(-1, size)
+
+
+def member_subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``size``-subset of the set items of every row of a boolean matrix.
+
+    Returns the owning row of each subset and its members (ascending), shape (n, size).
+    Rows are grouped by their item count so that each group is one fancy-indexing
+    step through a table of index combinations.
+
+    Examples
+    --------
+    >>> owner, members = member_subsets(np.array([[True, True, True], [True, False, True]]), 2)
+    >>> owner.tolist(), members.tolist()
+    ([1, 0, 0, 0], [[0, 2], [0, 1], [0, 2], [1, 2]])
+    """
+    counts = bits.sum(axis=1)
+    rows, items = np.nonzero(bits)
+    starts = np.cumsum(counts) - counts
+    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
+    for n_items in np.unique(counts[counts >= size]):
+        owners = np.flatnonzero(counts == n_items)
+        members = items[starts[owners][:, None] + np.arange(n_items)]
+        table = _combination_table(int(n_items), size)
+        owner_parts.append(np.repeat(owners, table.shape[0]))
+        member_parts.append(members[:, table].reshape(-1, size))
+    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
+
+
+def encode_sets(members: np.ndarray, radix: int) -> np.ndarray:
+    """One int64 key per row of ``members`` (each in ``0..radix-1``): ``sum_i members[i] * radix**(size-1-i)``.
+
+    Keys of sets given in ascending member order sort like the member tuples.
+    The caller keeps ``radix**size`` below ``2**63``.
+
+    Examples
+    --------
+    >>> encode_sets(np.array([[0, 2], [1, 2]]), 3).tolist()
+    [2, 5]
+    >>> decode_sets(np.array([2, 5]), 3, 2).tolist()
+    [[0, 2], [1, 2]]
+    """
+    members = np.asarray(members, dtype=np.int64)
+    key = np.zeros(members.shape[0], dtype=np.int64)
+    for column in members.T:
+        key = key * radix + column
+    return key
+
+
+def decode_sets(keys: np.ndarray, radix: int, size: int) -> np.ndarray:
+    """Members (rows, ascending) of the sets behind :func:`encode_sets` keys."""
+    rest = np.asarray(keys, dtype=np.int64).copy()
+    members = np.empty((rest.size, size), dtype=np.int64)
+    for position in range(size - 1, -1, -1):
+        members[:, position] = rest % radix
+        rest //= radix
+    return members
+
+
+def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np.ndarray:
+    """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix.
+
+    ``trees`` restricts the walk to those tree indices (default: every tree).
+    A single-leaf tree contributes the empty set.
+    """
+    trees = np.arange(graph.n_trees) if trees is None else np.asarray(trees, dtype=np.int64)
+    parent, _ = parent_links(graph)
+    sizes = (graph.tree_offsets[trees + 1] - graph.tree_offsets[trees]).astype(np.int64)
+    chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
+    found = [np.zeros((0, max(1, -(-graph.n_features // 64))), dtype=np.uint64)]
+    for chunk in np.split(trees, np.flatnonzero(np.diff(chunk_of_tree)) + 1):
+        if not chunk.size:
+            continue
+        nodes = tree_nodes(graph, chunk)
+        local_parent = np.searchsorted(nodes, parent[nodes])
+        masks = ancestor_masks(local_parent, graph.feature[nodes].astype(np.int64),
+                               depth_levels(graph.depth[nodes]), graph.n_features)
+        found.append(np.unique(masks[graph.feature[nodes] < 0], axis=0))
+    return mask_members(np.unique(np.concatenate(found), axis=0), graph.n_features)
+
+
+def sets_on_paths(graph: ForestGraph, size: int, trees: np.ndarray | None = None) -> np.ndarray:
+    """Sorted :func:`encode_sets` keys (radix ``n_features``) of the ``size``-sets meeting on some path."""
+    _, members = member_subsets(leaf_feature_sets(graph, trees), size)
+    return np.unique(encode_sets(members, graph.n_features))
+
+
+def leaf_steps(
+    parent: np.ndarray, is_left: np.ndarray, leaves: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Every ancestor split of every leaf, by climbing all leaves one level per step.
+
+    Returns, one entry per (leaf, ancestor): the leaf's position in ``leaves``,
+    the ancestor node, and whether the path goes left there.
+
+    Examples
+    --------
+    >>> owner, node, left = leaf_steps(np.array([-1, 0, 0, 1, 1]), np.array([False, True, False, True, False]),
+    ...                                np.array([3, 2]))
+    >>> owner.tolist(), node.tolist(), left.tolist()
+    ([0, 1, 0], [1, 0, 0], [True, False, True])
+    """
+    owners, nodes, lefts = [np.zeros(0, np.int64)], [np.zeros(0, np.int64)], [np.zeros(0, bool)]
+    current, owner = np.asarray(leaves, dtype=np.int64), np.arange(len(leaves))
+    while current.size:
+        up = parent[current]
+        keep = up >= 0
+        owner, current, up = owner[keep], current[keep], up[keep]
+        owners.append(owner)
+        nodes.append(up)
+        lefts.append(is_left[current])
+        current = up
+    return np.concatenate(owners), np.concatenate(nodes), np.concatenate(lefts)
