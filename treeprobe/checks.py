@@ -118,11 +118,11 @@ def check_progress(value: Any) -> bool | None:
     raise ParameterError(f"progress must be None (a bar on a terminal only), True or False, got {value!r}")
 
 
-def check_n_jobs(value: Any) -> int:
-    """The ``n_jobs`` option: a non-zero integer, -1 for all cores (joblib's convention)."""
+def check_n_jobs(value: Any, *, name: str = "n_jobs") -> int:
+    """The ``n_jobs`` option (or the flag ``name``): a non-zero integer, -1 for all cores (joblib's convention)."""
     if isinstance(value, numbers.Integral) and not isinstance(value, bool) and value != 0:
         return int(value)
-    raise ParameterError(f"n_jobs must be a non-zero integer (-1 for all cores), got {value!r}")
+    raise ParameterError(f"{name} must be a non-zero integer (-1 for all cores), got {value!r}")
 
 
 def check_seed(name: str, value: Any, *, allow_none: bool = True) -> int | None:

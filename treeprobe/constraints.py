@@ -79,7 +79,8 @@ import pandas as pd
 
 from .errors import DataError, MissingLibraryError, UnsupportedModelError
 from .graph import ForestGraph
-from .output import Progress, atomic_write, dumps_json, to_jsonable
+from .output import atomic_write, dumps_json, to_jsonable
+from .progress import progress_bar
 from .refit import (
     BINARY,
     LIBRARIES,
@@ -800,7 +801,7 @@ def validate_constraints(
 
     splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
     rows = []
-    with Progress(folds, "constraint folds", enabled=progress) as bar:
+    with progress_bar(folds, "constraint folds", enabled=progress) as bar:
         for fold, (train, test) in enumerate(splitter.split(matrix, target.astype(int) if task != REGRESSION else None)):
             scores = {}
             for label, chosen in (("unconstrained", None), ("constrained", index_groups)):
@@ -810,7 +811,7 @@ def validate_constraints(
                 free, bound = scores["unconstrained"][metric], scores["constrained"][metric]
                 rows.append({"fold": fold, "metric": metric, "unconstrained": free, "constrained": bound,
                              "difference": bound - free})
-            bar.advance()
+            bar.update()
     table = pd.DataFrame(rows, columns=["fold", "metric", "unconstrained", "constrained", "difference"])
 
     from .io import load_model

@@ -69,7 +69,8 @@ import pandas as pd
 
 from .errors import DataError, MissingLibraryError
 from .graph import ForestGraph
-from .output import Progress, atomic_write
+from .output import atomic_write
+from .progress import progress_bar
 
 __all__ = ["report", "SECTIONS", "VERDICT_STYLES"]
 
@@ -909,16 +910,16 @@ def report(
     leading = _leading_pairs(pairs, int(top_pairs))
     max_dependence = float(triage_result.thresholds.get("max_dependence", 0.7))
     canvas = _Canvas(plt)
-    with Progress(4, "report figures", enabled=progress) as bar:
+    with progress_bar(4, "report figures", enabled=progress) as bar:
         pair_map = timed("figure: pair map", lambda: _pair_map_figure(canvas, triage_result))
-        bar.advance()
+        bar.update()
         graph_svg, graph_note = timed("figure: interaction graph", lambda: _graph_figure(canvas, triage_result))
-        bar.advance()
+        bar.update()
         dependence = timed("figures: partial dependence of the leading pairs",
                            lambda: _dependence_section(canvas, ens, matrix, leading, output, max_dependence))
-        bar.advance()
+        bar.update()
         rounds = timed("figure: pairs over boosting rounds", lambda: _rounds_section(canvas, ens, leading, output))
-        bar.advance()
+        bar.update()
 
     if isinstance(y, str):
         target_text = f"column {_e(y)}"

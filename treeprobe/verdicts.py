@@ -75,11 +75,12 @@ import pandas as pd
 
 from .errors import DataError
 from .graph import ForestGraph
-from .output import Progress, to_jsonable
+from .output import to_jsonable
+from .progress import progress_bar
 
 __all__ = ["TriageResult", "triage", "VERDICTS", "VERDICT_RULES", "LIMITS"]
 
-VERDICTS = ("interaction", "co-split", "dependent", "absent")
+VERDICTS = ("interaction", "dependent", "co-split", "absent")
 LIMITS = (
     "Verdicts rest on conventions (the thresholds in the verdict rules) and on H-statistics, which extrapolate when features are "
     "dependent. They describe this model, not the world: structure is not causation, and a model's interactions "
@@ -312,15 +313,15 @@ def _null_h(ens: ForestGraph, source: Any, X: Any, y: np.ndarray, rows: Any, nam
                            feature_names=columns)
         return _pair_h(refit, rows, names, output)
 
-    with Progress(refits, "null refits", enabled=progress) as bar:
+    with progress_bar(refits, "null refits", enabled=progress) as bar:
         if n_jobs == 1:
             values = []
             for seed in seeds:
                 values.append(one(int(seed)))
-                bar.advance()
+                bar.update()
         else:
             values = Parallel(n_jobs=n_jobs)(delayed(one)(int(seed)) for seed in seeds)
-            bar.advance(refits)
+            bar.update(refits)
     notes = list(notes) + [
         f"Noise floor from {refits} refits of the {library} model on synthetic targets without interaction "
         f"({'additive fit plus permuted residuals' if task == REGRESSION else 'labels drawn from the additive fit'})."
@@ -494,11 +495,11 @@ def triage(
         half = max(2, n_rows // 2)
         point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
         subs = np.empty((resamples, 2, len(share_names)))
-        with Progress(resamples, "resampling", enabled=progress) as bar:
+        with progress_bar(resamples, "resampling", enabled=progress) as bar:
             for b in range(resamples):
                 pick = np.sort(rng.choice(n_rows, size=half, replace=False))
                 subs[b] = _pair_h(ens, _take_rows(rows, pick), share_names, h_out)
-                bar.advance()
+                bar.update()
         alpha = (1.0 - confidence) / 2.0
         shrink = np.sqrt(half / n_rows)
         spread = subs - point[None]
