@@ -216,8 +216,9 @@ def test_package_exports_its_errors_and_warning_lazily():
     assert set(treeprobe.__all__) <= set(dir(treeprobe))
     for name in treeprobe.__all__:
         assert getattr(treeprobe, name) is not None
-    with pytest.raises(AttributeError, match="no attribute 'hstat'"):
-        treeprobe.hstat  # noqa: B018
+    for retired in ("hstat", "TreeEnsemble"):
+        with pytest.raises(AttributeError, match=f"no attribute '{retired}'"):
+            getattr(treeprobe, retired)
 
 
 @pytest.mark.parametrize(

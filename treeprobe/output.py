@@ -7,6 +7,7 @@ none, never half a file.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
@@ -50,10 +51,8 @@ def atomic_write(path: str | os.PathLike, write: Callable[[TextIO], None], *, en
             os.fsync(handle.fileno())
         os.replace(tmp, target)
     except BaseException:
-        try:
+        with contextlib.suppress(OSError):
             os.unlink(tmp)
-        except OSError:
-            pass
         raise
     return target
 
