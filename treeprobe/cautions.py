@@ -5,15 +5,15 @@ results, so the wording cannot drift apart between commands.
 
 Examples
 --------
->>> print(caution_text("Read this first.").splitlines()[0])
-Read this first.
 >>> len(CAUTIONS)
 4
+>>> print(CAUTIONS[0].split(":")[0])
+Structure is not causation
 """
 
 from __future__ import annotations
 
-__all__ = ["NOT_CAUSAL", "DEPENDENT_FEATURES", "MODEL_NOT_WORLD", "DECISIONS_ABOUT_PEOPLE", "CAUTIONS", "caution_text"]
+__all__ = ["NOT_CAUSAL", "DEPENDENT_FEATURES", "MODEL_NOT_WORLD", "DECISIONS_ABOUT_PEOPLE", "CAUTIONS"]
 
 NOT_CAUSAL = (
     "Structure is not causation: the trees record which features helped them fit the data, not what causes what."
@@ -32,7 +32,3 @@ DECISIONS_ABOUT_PEOPLE = (
 )
 CAUTIONS = (NOT_CAUSAL, DEPENDENT_FEATURES, MODEL_NOT_WORLD, DECISIONS_ABOUT_PEOPLE)
 
-
-def caution_text(lead: str = "") -> str:
-    """The cautions as one paragraph per line, after ``lead`` (a command's own note) when given."""
-    return "\n".join(([lead] if lead else []) + list(CAUTIONS))

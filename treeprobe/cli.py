@@ -528,30 +528,7 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
                    help="dependence from which a pair is 'dependent' (default 0.7)")
 
 
-def _add_command(sub: Any, name: str, handler: Callable[[argparse.Namespace], int], summary: str,
-                 description: str) -> argparse.ArgumentParser:
-    p = sub.add_parser(name, help=summary, description=description)
-    p.set_defaults(handler=handler)
-    return p
-
-
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of the ``treeprobe`` command."""
-    from . import __version__
-
-    parser = argparse.ArgumentParser(
-        prog="treeprobe",
-        description="Which feature interactions does a fitted tree ensemble really use?",
-        epilog="Run 'treeprobe COMMAND --help' for the options of a command.",
-    )
-    parser.add_argument("--version", action="version", version=f"treeprobe {__version__}")
-    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-
-    p = _add_command(sub, "inspect", _cmd_inspect,
-                     "model summary and the feature sets its trees combine on root-to-leaf paths",
-                     "Summarise a saved model and count how features co-occur on root-to-leaf paths, weighted by "
-                     "gain and cover. Needs no data.")
+def _inspect_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     p.add_argument("--order", type=int, default=3, metavar="K",
                    help="largest feature-set size to count (1 = features only, 2 = pairs, 3 = triples; default 3)")
@@ -559,9 +536,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--trees", metavar="A:B", help="walk only trees A to B-1 (Python slice; e.g. 0:100 or 500:)")
     _add_table(p, None, "features, pairs, triples, orderK for --order K > 3")
 
-    p = _add_command(sub, "measure", _cmd_measure, "Friedman-Popescu H-statistics of the model on data",
-                     "Measure how much of the model's variation is interaction, with Friedman & Popescu's "
-                     "H-statistics (2008) computed on rows of your data.")
+
+def _measure_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_rows(p, use="the H-statistics", seed_use="the row sample", jobs_use="the H-statistics")
     p.add_argument("--pairs", metavar="A:B,...", help="only these pairs (default: every pair sharing a path)")
@@ -576,20 +552,15 @@ def build_parser() -> argparse.ArgumentParser:
                         "probability scale (brute force, slower)")
     _add_table(p, ("pairs", "against_rest", "triples"), "pairs, against_rest, triples")
 
-    p = _add_command(sub, "triage", _cmd_triage, "verdict per feature pair: interaction, dependent, co-split or absent",
-                     "Tell real interactions from structural co-splits and dependence artefacts: path structure, "
-                     "H-statistics with a resampling interval and a refit noise floor, and the dependence of each "
-                     "pair in the data.")
+
+def _triage_command_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
     p.add_argument("--triples", action="store_true", help="also give verdicts to triples sharing a path")
     _add_table(p, ("pairs", "triples", "features"), "pairs, triples, features")
 
-    p = _add_command(sub, "constrain", _cmd_constrain,
-                     "suggest interaction-constraint groups, export them, validate by retraining",
-                     "Suggest groups of features allowed to interact (from the triage), print them as XGBoost and "
-                     "LightGBM interaction_constraints, and optionally cross-validate the constrained model against "
-                     "the unconstrained one.")
+
+def _constrain_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
     p.add_argument("--library", choices=("xgboost", "lightgbm"), help="library of the Python snippet (default: the model's)")
@@ -601,11 +572,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
     p.set_defaults(triples=True)
 
-    p = _add_command(sub, "report", _cmd_report,
-                     "one self-contained HTML page: verdicts, maps, partial dependence, constraints",
-                     "Run the triage on data and write one self-contained HTML page (inline CSS and images; opens "
-                     "from disk) with the ranked pairs, the pair map, the interaction graph, partial dependence of "
-                     "the top pairs, when pairs entered the model, the suggested constraints and the cautions.")
+
+def _report_options(p: argparse.ArgumentParser) -> None:
     _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
                    help="HTML file to write (default: treeprobe-report.html)")
@@ -618,14 +586,60 @@ def build_parser() -> argparse.ArgumentParser:
     _add_triage_options(p)
     p.set_defaults(triples=True)
 
-    p = _add_command(sub, "demo", _cmd_demo,
-                     "run every step on an invented warehouse-energy data set with a known answer",
-                     "Generate data with a known ground truth (refrigerated warehouse rooms' daily energy use), "
-                     "train XGBoost and LightGBM models, and run inspect, H-statistics, triage and constraints on "
-                     "them; writes the report, JSON and CSV into DIR.")
+
+def _demo_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", default="treeprobe-demo", metavar="DIR",
                    help="folder for the models, data and results (default: ./treeprobe-demo)")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+# Command, handler, its options, one-line summary (in `treeprobe --help`), description (in `COMMAND --help`).
+_COMMANDS: tuple[tuple[str, Callable[[argparse.Namespace], int], Callable[[argparse.ArgumentParser], None], str,
+                       str], ...] = (
+    ("inspect", _cmd_inspect, _inspect_options,
+     "model summary and the feature sets its trees combine on root-to-leaf paths",
+     "Summarise a saved model and count how features co-occur on root-to-leaf paths, weighted by gain and cover. "
+     "Needs no data."),
+    ("measure", _cmd_measure, _measure_options, "Friedman-Popescu H-statistics of the model on data",
+     "Measure how much of the model's variation is interaction, with Friedman & Popescu's H-statistics (2008) "
+     "computed on rows of your data."),
+    ("triage", _cmd_triage, _triage_command_options,
+     "verdict per feature pair: interaction, dependent, co-split or absent",
+     "Tell real interactions from structural co-splits and dependence artefacts: path structure, H-statistics with "
+     "a resampling interval and a refit noise floor, and the dependence of each pair in the data."),
+    ("constrain", _cmd_constrain, _constrain_options,
+     "suggest interaction-constraint groups, export them, validate by retraining",
+     "Suggest groups of features allowed to interact (from the triage), print them as XGBoost and LightGBM "
+     "interaction_constraints, and optionally cross-validate the constrained model against the unconstrained one."),
+    ("report", _cmd_report, _report_options,
+     "one self-contained HTML page: verdicts, maps, partial dependence, constraints",
+     "Run the triage on data and write one self-contained HTML page (inline CSS and images; opens from disk) with "
+     "the ranked pairs, the pair map, the interaction graph, partial dependence of the top pairs, when pairs "
+     "entered the model, the suggested constraints and the cautions."),
+    ("demo", _cmd_demo, _demo_options,
+     "run every step on an invented warehouse-energy data set with a known answer",
+     "Generate data with a known ground truth (refrigerated warehouse rooms' daily energy use), train XGBoost and "
+     "LightGBM models, and run inspect, H-statistics, triage and constraints on them; writes the report, JSON and "
+     "CSV into DIR."),
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``treeprobe`` command."""
+    from . import __version__
+
+    parser = argparse.ArgumentParser(
+        prog="treeprobe",
+        description="Which feature interactions does a fitted tree ensemble really use?",
+        epilog="Run 'treeprobe COMMAND --help' for the options of a command.",
+    )
+    parser.add_argument("--version", action="version", version=f"treeprobe {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, handler, add_options, summary, description in _COMMANDS:
+        p = sub.add_parser(name, help=summary, description=description)
+        add_options(p)
+        p.set_defaults(handler=handler)
     return parser
 
 
