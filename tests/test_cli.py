@@ -7,8 +7,10 @@ against the libraries in the other test modules).
 
 import json
 import pickle
+import re
 import subprocess
 import sys
+import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -172,3 +174,138 @@ def test_measure_probability_scale_matches_api():
     got = {(r["feature_a"], r["feature_b"]): r["h2"] for r in payload["pairs"]}
     for row in api.pairs.itertuples(index=False):
         assert got[(row.feature_a, row.feature_b)] == pytest.approx(row.h2, rel=1e-9, abs=1e-12)
+
+
+def _flat(text):
+    """Text with line wrapping undone, to find a sentence that argparse or the tables wrapped."""
+    return " ".join(text.split())
+
+
+@pytest.mark.parametrize("argv", [["--version"], ["--help"], ["measure", "--help"], ["inspect", "m.json", "--top", "0"]])
+def test_startup_does_not_import_pandas_or_scipy(argv):
+    # Reference: importlib.metadata (PEP 566) for the version; sys.modules for what was imported.
+    script = textwrap.dedent(f"""
+        import sys
+        from treeprobe.cli import main
+        try:
+            main({argv!r})
+        except SystemExit:
+            pass
+        heavy = sorted(m for m in ("pandas", "scipy", "sklearn", "numpy") if m in sys.modules)
+        print("heavy:", ",".join(heavy))
+    """)
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+    assert proc.stdout.strip().splitlines()[-1] == "heavy:", proc.stdout + proc.stderr
+
+
+def test_version_comes_from_package_metadata():
+    from importlib.metadata import version
+
+    assert run("--version").stdout.strip() == f"treeprobe {version('treeprobe')}"
+
+
+def test_package_exports_its_errors_and_warning_lazily():
+    proc = subprocess.run([sys.executable, "-c", "import sys, treeprobe; print('pandas' in sys.modules)"],
+                          capture_output=True, text=True)
+    assert proc.stdout.strip() == "False", proc.stderr
+    from treeprobe import errors
+
+    assert treeprobe.MissingLibraryError is errors.MissingLibraryError
+    assert treeprobe.ParameterError is errors.ParameterError
+    assert issubclass(treeprobe.UnseenCategoryWarning, UserWarning)
+    assert set(treeprobe.__all__) <= set(dir(treeprobe))
+    for name in treeprobe.__all__:
+        assert getattr(treeprobe, name) is not None
+    for retired in ("hstat", "TreeEnsemble"):
+        with pytest.raises(AttributeError, match=f"no attribute '{retired}'"):
+            getattr(treeprobe, retired)
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (("constrain", "--target", "y", "--folds", "1"), "--folds must be an integer >= 2, got 1"),
+        (("measure", "--jobs", "0"), "--jobs must be a non-zero integer"),
+        (("triage", "--resamples", "-1"), "--resamples must be an integer >= 0, got -1"),
+        (("triage", "--null-refits", "-2"), "--null-refits must be an integer >= 0, got -2"),
+        (("measure", "--sample", "1"), "--sample must be 0 (all rows) or at least 2, got 1"),
+        (("triage", "--min-h2", "1.5"), "--min-h2 must be a finite number in 0..1, got 1.5"),
+        (("measure", "--top", "0"), "--top must be an integer >= 1, got 0"),
+        (("measure", "--class", "-1"), "--class must be an integer >= 0 or None, got -1"),
+        (("measure", "--format", "csv", "--table", "triples"), "--table triples is not produced"),
+    ],
+)
+def test_options_are_checked_before_any_file_is_read(args, message, tmp_path):
+    # The model and data do not exist: a usage error (2) naming the option proves nothing was read first.
+    command, *options = args
+    proc = run(command, tmp_path / "absent.json", "--data", tmp_path / "absent.csv", *options, check_code=2)
+    assert message in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_measure_sample_zero_means_all_rows(saved_regressor):
+    path, data, _ = saved_regressor
+    payload = json.loads(run("measure", path, "--data", data, "--sample", "0", "--format", "json").stdout)
+    assert payload["n_rows"] == len(pd.read_csv(data)) == 400
+
+
+def test_measure_ranks_by_h_and_says_to_read_h2_beside_h(saved_regressor):
+    path, data, _ = saved_regressor
+    payload = json.loads(run("measure", path, "--data", data, "--sample", "150", "--format", "json").stdout)
+    by_h = [r["h"] for r in payload["pairs"]]
+    assert by_h == sorted(by_h, reverse=True)
+    by_h2 = [r["h2"] for r in json.loads(run("measure", path, "--data", data, "--sample", "150", "--format", "json",
+                                              "--sort", "h2").stdout)["pairs"]]
+    assert by_h2 == sorted(by_h2, reverse=True) and by_h2 != [r["h2"] for r in payload["pairs"]]
+    table = run("measure", path, "--data", data, "--sample", "150").stdout
+    assert "Read H² beside h" in _flat(table) and "ranked by h " in table
+    assert "read H² beside h" in _flat(run("measure", "--help").stdout)
+
+
+@pytest.mark.parametrize("command", ["inspect", "measure"])
+def test_inspect_and_measure_tables_carry_the_cautions(command, saved_regressor):
+    from treeprobe.cautions import CAUTIONS
+
+    path, data, _ = saved_regressor
+    extra = ("--data", data, "--sample", "100") if command == "measure" else ()
+    out = _flat(run(command, path, *extra).stdout)
+    for caution in CAUTIONS:
+        assert _flat(caution) in out
+    assert "credit, health, hiring" in out and "not causation" in out
+
+
+def test_triage_tally_and_legend_follow_the_table_order(saved_regressor):
+    path, data, _ = saved_regressor
+    out = run("triage", path, "--data", data, "--target", "waste_kg", "--sample", "120", "--resamples", "2",
+              "--null-refits", "0").stdout
+    tally = next(line for line in out.splitlines() if line.startswith("pairs "))
+    order = ("interaction", "dependent", "co-split", "absent")
+    assert [part.split()[1] for part in tally[len("pairs"):].split(",")] == list(order)
+    legend = out.split("Verdicts:")[1].splitlines()[1:]
+    assert [line.split()[0] for line in legend if line.startswith("  ") and not line.startswith("   ")] == list(order)
+    rows = out.split("Pairs, strongest evidence first\n")[1].split("\n\n")[0].splitlines()[2:]
+    shown = [line.split()[2] for line in rows if not line.startswith("...")]
+    assert shown and set(shown) <= set(order)
+    assert [order.index(v) for v in shown] == sorted(order.index(v) for v in shown)
+
+
+def test_constrain_json_has_a_schema_and_fixed_keys(saved_regressor):
+    path, data, _ = saved_regressor
+    payload = json.loads(run("constrain", path, "--data", data, "--target", "waste_kg", "--sample", "120",
+                             "--resamples", "2", "--null-refits", "0", "--format", "json").stdout)
+    assert payload["schema"] == "treeprobe.constrain/1"
+    assert list(payload) == ["schema", "suggestion", "triage", "validation"] and payload["validation"] is None
+    assert payload["suggestion"]["schema"].startswith("treeprobe.") and payload["triage"]["schema"].startswith("treeprobe.triage/")
+
+
+OLD_NAMES = re.compile(r"hstat|\boverall\b|confounded|raw scale|--output|TreeEnsemble|root_splits|mean_depth|min_depth")
+
+
+def test_nothing_the_cli_prints_uses_retired_names(saved_regressor):
+    path, data, _ = saved_regressor
+    texts = [run("--help").stdout] + [run(c, "--help").stdout for c in ("inspect", "measure", "triage", "constrain",
+                                                                       "report", "demo")]
+    texts += [run("inspect", path).stdout, run("inspect", path, "--format", "json").stdout,
+              run("measure", path, "--data", data, "--sample", "100").stdout,
+              run("measure", path, "--data", data, "--sample", "100", "--format", "json").stdout]
+    for text in texts:
+        assert not OLD_NAMES.search(text), OLD_NAMES.search(text).group(0)

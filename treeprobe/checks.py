@@ -31,14 +31,18 @@ from .errors import ParameterError
 __all__ = ["check_int", "check_float", "check_choice", "check_bool", "check_progress", "check_n_jobs", "check_seed"]
 
 
-def _range_text(low: float | None, high: float | None) -> str:
+def _range_text(low: float | None, high: float | None, low_open: bool = False) -> str:
     if low is not None and high is not None:
-        return f" in {low}..{high}"
+        return f" in ({low}, {high}]" if low_open else f" in {low}..{high}"
     if low is not None:
-        return f" >= {low}"
+        return f" > {low}" if low_open else f" >= {low}"
     if high is not None:
         return f" <= {high}"
     return ""
+
+
+def _refused(name: str, accepted: str, allow_none: bool, value: Any) -> ParameterError:
+    return ParameterError(f"{name} must be {accepted}{' or None' if allow_none else ''}, got {value!r}")
 
 
 def check_int(name: str, value: Any, *, low: int | None = None, high: int | None = None,
@@ -58,31 +62,22 @@ def check_int(name: str, value: Any, *, low: int | None = None, high: int | None
     ok = isinstance(value, numbers.Integral) and not isinstance(value, bool)
     if ok and (low is None or value >= low) and (high is None or value <= high):
         return int(value)
-    accepted = "an integer" + _range_text(low, high) + (" or None" if allow_none else "")
-    raise ParameterError(f"{name} must be {accepted}, got {value!r}")
+    raise _refused(name, "an integer" + _range_text(low, high), allow_none, value)
 
 
 def check_float(name: str, value: Any, *, low: float | None = None, high: float | None = None,
                 low_open: bool = False, allow_none: bool = False) -> float | None:
     """Return ``value`` as a finite ``float`` within ``[low, high]`` (``(low, high]`` when ``low_open``).
 
-    Raises
-    ------
-    ParameterError
-        Naming ``name``, the accepted range and the value.
+    Infinities and NaN are refused, as are booleans; ``None`` passes when ``allow_none``.
     """
     if value is None and allow_none:
         return None
     ok = isinstance(value, numbers.Real) and not isinstance(value, bool) and math.isfinite(value)
-    if ok:
-        above = low is None or (value > low if low_open else value >= low)
-        if above and (high is None or value <= high):
-            return float(value)
-    bound = (f" > {low}" if low_open else f" >= {low}") if low is not None and high is None else _range_text(low, high)
-    if low_open and low is not None and high is not None:
-        bound = f" in ({low}, {high}]"
-    accepted = "a finite number" + bound + (" or None" if allow_none else "")
-    raise ParameterError(f"{name} must be {accepted}, got {value!r}")
+    above = ok and (low is None or (value > low if low_open else value >= low))
+    if above and (high is None or value <= high):
+        return float(value)
+    raise _refused(name, "a finite number" + _range_text(low, high, low_open), allow_none, value)
 
 
 def check_choice(name: str, value: Any, choices: Collection[Any]) -> Any:
@@ -118,11 +113,11 @@ def check_progress(value: Any) -> bool | None:
     raise ParameterError(f"progress must be None (a bar on a terminal only), True or False, got {value!r}")
 
 
-def check_n_jobs(value: Any) -> int:
-    """The ``n_jobs`` option: a non-zero integer, -1 for all cores (joblib's convention)."""
+def check_n_jobs(value: Any, *, name: str = "n_jobs") -> int:
+    """The ``n_jobs`` option (or the flag ``name``): a non-zero integer, -1 for all cores (joblib's convention)."""
     if isinstance(value, numbers.Integral) and not isinstance(value, bool) and value != 0:
         return int(value)
-    raise ParameterError(f"n_jobs must be a non-zero integer (-1 for all cores), got {value!r}")
+    raise ParameterError(f"{name} must be a non-zero integer (-1 for all cores), got {value!r}")
 
 
 def check_seed(name: str, value: Any, *, allow_none: bool = True) -> int | None:

@@ -1,41 +1,78 @@
 """The ``treeprobe`` command line: a thin shell over the public API.
 
 Exit codes: 0 success, 1 bad input (model file, data; one line on standard
-error, the traceback only with ``--debug``), 2 usage error.
+error, the traceback only with ``--debug``), 2 usage error (an option value
+out of range is refused before any work starts).
 """
 
 from __future__ import annotations
 
 import argparse
 import sys
+import textwrap
 import traceback
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import pandas as pd
+from .cautions import CAUTIONS
+from .checks import check_float, check_int, check_n_jobs, check_seed
+from .errors import ParameterError, TreeprobeError
 
-from . import __version__
-from .errors import TreeprobeError
-from .output import atomic_write, dumps_json, format_table
+# The stages (and pandas, scipy, scikit-learn behind them) are imported inside the command handlers, not here:
+# `treeprobe --version`, `--help` and usage errors then answer at once instead of after a second of imports.
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = ["main", "build_parser"]
 
-_CAUTION_STRUCTURE = (
+_STRUCTURE_NOTE = (
     "Co-occurrence on a path shows what the trees combine, not that the features interact: an additive effect "
     "split in sequence, or two correlated features standing in for each other, also share paths. Measure on data "
     "(treeprobe measure) before drawing conclusions."
 )
-_CAUTION_H = (
-    "H-statistics evaluate the model away from the data when features are dependent (partial dependence "
-    "extrapolates), so treat them with care for correlated features. They describe this model's interactions, "
-    "not causal claims about the world."
+_MEASURE_NOTE = (
+    "Read H² beside h: H² (column h2) is a share of the joint effect and can be large when the interaction itself "
+    "is tiny; h is its size in output units, and ranks the tables by default (--sort h)."
 )
 
 
 class _UsageError(Exception):
     """Raised for option values argparse cannot check itself; exits with code 2."""
+
+
+# ------------------------------------------------------------- door checks
+def _check_sample(value: Any) -> int:
+    value = check_int("--sample", value, low=0)
+    if value == 1:
+        raise ParameterError("--sample must be 0 (all rows) or at least 2, got 1")
+    return value
+
+
+# Option (argparse dest) -> its check; run on every option a command has, before any file is read.
+_OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
+    "top": lambda v: check_int("--top", v, low=1),
+    "order": lambda v: check_int("--order", v, low=1),
+    "class_index": lambda v: check_int("--class", v, low=0, allow_none=True),
+    "sample": _check_sample,
+    "seed": lambda v: check_seed("--seed", v, allow_none=False),
+    "jobs": lambda v: check_n_jobs(v, name="--jobs"),
+    "resamples": lambda v: check_int("--resamples", v, low=0),
+    "null_refits": lambda v: check_int("--null-refits", v, low=0),
+    "min_h2": lambda v: check_float("--min-h2", v, low=0, high=1),
+    "min_effect": lambda v: check_float("--min-effect", v, low=0),
+    "max_dependence": lambda v: check_float("--max-dependence", v, low=0, high=1),
+    "min_strength": lambda v: check_float("--min-strength", v, low=0),
+    "folds": lambda v: check_int("--folds", v, low=2),
+    "top_pairs": lambda v: check_int("--top-pairs", v, low=0),
+}
+
+
+def _check_options(args: argparse.Namespace) -> None:
+    for dest, check in _OPTION_CHECKS.items():
+        if hasattr(args, dest):
+            check(getattr(args, dest))
 
 
 def _parse_tree_range(text: str | None) -> slice | None:
@@ -52,11 +89,38 @@ def _parse_tree_range(text: str | None) -> slice | None:
     return slice(start, stop)
 
 
+def _parse_pairs(text: str | None) -> list[tuple[str, str]] | None:
+    if text is None:
+        return None
+    pairs = []
+    for item in text.split(","):
+        stripped = item.strip()
+        if not stripped:
+            continue
+        parts = stripped.split(":")
+        if len(parts) != 2 or not all(parts):
+            raise _UsageError(f"--pairs expects name:name[,name:name...], got {stripped!r}")
+        pairs.append((parts[0], parts[1]))
+    if not pairs:
+        raise _UsageError("--pairs is empty")
+    return pairs
+
+
+def _check_table(args: argparse.Namespace, available: Sequence[str], hint: str) -> None:
+    """Refuse a --table the options leave out (e.g. triples without --triples) before any work."""
+    if args.format == "csv" and args.table not in available:
+        raise _UsageError(f"--table {args.table} is not produced with these options ({hint})")
+
+
+# ------------------------------------------------------------------ output
 def _emit(text: str, out: str | None) -> None:
+    from .output import atomic_write
+
+    text = text if text.endswith("\n") else text + "\n"
     if out is None:
-        sys.stdout.write(text if text.endswith("\n") else text + "\n")
+        sys.stdout.write(text)
     else:
-        atomic_write(out, lambda handle: handle.write(text if text.endswith("\n") else text + "\n"))
+        atomic_write(out, lambda handle: handle.write(text))
         print(f"wrote {out}", file=sys.stderr)
 
 
@@ -71,6 +135,39 @@ def _emit_csv(tables: dict[str, pd.DataFrame], args: argparse.Namespace) -> int:
     return 0
 
 
+def _emit_json(payload: Any, args: argparse.Namespace) -> int:
+    from .output import dumps_json
+
+    _emit(dumps_json(payload), args.out)
+    return 0
+
+
+def _table(frame: pd.DataFrame, title: str, top: int | None = None) -> str:
+    from .output import format_table
+
+    return format_table(frame, max_rows=top, title=title)
+
+
+def _wrap(text: str, width: int = 100) -> str:
+    return "\n".join(textwrap.wrap("Note: " + text, width=width))
+
+
+def _cautions() -> list[str]:
+    lines = ["Cautions:"]
+    for text in CAUTIONS:
+        lines += textwrap.wrap(text, width=100, initial_indent="  - ", subsequent_indent="    ")
+    return lines
+
+
+def _sorted_by(frame: pd.DataFrame, column: str) -> pd.DataFrame:
+    return frame.sort_values(column, ascending=False, kind="stable").reset_index(drop=True)
+
+
+def _model_line(ens: Any) -> str:
+    return f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)"
+
+
+# ------------------------------------------------------------------ loading
 def _load(args: argparse.Namespace):
     from .graph import ForestGraph
     from .io import load_model, read_model_file
@@ -78,10 +175,24 @@ def _load(args: argparse.Namespace):
     loaded = read_model_file(args.model, trust_pickle=args.trust_pickle)
     # A trusted pickle keeps the live model object: it knows its full training set-up for refits.
     args.model_object = None if isinstance(loaded, ForestGraph) else loaded
-    ensemble = loaded if isinstance(loaded, ForestGraph) else load_model(loaded)
-    return replace(ensemble, provenance=replace(ensemble.provenance, source=str(args.model))) if ensemble.source != str(args.model) else ensemble
+    ens = loaded if isinstance(loaded, ForestGraph) else load_model(loaded)
+    if ens.source == str(args.model):
+        return ens
+    return replace(ens, provenance=replace(ens.provenance, source=str(args.model)))
 
 
+def _read_data(args: argparse.Namespace, ens: Any) -> pd.DataFrame:
+    """The model's feature columns (and the target) of the data file, checked and coerced; notes to stderr."""
+    from .data import load_data
+
+    frame, report = load_data(ens, args.data, target=getattr(args, "target", None))
+    if not getattr(args, "quiet", False):
+        for note in report.coerced:
+            print(f"treeprobe: note: {note}", file=sys.stderr)
+    return frame
+
+
+# ------------------------------------------------------------------ inspect
 def _model_lines(summary: dict[str, Any]) -> list[str]:
     return [
         f"model      {summary['source']}",
@@ -95,18 +206,13 @@ def _model_lines(summary: dict[str, Any]) -> list[str]:
     ]
 
 
-# ------------------------------------------------------------------ inspect
-def _cmd_inspect(args: argparse.Namespace) -> int:
-    from .cooccurrence import structure
+def _inspect_table_names(order: int) -> list[str]:
+    return ["features", "pairs", "triples"][: min(order, 3)] + [f"order{k}" for k in range(4, order + 1)]
 
-    if args.order < 1:
-        raise _UsageError(f"--order must be at least 1, got {args.order}")
-    ens = _load(args)
-    trees = _parse_tree_range(args.trees)
-    result = structure(ens, max_order=max(args.order, 2), trees=trees, output=args.class_index)
+
+def _inspect_tables(result: Any, args: argparse.Namespace) -> dict[str, pd.DataFrame]:
     tables = {"features": result.features, "pairs": result.pairs, "triples": result.triples}
-    for k, frame in getattr(result, "sets", {}).items():
-        tables[f"order{k}"] = frame
+    tables.update({f"order{k}": frame for k, frame in result.sets.items()})
     if args.sort:
         for name in ("pairs", "triples"):
             frame = tables[name]
@@ -115,80 +221,48 @@ def _cmd_inspect(args: argparse.Namespace) -> int:
                     f"--sort {args.sort!r} is not a column of the {name} table; choose from "
                     + ", ".join(c for c in frame.columns if not c.startswith("feature_"))
                 )
-            tables[name] = frame.sort_values(args.sort, ascending=False, kind="stable").reset_index(drop=True)
-    if args.order < 3:
-        tables.pop("triples")
-    if args.order < 2:
-        tables.pop("pairs")
+            tables[name] = _sorted_by(frame, args.sort)
+    kept = _inspect_table_names(args.order)
+    return {name: frame for name, frame in tables.items() if name in kept}
+
+
+def _cmd_inspect(args: argparse.Namespace) -> int:
+    from .cooccurrence import structure
+
+    trees = _parse_tree_range(args.trees)
+    _check_table(args, _inspect_table_names(args.order), f"--order {args.order}")
+    ens = _load(args)
+    result = structure(ens, max_order=max(args.order, 2), trees=trees, output=args.class_index)
+    tables = _inspect_tables(result, args)
     if args.format == "json":
         payload = result.to_dict()
         for name in ("pairs", "triples"):
-            if name not in tables:
-                payload.pop(name, None)
-        for name, frame in tables.items():
-            payload[name] = frame
-        _emit(dumps_json(payload), args.out)
-        return 0
+            payload.pop(name, None)
+        return _emit_json({**payload, **tables}, args)
     if args.format == "csv":
         return _emit_csv(tables, args)
     lines = _model_lines(result.ensemble_summary)
-    top = args.top
-    lines += ["", format_table(tables["features"].sort_values("gain", ascending=False), max_rows=top,
-                               title="Features (by total gain)")]
+    lines += ["", _table(_sorted_by(tables["features"], "gain"), "Features (by total gain)", args.top)]
     for name, title in (("pairs", "Pairs sharing a root-to-leaf path"), ("triples", "Triples sharing a root-to-leaf path")):
         if name in tables:
-            lines += ["", format_table(tables[name], max_rows=top, title=title)]
-    lines += ["", _wrap(_CAUTION_STRUCTURE)]
+            lines += ["", _table(tables[name], title, args.top)]
+    lines += ["", _wrap(_STRUCTURE_NOTE), *_cautions()]
     _emit("\n".join(lines), args.out)
     return 0
 
 
-def _wrap(text: str, width: int = 100) -> str:
-    import textwrap
-
-    return "\n".join(textwrap.wrap("Note: " + text, width=width))
-
-
 # ------------------------------------------------------------------ measure
-def _read_data(args: argparse.Namespace, ens: Any) -> pd.DataFrame:
-    """The model's feature columns (and the target) of the data file, checked and coerced; notes to stderr."""
-    from .data import load_data
-
-    frame, report = load_data(ens, args.data, target=getattr(args, "target", None))
-    if not getattr(args, "quiet", False):
-        for note in report.coerced:
-            print(f"treeprobe: note: {note}", file=sys.stderr)
-    return frame
-
-
-def _parse_pairs(text: str | None) -> list[tuple[str, str]] | None:
-    if text is None:
-        return None
-    pairs = []
-    for item in text.split(","):
-        item = item.strip()
-        if not item:
-            continue
-        parts = item.split(":")
-        if len(parts) != 2 or not all(parts):
-            raise _UsageError(f"--pairs expects name:name[,name:name...], got {item!r}")
-        pairs.append((parts[0], parts[1]))
-    if not pairs:
-        raise _UsageError("--pairs is empty")
-    return pairs
-
-
 def _cmd_measure(args: argparse.Namespace) -> int:
     from .measure import h_statistic
 
-    if args.sample is not None and args.sample < 2:
-        raise _UsageError(f"--sample must be at least 2, got {args.sample}")
+    pairs = _parse_pairs(args.pairs)
+    _check_table(args, ["pairs", "against_rest", "triples"][: 3 if args.triples else 2], "add --triples")
     ens = _load(args)
     data = _read_data(args, ens)
     result = h_statistic(
         ens,
         data,
-        pairs=_parse_pairs(args.pairs),
+        pairs=pairs,
         triples=args.triples,
         method=args.method,
         sample=None if args.sample == 0 else args.sample,
@@ -196,31 +270,29 @@ def _cmd_measure(args: argparse.Namespace) -> int:
         output=args.class_index,
         scale=args.scale,
         n_jobs=args.jobs,
-        progress=None if not args.quiet else False,
+        progress=False if args.quiet else None,
     )
     tables = {"pairs": result.pairs, "against_rest": result.against_rest}
     if args.triples:
         tables["triples"] = result.triples
-    tables = {name: frame.sort_values(args.sort, ascending=False, kind="stable").reset_index(drop=True)
-              if args.sort in frame.columns else frame for name, frame in tables.items()}
+    tables = {name: _sorted_by(frame, args.sort) for name, frame in tables.items()}
     if args.format == "json":
-        _emit(dumps_json(result.to_dict()), args.out)
-        return 0
+        return _emit_json({**result.to_dict(), **tables}, args)
     if args.format == "csv":
         return _emit_csv(tables, args)
-    facts = result.to_dict()
+    ranked = f"ranked by {args.sort}"
     lines = [
-        f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)",
-        f"data       {args.data}: {facts.get('n_rows', '?')} rows used, method {facts.get('method', '?')}, "
-        f"scale {facts.get('scale', 'margin')}, {facts.get('seconds', float('nan')):.2f} s",
+        _model_line(ens),
+        f"data       {args.data}: {result.n_rows:,} rows used, method {result.method}, scale {result.scale}, "
+        f"{result.seconds:.2f} s",
         "",
-        format_table(tables["pairs"], max_rows=args.top, title="Pairwise H-statistics (h2 normalised, h in output units)"),
+        _table(tables["pairs"], f"Pairwise H-statistics, {ranked} (h2 = H², a share; h in output units)", args.top),
         "",
-        format_table(tables["against_rest"], max_rows=args.top, title="Each feature against all others"),
+        _table(tables["against_rest"], f"Each feature against all others, {ranked}", args.top),
     ]
     if "triples" in tables:
-        lines += ["", format_table(tables["triples"], max_rows=args.top, title="Three-way H-statistics")]
-    lines += ["", _wrap(_CAUTION_H)]
+        lines += ["", _table(tables["triples"], f"Three-way H-statistics, {ranked}", args.top)]
+    lines += ["", _wrap(_MEASURE_NOTE), *_cautions()]
     _emit("\n".join(lines), args.out)
     return 0
 
@@ -228,14 +300,14 @@ def _cmd_measure(args: argparse.Namespace) -> int:
 # ------------------------------------------------------------------- triage
 _TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "strength", "h2", "h2_low", "h", "h_low", "null_h",
                    "dependence", "paths", "cover_share"]
+_TRIAGE_TRIPLE_COLUMNS = ["feature_a", "feature_b", "feature_c", "verdict", "strength", "h2", "h", "dependence",
+                          "paths"]
 
 
-def _verdict_legend(rules: dict[str, str]) -> str:
-    import textwrap
-
+def _verdict_legend(rules: dict[str, str], order: Sequence[str]) -> str:
     lines = ["Verdicts:"]
-    for verdict, rule in rules.items():
-        lines += textwrap.wrap(rule, width=100, initial_indent=f"  {verdict:<12} ", subsequent_indent=" " * 15)
+    for verdict in order:
+        lines += textwrap.wrap(rules[verdict], width=100, initial_indent=f"  {verdict:<12} ", subsequent_indent=" " * 15)
     return "\n".join(lines)
 
 
@@ -263,36 +335,36 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
 
 
 def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
+    from .verdicts import VERDICTS
+
     facts = result.facts
     counts = result.pairs["verdict"].value_counts()
-    tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in result.rules)
+    tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in VERDICTS)
     floor = (f"noise floor from {facts['null_refits']} refits" if facts["null_refits"]
              else "no noise-floor refits" + ("" if facts["has_target"] else " (give --target)"))
     lines = [
-        f"model      {result.ensemble.source} ({result.ensemble.library}, {result.ensemble.n_trees:,} trees)",
+        _model_line(result.ensemble),
         f"data       {args.data}: {facts['n_rows']:,} of {facts['n_rows_available']:,} rows, "
         f"{facts['resamples']} resamples, {floor}, {facts['seconds']:.1f} s",
         f"pairs      {tally}",
         "",
-        format_table(result.pairs[[c for c in _TRIAGE_COLUMNS if c in result.pairs.columns]], max_rows=args.top,
-                     title="Pairs, strongest evidence first"),
+        _table(result.pairs[[c for c in _TRIAGE_COLUMNS if c in result.pairs.columns]],
+               "Pairs, strongest evidence first", args.top),
     ]
     if len(result.triples):
-        cols = ["feature_a", "feature_b", "feature_c", "verdict", "strength", "h2", "h", "dependence", "paths"]
-        lines += ["", format_table(result.triples[cols], max_rows=args.top, title="Triples sharing a path")]
-    lines += ["", _verdict_legend(result.rules)]
-    for note in facts.get("refit_notes", []):
-        lines += [_wrap(note)]
+        lines += ["", _table(result.triples[_TRIAGE_TRIPLE_COLUMNS], "Triples sharing a path", args.top)]
+    lines += ["", _verdict_legend(result.rules, VERDICTS)]
+    lines += [_wrap(note) for note in facts.get("refit_notes", [])]
     lines += ["", _wrap(result.limits)]
     return lines
 
 
 def _cmd_triage(args: argparse.Namespace) -> int:
+    _check_table(args, ["pairs", "triples", "features"] if args.triples else ["pairs", "features"], "add --triples")
     ens = _load(args)
     result = _run_triage(args, ens, _read_data(args, ens))
     if args.format == "json":
-        _emit(dumps_json(result.to_dict()), args.out)
-        return 0
+        return _emit_json(result.to_dict(), args)
     if args.format == "csv":
         return _emit_csv({"pairs": result.pairs, "triples": result.triples, "features": result.features}, args)
     _emit("\n".join(_triage_text(result, args)), args.out)
@@ -300,6 +372,9 @@ def _cmd_triage(args: argparse.Namespace) -> int:
 
 
 # ---------------------------------------------------------------- constrain
+_CONSTRAIN_SCHEMA = "treeprobe.constrain/1"
+
+
 def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: Any):
     from .constraints import validate_constraints
 
@@ -310,7 +385,39 @@ def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: An
     )
 
 
+def _validation_lines(validation: Any, folds: int) -> list[str]:
+    lines = ["", _table(validation.folds, f"Cross-validation, {folds} folds (held-out scores)")]
+    for metric, values in validation.summary.items():
+        if isinstance(values, dict) and "difference_mean" in values:
+            lines.append(
+                f"  {metric}: constrained - unconstrained = {values['difference_mean']:+.4g} "
+                f"(95% interval {values['difference_low']:+.4g} to {values['difference_high']:+.4g}; "
+                f"relative {values['relative_change']:+.2%})"
+            )
+    lines += [_wrap(n) for n in validation.summary.get("notes", [])]
+    stray = validation.cross_group_pairs
+    lines.append("  constrained refit: " + ("no path crosses the groups" if not stray else
+                                             f"{len(stray)} pair(s) cross the groups: {stray[:5]}"))
+    return lines
+
+
+def _suggestion_lines(suggestion: Any, library: str) -> list[str]:
+    lines = ["Suggested groups (features allowed to interact; every other used feature stands alone):"]
+    lines += [f"  {i}: {', '.join(group)}" for i, group in enumerate(suggestion.groups)]
+    if suggestion.unused:
+        lines += [f"  unused (kept alone): {', '.join(suggestion.unused)}"]
+    if suggestion.alternative is not None:
+        lines += ["", "Non-overlapping alternative:"] + [f"  {i}: {', '.join(g)}" for i, g in enumerate(suggestion.alternative)]
+    lines += ["", f"XGBoost   interaction_constraints = {suggestion.xgboost_param}",
+              f"LightGBM  interaction_constraints = {suggestion.lightgbm_param}", "",
+              "Python (" + library + "):", suggestion.python_snippet(library).rstrip()]
+    lines += [_wrap(n) for n in suggestion.notes]
+    return lines
+
+
 def _cmd_constrain(args: argparse.Namespace) -> int:
+    import pandas as pd
+
     from .constraints import interaction_graph, suggest_constraints, write_graphml
 
     if args.target is None:
@@ -328,39 +435,15 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
         write_graphml(interaction_graph(result), args.graph)
         print(f"wrote {args.graph}", file=sys.stderr)
     if args.format == "json":
-        payload = {"suggestion": suggestion.to_dict(), "triage": result.to_dict()}
-        if validation is not None:
-            payload["validation"] = validation.to_dict()
-        _emit(dumps_json(payload), args.out)
-        return 0
+        return _emit_json({"schema": _CONSTRAIN_SCHEMA, "suggestion": suggestion.to_dict(), "triage": result.to_dict(),
+                           "validation": None if validation is None else validation.to_dict()}, args)
     if args.format == "csv":
         rows = [{"group": i, "feature": name} for i, group in enumerate(suggestion.groups) for name in group]
         _emit(_csv_text(pd.DataFrame(rows, columns=["group", "feature"])), args.out)
         return 0
-    lines = [f"model      {ens.source} ({ens.library}, {ens.n_trees:,} trees)", "", "Suggested groups (features "
-             "allowed to interact; every other used feature stands alone):"]
-    lines += [f"  {i}: {', '.join(group)}" for i, group in enumerate(suggestion.groups)]
-    if suggestion.unused:
-        lines += [f"  unused (kept alone): {', '.join(suggestion.unused)}"]
-    if suggestion.alternative is not None:
-        lines += ["", "Non-overlapping alternative:"] + [f"  {i}: {', '.join(g)}" for i, g in enumerate(suggestion.alternative)]
-    lines += ["", f"XGBoost   interaction_constraints = {suggestion.xgboost_param}",
-              f"LightGBM  interaction_constraints = {suggestion.lightgbm_param}", "",
-              "Python (" + library + "):", suggestion.python_snippet(library).rstrip()]
-    lines += [_wrap(n) for n in suggestion.notes]
+    lines = [_model_line(ens), "", *_suggestion_lines(suggestion, library)]
     if validation is not None:
-        lines += ["", format_table(validation.folds, title=f"Cross-validation, {args.folds} folds (held-out scores)")]
-        for metric, values in validation.summary.items():
-            if isinstance(values, dict) and "difference_mean" in values:
-                lines.append(
-                    f"  {metric}: constrained - unconstrained = {values['difference_mean']:+.4g} "
-                    f"(95% interval {values['difference_low']:+.4g} to {values['difference_high']:+.4g}; "
-                    f"relative {values['relative_change']:+.2%})"
-                )
-        lines += [_wrap(n) for n in validation.summary.get("notes", [])]
-        stray = validation.cross_group_pairs
-        lines.append("  constrained refit: " + ("no path crosses the groups" if not stray else
-                                                 f"{len(stray)} pair(s) cross the groups: {stray[:5]}"))
+        lines += _validation_lines(validation, args.folds)
     lines += ["", _wrap(result.limits)]
     _emit("\n".join(lines), args.out)
     return 0
@@ -397,24 +480,6 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-def _add_triage_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--data", required=True, metavar="FILE", help="CSV (or Parquet) with the model's feature columns")
-    p.add_argument("--target", metavar="COL", help="target column in the data; enables the noise-floor refits")
-    p.add_argument("--null-refits", type=int, default=10, metavar="R",
-                   help="refits on targets without interaction for the noise floor (default 10; each costs about "
-                        "one training of the model)")
-    p.add_argument("--resamples", type=int, default=20, metavar="B", help="half-size row subsamples for the intervals of H² and h (default 20)")
-    p.add_argument("--sample", type=int, default=1000, metavar="N", help="rows used for H and dependence (default 1000; 0 = all)")
-    p.add_argument("--min-h2", type=float, default=0.05, help="smallest H² counted as interaction (default 0.05)")
-    p.add_argument("--min-effect", type=float, default=0.05,
-                   help="smallest interaction size h as a share of the prediction spread (default 0.05)")
-    p.add_argument("--max-dependence", type=float, default=0.7,
-                   help="dependence from which a pair is 'dependent' (default 0.7)")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers for refits (default 1; -1 = all cores)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
-
-
 # ------------------------------------------------------------------- parser
 def _add_model(p: argparse.ArgumentParser) -> None:
     p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
@@ -433,65 +498,71 @@ def _add_common(p: argparse.ArgumentParser) -> None:
                    help="restrict to class I of a multiclass model (0-based class index)")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of the ``treeprobe`` command."""
-    parser = argparse.ArgumentParser(
-        prog="treeprobe",
-        description="Which feature interactions does a fitted tree ensemble really use?",
-        epilog="Run 'treeprobe COMMAND --help' for the options of a command.",
-    )
-    parser.add_argument("--version", action="version", version=f"treeprobe {__version__}")
-    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+def _add_table(p: argparse.ArgumentParser, names: Sequence[str] | None, listed: str) -> None:
+    p.add_argument("--table", default="pairs", choices=names,
+                   help=f"table to write with --format csv ({listed}; default pairs)")
 
-    p = sub.add_parser("inspect", help="model summary and the feature sets its trees combine on root-to-leaf paths",
-                       description="Summarise a saved model and count how features co-occur on root-to-leaf paths, "
-                                   "weighted by gain and cover. Needs no data.")
+
+def _add_rows(p: argparse.ArgumentParser, *, use: str, seed_use: str, jobs_use: str) -> None:
+    """The data file and the options of every command that evaluates the model on its rows."""
+    p.add_argument("--data", required=True, metavar="FILE",
+                   help="CSV (or Parquet with pyarrow installed) holding the model's feature columns")
+    p.add_argument("--sample", type=int, default=1000, metavar="N",
+                   help=f"rows drawn from the data for {use} (default 1000; 0 = all rows; cost grows with N)")
+    p.add_argument("--seed", type=int, default=0, help=f"random seed of {seed_use} (default 0)")
+    p.add_argument("--jobs", type=int, default=1, metavar="N",
+                   help=f"parallel workers for {jobs_use} (default 1; -1 = all cores)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _add_triage_options(p: argparse.ArgumentParser) -> None:
+    _add_rows(p, use="H and dependence", seed_use="the row sample, subsamples and refits", jobs_use="refits")
+    p.add_argument("--target", metavar="COL", help="target column in the data; enables the noise-floor refits")
+    p.add_argument("--null-refits", type=int, default=10, metavar="R",
+                   help="refits on targets without interaction for the noise floor (default 10; each costs about "
+                        "one training of the model)")
+    p.add_argument("--resamples", type=int, default=20, metavar="B",
+                   help="half-size row subsamples for the intervals of H² and h (default 20)")
+    p.add_argument("--min-h2", type=float, default=0.05, help="smallest H² counted as interaction (default 0.05)")
+    p.add_argument("--min-effect", type=float, default=0.05,
+                   help="smallest interaction size h as a share of the prediction spread (default 0.05)")
+    p.add_argument("--max-dependence", type=float, default=0.7,
+                   help="dependence from which a pair is 'dependent' (default 0.7)")
+
+
+def _inspect_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     p.add_argument("--order", type=int, default=3, metavar="K",
                    help="largest feature-set size to count (1 = features only, 2 = pairs, 3 = triples; default 3)")
     p.add_argument("--sort", metavar="METRIC", help="sort pairs and triples by this column (default: nested_gain)")
     p.add_argument("--trees", metavar="A:B", help="walk only trees A to B-1 (Python slice; e.g. 0:100 or 500:)")
-    p.add_argument("--table", default="pairs", help="table to write with --format csv (features, pairs, triples; default pairs)")
-    p.set_defaults(handler=_cmd_inspect)
+    _add_table(p, None, "features, pairs, triples, orderK for --order K > 3")
 
-    p = sub.add_parser("measure", help="Friedman-Popescu H-statistics of the model on data",
-                       description="Measure how much of the model's variation is interaction, with Friedman & "
-                                   "Popescu's H-statistics (2008) computed on rows of your data.")
+
+def _measure_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
-    p.add_argument("--data", required=True, metavar="FILE", help="CSV (or Parquet with pyarrow installed) holding the "
-                   "model's feature columns")
+    _add_rows(p, use="the H-statistics", seed_use="the row sample", jobs_use="the H-statistics")
     p.add_argument("--pairs", metavar="A:B,...", help="only these pairs (default: every pair sharing a path)")
     p.add_argument("--triples", action="store_true", help="also three-way statistics for features whose pairs all share paths")
-    p.add_argument("--sort", choices=("h2", "h"), default="h2",
-                   help="rank by the normalised h2 (default) or by h, the interaction's size in output units: a large "
-                        "h2 on a tiny h is noise")
-    p.add_argument("--sample", type=int, default=1000, metavar="N",
-                   help="rows drawn from the data (default 1000; 0 = all rows; cost grows with N)")
-    p.add_argument("--seed", type=int, default=0, help="random seed of the row sample (default 0)")
+    p.add_argument("--sort", choices=("h", "h2"), default="h",
+                   help="rank by h, the interaction's size in output units (default), or by h2 = H², its share of "
+                        "the joint effect; read H² beside h: a large H² on a tiny h is noise")
     p.add_argument("--method", choices=("auto", "exact", "brute"), default="auto",
                    help="exact tree algorithm or brute-force partial dependence (default: exact for trees)")
     p.add_argument("--scale", choices=("margin", "probability"), default="margin",
-                   help="margin (default; the raw score, log-odds for classifiers) or the probability scale (brute force, slower)")
-    p.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel workers (default 1; -1 = all cores)")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, against_rest, triples; default pairs)")
-    p.set_defaults(handler=_cmd_measure)
+                   help="margin (default; the model's untransformed score, log-odds for classifiers) or the "
+                        "probability scale (brute force, slower)")
+    _add_table(p, ("pairs", "against_rest", "triples"), "pairs, against_rest, triples")
 
-    p = sub.add_parser("triage", help="verdict per feature pair: interaction, co-split, dependent or absent",
-                       description="Tell real interactions from structural co-splits and dependence artefacts: path "
-                                   "structure, H-statistics with a resampling interval and a refit noise floor, and "
-                                   "the dependence of each pair in the data.")
+
+def _triage_command_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
     p.add_argument("--triples", action="store_true", help="also give verdicts to triples sharing a path")
-    p.add_argument("--table", default="pairs", help="table to write with --format csv (pairs, triples, features)")
-    p.set_defaults(handler=_cmd_triage)
+    _add_table(p, ("pairs", "triples", "features"), "pairs, triples, features")
 
-    p = sub.add_parser("constrain", help="suggest interaction-constraint groups, export them, validate by retraining",
-                       description="Suggest groups of features allowed to interact (from the triage), print them as "
-                                   "XGBoost and LightGBM interaction_constraints, and optionally cross-validate the "
-                                   "constrained model against the unconstrained one.")
+
+def _constrain_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
     p.add_argument("--library", choices=("xgboost", "lightgbm"), help="library of the Python snippet (default: the model's)")
@@ -501,13 +572,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="validate the non-overlapping alternative when the groups overlap")
     p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
     p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
-    p.set_defaults(handler=_cmd_constrain, triples=True)
+    p.set_defaults(triples=True)
 
-    p = sub.add_parser("report", help="one self-contained HTML page: verdicts, maps, partial dependence, constraints",
-                       description="Run the triage on data and write one self-contained HTML page (inline CSS and "
-                                   "images; opens from disk) with the ranked pairs, the pair map, the interaction "
-                                   "graph, partial dependence of the top pairs, when pairs entered the model, the "
-                                   "suggested constraints and the cautions.")
+
+def _report_options(p: argparse.ArgumentParser) -> None:
     _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
                    help="HTML file to write (default: treeprobe-report.html)")
@@ -518,16 +586,62 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")
     p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
     _add_triage_options(p)
-    p.set_defaults(handler=_cmd_report, triples=True)
+    p.set_defaults(triples=True)
 
-    p = sub.add_parser("demo", help="run every step on an invented warehouse-energy data set with a known answer",
-                       description="Generate data with a known ground truth (refrigerated warehouse rooms' daily "
-                                   "energy use), train XGBoost and LightGBM models, and run inspect, H-statistics, "
-                                   "triage and constraints on them; writes the report, JSON and CSV into DIR.")
+
+def _demo_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", default="treeprobe-demo", metavar="DIR",
                    help="folder for the models, data and results (default: ./treeprobe-demo)")
     p.add_argument("--quiet", action="store_true", help="print only the summary: no progress bars, step lines or details")
-    p.set_defaults(handler=_cmd_demo)
+
+
+# Command, handler, its options, one-line summary (in `treeprobe --help`), description (in `COMMAND --help`).
+_COMMANDS: tuple[tuple[str, Callable[[argparse.Namespace], int], Callable[[argparse.ArgumentParser], None], str,
+                       str], ...] = (
+    ("inspect", _cmd_inspect, _inspect_options,
+     "model summary and the feature sets its trees combine on root-to-leaf paths",
+     "Summarise a saved model and count how features co-occur on root-to-leaf paths, weighted by gain and cover. "
+     "Needs no data."),
+    ("measure", _cmd_measure, _measure_options, "Friedman-Popescu H-statistics of the model on data",
+     "Measure how much of the model's variation is interaction, with Friedman & Popescu's H-statistics (2008) "
+     "computed on rows of your data."),
+    ("triage", _cmd_triage, _triage_command_options,
+     "verdict per feature pair: interaction, dependent, co-split or absent",
+     "Tell real interactions from structural co-splits and dependence artefacts: path structure, H-statistics with "
+     "a resampling interval and a refit noise floor, and the dependence of each pair in the data."),
+    ("constrain", _cmd_constrain, _constrain_options,
+     "suggest interaction-constraint groups, export them, validate by retraining",
+     "Suggest groups of features allowed to interact (from the triage), print them as XGBoost and LightGBM "
+     "interaction_constraints, and optionally cross-validate the constrained model against the unconstrained one."),
+    ("report", _cmd_report, _report_options,
+     "one self-contained HTML page: verdicts, maps, partial dependence, constraints",
+     "Run the triage on data and write one self-contained HTML page (inline CSS and images; opens from disk) with "
+     "the ranked pairs, the pair map, the groups-and-links diagram, partial dependence of the top pairs, when pairs "
+     "entered the model, the suggested constraints and the cautions."),
+    ("demo", _cmd_demo, _demo_options,
+     "run every step on an invented warehouse-energy data set with a known answer",
+     "Generate data with a known ground truth (refrigerated warehouse rooms' daily energy use), train XGBoost and "
+     "LightGBM models, and run inspect, H-statistics, triage and constraints on them; writes the report, JSON and "
+     "CSV into DIR."),
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``treeprobe`` command."""
+    from . import __version__
+
+    parser = argparse.ArgumentParser(
+        prog="treeprobe",
+        description="Which feature interactions does a fitted tree ensemble really use?",
+        epilog="Run 'treeprobe COMMAND --help' for the options of a command.",
+    )
+    parser.add_argument("--version", action="version", version=f"treeprobe {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, handler, add_options, summary, description in _COMMANDS:
+        p = sub.add_parser(name, help=summary, description=description)
+        add_options(p)
+        p.set_defaults(handler=handler)
     return parser
 
 
@@ -540,8 +654,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "command", None):
         parser.print_help(sys.stderr)
         return 2
-    if getattr(args, "top", 1) is not None and getattr(args, "top", 1) < 1:
-        parser.error(f"--top must be at least 1, got {args.top}")
+    try:
+        _check_options(args)
+    except ParameterError as exc:
+        parser.error(str(exc))
     try:
         return int(args.handler(args))
     except _UsageError as exc:

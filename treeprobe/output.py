@@ -7,10 +7,10 @@ none, never half a file.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
-import sys
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -21,7 +21,7 @@ import pandas as pd
 
 from .errors import TreeprobeError
 
-__all__ = ["atomic_write", "format_table", "to_jsonable", "dumps_json", "Progress"]
+__all__ = ["atomic_write", "format_table", "to_jsonable", "dumps_json"]
 
 
 def atomic_write(path: str | os.PathLike, write: Callable[[TextIO], None], *, encoding: str = "utf-8") -> Path:
@@ -51,10 +51,8 @@ def atomic_write(path: str | os.PathLike, write: Callable[[TextIO], None], *, en
             os.fsync(handle.fileno())
         os.replace(tmp, target)
     except BaseException:
-        try:
+        with contextlib.suppress(OSError):
             os.unlink(tmp)
-        except OSError:
-            pass
         raise
     return target
 
@@ -134,38 +132,3 @@ def format_table(frame: pd.DataFrame, *, precision: int = 4, max_rows: int | Non
         out.append("(none)")
     return "\n".join(out)
 
-
-class Progress:
-    """A minimal progress bar on standard error, drawn only when it is a terminal.
-
-    Use as ``with Progress(total, "pairs") as bar: bar.advance()``. Never writes
-    to standard output, so piped JSON stays clean.
-    """
-
-    def __init__(self, total: int, label: str, *, enabled: bool | None = None, stream: TextIO | None = None) -> None:
-        self.total = max(int(total), 0)
-        self.label = label
-        self.done = 0
-        self.stream = stream or sys.stderr
-        self.enabled = (self.stream.isatty() if hasattr(self.stream, "isatty") else False) if enabled is None else enabled
-
-    def __enter__(self) -> Progress:
-        self._draw()
-        return self
-
-    def advance(self, steps: int = 1) -> None:
-        self.done = min(self.total, self.done + steps)
-        self._draw()
-
-    def _draw(self) -> None:
-        if not self.enabled or self.total == 0:
-            return
-        width = 30
-        filled = int(width * self.done / self.total)
-        self.stream.write(f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] {self.done}/{self.total}")
-        self.stream.flush()
-
-    def __exit__(self, *exc: object) -> None:
-        if self.enabled and self.total:
-            self.stream.write("\n")
-            self.stream.flush()
