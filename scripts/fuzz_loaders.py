@@ -95,7 +95,7 @@ def _encode_int(number: int, out: bytearray) -> None:
     out += text
 
 
-def _encode_into(value: Any, out: bytearray) -> None:
+def _encode_into(value: Any, out: bytearray) -> None:  # noqa: C901
     if value is None:
         out += b"Z"
     elif value is True or value is False:
@@ -233,7 +233,7 @@ def _parent(doc: Any, path: tuple) -> Any:
 
 def _trees(doc: Any) -> list:
     booster = doc["learner"]["gradient_booster"]
-    return (booster["gbtree"] if "gbtree" in booster else booster)["model"]["trees"]
+    return booster.get("gbtree", booster)["model"]["trees"]
 
 
 def _node_array(tree: dict, key: str) -> np.ndarray:

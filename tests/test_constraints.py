@@ -328,7 +328,7 @@ def test_write_graphml_refuses_none_and_writes_nothing(tmp_path):
 def test_bad_triage_results(small_ensemble):
     good = _stand_in(small_ensemble, [("fuel_price", "shift_length", "interaction", 0.5)])
     no_strength = SimpleNamespace(**{**vars(good), "pairs": good.pairs.drop(columns="strength")})
-    with pytest.raises(DataError, match="pairs lacks the column.*strength"):
+    with pytest.raises(DataError, match=r"pairs lacks the column.*strength"):
         suggest_constraints(no_strength)
     no_features = SimpleNamespace(**{**vars(good), "features": None})
     with pytest.raises(DataError, match="features must be a pandas DataFrame"):
@@ -373,7 +373,7 @@ def test_bad_groups_and_data(three_way_data):
     with pytest.raises(DataError, match="first at row 5"):
         validate_constraints(params, frame, y_bad, [[0, 1]], **options)
     model = xgb.train({"max_depth": 2, "nthread": 1}, xgb.DMatrix(frame, y), 2)
-    with pytest.raises(DataError, match="lacks the model's column.*route_km"):
+    with pytest.raises(DataError, match=r"lacks the model's column.*route_km"):
         validate_constraints(model, frame.drop(columns="route_km"), y, [[0, 1]], folds=2)
 
 

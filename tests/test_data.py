@@ -269,7 +269,7 @@ def test_load_data_reads_only_needed_columns_and_reports_the_rest(named_model, t
 def test_read_table_refuses_empty_or_broken_files(tmp_path, text):
     path = tmp_path / "broken.csv"
     path.write_text(text)
-    with pytest.raises(DataError, match="broken.csv"):
+    with pytest.raises(DataError, match=r"broken\.csv"):
         read_table(path)
 
 
@@ -311,7 +311,7 @@ def test_pickles_are_refused_by_the_api_and_never_unpickled(pickle_files):
     for name, path in paths.items():
         if name == "protocol0.json":
             # A text pickle does not look like one; the JSON parser must fail on it cleanly.
-            with pytest.raises(ModelFormatError, match="unknown model format|invalid JSON"):
+            with pytest.raises(ModelFormatError, match=r"unknown model format|invalid JSON"):
                 load_model(path)
         else:
             with pytest.raises(UnsafeModelError, match=r"runs arbitrary code.*trust_pickle=True"):

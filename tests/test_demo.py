@@ -83,8 +83,8 @@ def test_lightgbm_agrees_on_the_ground_truth(demo):
 def test_h_statistics_match_the_closed_form_of_the_formula(demo):
     """Friedman and Popescu 2008, eqs. 44 and 46, for the products in the generating formula."""
     result, _ = demo
-    assert PAIR_H2_CLOSED_FORM == pytest.approx(1 / 7)
-    assert TRIPLE_H2_CLOSED_FORM == pytest.approx(0.02703, abs=1e-4)
+    assert pytest.approx(1 / 7) == PAIR_H2_CLOSED_FORM
+    assert pytest.approx(0.02703, abs=1e-4) == TRIPLE_H2_CLOSED_FORM
     _, _, truth = demo_data(100)
     pairs = result.triage.pairs.set_index(["feature_a", "feature_b"])
     # Tolerances allow for a 150-tree fit and H on 500 sampled rows.

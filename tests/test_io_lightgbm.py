@@ -276,7 +276,7 @@ def test_linear_trees_are_unsupported(shift_data) -> None:
 def test_unfitted_and_foreign_objects() -> None:
     with pytest.raises(ModelFormatError, match="not fitted"):
         from_lightgbm(lightgbm.LGBMRegressor(), source="unfitted")
-    with pytest.raises(UnsupportedModelError, match="expected a lightgbm.Booster"):
+    with pytest.raises(UnsupportedModelError, match=r"expected a lightgbm\.Booster"):
         from_lightgbm(object(), source="thing")
     with pytest.raises(ModelFormatError, match="data must be bytes or str"):
         load_lightgbm_text(12, source="number")
@@ -354,7 +354,7 @@ def test_truncation_is_reported(fixture_text: str, marker: str, message: str) ->
 
 @pytest.mark.parametrize("key", ["num_cat", "leaf_weight", "internal_count", "decision_type", "threshold"])
 def test_missing_tree_key_is_named(fixture_text: str, key: str) -> None:
-    lines = [line for line in fixture_text.split("\n")]
+    lines = list(fixture_text.split("\n"))
     first = next(i for i, line in enumerate(lines) if line.startswith(key + "="))
     del lines[first]
     with pytest.raises(ModelFormatError, match=rf"Tree=0.*key '{key}' is missing"):

@@ -576,7 +576,7 @@ def test_integer_literal_beyond_python_digit_limit_is_a_format_error(tmp_path):
     text = (FIXTURES / "2.1.4" / "binary.json").read_text()
     bad = text.replace('"num_feature":"5"', '"num_feature":' + "9" * 5000, 1)
     assert bad != text
-    with pytest.raises(ModelFormatError, match="unreadable JSON.*4300 digits"):
+    with pytest.raises(ModelFormatError, match=r"unreadable JSON.*4300 digits"):
         load_xgboost_json(bad, source="long.json")
 
 

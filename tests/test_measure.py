@@ -280,7 +280,7 @@ def test_wrong_columns(small_tree_model):
     ensemble, frame = small_tree_model
     with pytest.raises(DataError, match="shift_length"):
         h_statistic(ensemble, frame.drop(columns="shift_length"))
-    with pytest.raises(DataError, match="2 columns.*3 features"):
+    with pytest.raises(DataError, match=r"2 columns.*3 features"):
         h_statistic(ensemble, frame.to_numpy()[:, :2])
 
 
@@ -370,7 +370,7 @@ def test_h_negligible_marks_h_below_one_percent_of_the_prediction_sd():
 
     X = np.random.default_rng(22).uniform(-1, 1, size=(600, 4))
     result = h_statistic(_noise_and_signal, X, pairs=[("x0", "x1"), ("x2", "x3")], against_rest=True)
-    flags = dict(zip(zip(result.pairs.feature_a, result.pairs.feature_b), result.pairs.h_negligible, strict=True))
+    flags = dict(zip(zip(result.pairs.feature_a, result.pairs.feature_b, strict=True), result.pairs.h_negligible, strict=True))
     assert flags == {("x0", "x1"): False, ("x2", "x3"): True}
     cut = NEGLIGIBLE_H_SHARE * np.std(_noise_and_signal(X))
     np.testing.assert_array_equal(result.against_rest.h_negligible, result.against_rest.h <= cut)

@@ -223,7 +223,7 @@ def test_bad_options_raise_and_write_nothing(fitted, triaged, tmp_path):
         report(model, X, y, out=tmp_path / "missing" / "r.html", triage_result=result)
     with pytest.raises(DataError, match="lacks 1 of the model's 5 feature columns: idle_minutes"):
         report(model, X.drop(columns="idle_minutes"), y, out=out, triage_result=result)
-    with pytest.raises(ParameterError, match="unknown option.*'samples'"):
+    with pytest.raises(ParameterError, match=r"unknown option.*'samples'"):
         report(model, X, y, out=out, triage_options={"samples": 10})
     with pytest.raises(ParameterError, match="is a folder"):
         report(model, X, y, out=tmp_path, triage_result=result)

@@ -352,7 +352,7 @@ def _set_frame(
     )
     table = pd.DataFrame(frame, columns=[*_MEMBER_COLUMNS[:size], *_SET_COLUMNS]).reset_index(drop=True)
     # Name columns get pandas' text dtype even when empty, so dtypes do not depend on the row count.
-    return table.astype({column: "str" for column in _MEMBER_COLUMNS[:size]})
+    return table.astype(dict.fromkeys(_MEMBER_COLUMNS[:size], "str"))
 
 
 def _feature_frame(ensemble: ForestGraph, walked: np.ndarray, leaf_paths: np.ndarray, used: np.ndarray) -> pd.DataFrame:

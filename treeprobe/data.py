@@ -216,7 +216,7 @@ def _sampled_csv(path: Path, columns: list[str] | None, sample: int, random_stat
     return kept
 
 
-def read_table(
+def read_table(  # noqa: C901
     path: str | os.PathLike,
     *,
     columns: list[str] | None = None,

@@ -136,7 +136,7 @@ def rounds_of(ensemble: ForestGraph) -> int:
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 
 
-def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,
+def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,  # noqa: C901
                    num_boost_round: int | None = None,
                    live_params: dict | None = None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
     """Library, parameters, rounds, the model's feature names (None for a params dict) and notes.

@@ -501,7 +501,7 @@ def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray
     """Add ``rank_correlation``, ``information_correlation`` and ``dependence`` (the larger in absolute value)."""
     index = {name: j for j, name in enumerate(graph.feature_names)}
     categorical = np.array([kind == "categorical" for kind in graph.feature_types])
-    columns = [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"])]
+    columns = [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"], strict=True)]
     rank, info = _dependence(matrix, columns, categorical, random_state)
     frame["rank_correlation"], frame["information_correlation"] = rank, info
     frame["dependence"] = np.fmax(np.abs(rank), info)
@@ -659,7 +659,7 @@ def triage(
     h_output = output if graph.n_outputs > 1 else None
     walked = structure(graph, max_order=3 if triples else 2, output=h_output)
     used = walked.features["splits"].to_numpy() > 0
-    used_names = [name for name, flag in zip(graph.feature_names, used) if flag]
+    used_names = [name for name, flag in zip(graph.feature_names, used, strict=True) if flag]
     hres = h_statistic(graph, rows, pairs=[tuple(k) for k in walked.pairs[["feature_a", "feature_b"]].to_numpy()] or None,
                        triples=triples or None, against_rest=True, sample=None, output=h_output, progress=progress)
     prediction_sd = _prediction_sd(graph, matrix, output)

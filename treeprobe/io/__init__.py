@@ -72,13 +72,13 @@ def read_model_file(path: Path, trust_pickle: bool = False) -> ForestGraph | Any
             )
         return _load_pickle(path, data)
     stripped = data.lstrip()
-    if stripped.startswith(b"tree\n") or stripped.startswith(b"tree\r\n") or b"\nversion=v" in data[:200]:
+    if stripped.startswith((b"tree\n", b"tree\r\n")) or b"\nversion=v" in data[:200]:
         return load_lightgbm_text(data, source=str(path))
     if stripped.startswith(b"{"):
         second = stripped[1:2]
-        if path.suffix.lower() == ".ubj" or second in (b"L", b"U", b"i", b"I", b"l", b"$", b"#", b"}"):
-            if second != b"}" or path.suffix.lower() == ".ubj":
-                return load_xgboost_ubjson(data, source=str(path))
+        # "{}" is an empty JSON object unless the suffix says UBJSON.
+        if path.suffix.lower() == ".ubj" or second in (b"L", b"U", b"i", b"I", b"l", b"$", b"#"):
+            return load_xgboost_ubjson(data, source=str(path))
         return load_xgboost_json(data, source=str(path))
     raise ModelFormatError(
         f"{path}: unknown model format (expected XGBoost JSON/UBJSON, LightGBM model text, "

@@ -125,7 +125,7 @@ def _split_key_value(line: str) -> tuple[str, str] | None:
     return (key.strip(), value.strip()) if sep else None
 
 
-def _split_sections(lines: list[str], source: str) -> tuple[dict, list[dict], list[str]]:
+def _split_sections(lines: list[str], source: str) -> tuple[dict, list[dict], list[str]]:  # noqa: C901
     """Header entries, one ``{key: (value, line_number)}`` per ``Tree=k`` block, and the lines after the trees."""
     header: dict[str, tuple[str, int]] = {}
     blocks: list[dict[str, tuple[str, int]]] = []

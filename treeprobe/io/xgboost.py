@@ -192,7 +192,7 @@ def _base_margin(stored: np.ndarray, transform: str, objective: str, source: str
     return stored
 
 
-def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.ndarray:
+def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
     """One per-node key of every tree, concatenated into one array.
 
     Trees arrive as numpy arrays (UBJSON, or JSON compacted by
@@ -295,7 +295,7 @@ def _drop_deleted_nodes(left: np.ndarray, right: np.ndarray, leaf: np.ndarray, s
     return seen
 
 
-def _category_lists(split_type: np.ndarray, sizes: np.ndarray, trees: list,
+def _category_lists(split_type: np.ndarray, sizes: np.ndarray, trees: list,  # noqa: C901
                     source: str) -> list[np.ndarray]:
     """Per-node category lists from XGBoost's per-tree CSR (``categories_nodes``/``_segments``/``_sizes``)."""
     offsets = np.concatenate([[0], np.cumsum(sizes)])
@@ -380,7 +380,7 @@ def _category_names(model: dict, feature_names: list[str]) -> dict[str, list[str
     return out
 
 
-def _booster_trees(learner: dict, source: str) -> tuple[str, dict, list, np.ndarray, np.ndarray | None]:
+def _booster_trees(learner: dict, source: str) -> tuple[str, dict, list, np.ndarray, np.ndarray | None]:  # noqa: C901
     """Booster name, model block, tree list, ``tree_info`` and DART tree weights (None for gbtree)."""
     booster = _member(learner, "gradient_booster", dict, "learner", source)
     booster_name = _member(booster, "name", str, "learner.gradient_booster", source)

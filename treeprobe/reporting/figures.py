@@ -305,7 +305,7 @@ def arc_layout(pairs: pd.DataFrame, used_features: Sequence[str], groups: Sequen
 
     drawn = pairs[pairs["verdict"].isin(["interaction", "dependent"])
                   & pairs["feature_a"].astype(str).isin(position) & pairs["feature_b"].astype(str).isin(position)]
-    ends = np.array([[position[str(a)], position[str(b)]] for a, b in zip(drawn["feature_a"], drawn["feature_b"])],
+    ends = np.array([[position[str(a)], position[str(b)]] for a, b in zip(drawn["feature_a"], drawn["feature_b"], strict=True)],
                     dtype=np.int64).reshape(-1, 2)
     strength = np.nan_to_num(drawn["strength"].to_numpy(dtype=np.float64), nan=0.0) if len(drawn) else np.zeros(0)
     top = strength.max() if strength.size and strength.max() > 0 else 1.0
@@ -365,8 +365,8 @@ def draw_arc_diagram(canvas: Canvas, layout: ArcLayout) -> Any:
     # How far each name reaches below the baseline, in data units (one unit = the spacing of two features).
     name_ends = -(gap_in + (sizes[:, 0] if upright else sizes[:, 1])) / unit
     depth = gap_in / unit - name_ends.min(initial=0.0)
-    reach_up = max([0.5] + [(e - s) / 2.0 for s, e in zip(up["start"], up["end"])]) + 0.45
-    reach_down = max([0.0] + [(e - s) / 2.0 for s, e in zip(down["start"], down["end"])])
+    reach_up = max([0.5] + [(e - s) / 2.0 for s, e in zip(up["start"], up["end"], strict=True)]) + 0.45
+    reach_down = max([0.0] + [(e - s) / 2.0 for s, e in zip(down["start"], down["end"], strict=True)])
     rail = -depth if len(down) else 0.0
     bottom = rail - reach_down - 0.15
     left_edge, right_edge = -0.7, n - 0.3
@@ -406,7 +406,7 @@ def draw_arc_diagram(canvas: Canvas, layout: ArcLayout) -> Any:
             zorder=3)
     ax.plot(x[~grouped], np.zeros((~grouped).sum()), linestyle="none", marker="o", markersize=_MARKER_SIZE,
             markerfacecolor="white", markeredgecolor=_INK, markeredgewidth=1.4, zorder=3)
-    for position, name in zip(x, names):
+    for position, name in zip(x, names, strict=True):
         ax.annotate(name, xy=(position, 0.0), xytext=(0, -_NAME_GAP), textcoords="offset points", ha="center",
                     va="top", rotation=90 if upright else 0, fontsize=_NAME_SIZE, color=_INK, zorder=4)
 
@@ -455,7 +455,7 @@ def _held_values(graph: ForestGraph, matrix: np.ndarray, feature: int) -> tuple[
     _, first = np.unique(values, return_index=True)
     first = np.sort(first)
     quantiles = np.asarray(_LINE_QUANTILES)[first]
-    return values[first], [f"{q:.0%} quantile = {number_text(v)}" for q, v in zip(quantiles, values[first])]
+    return values[first], [f"{q:.0%} quantile = {number_text(v)}" for q, v in zip(quantiles, values[first], strict=True)]
 
 
 def _tick_labels(graph: ForestGraph, feature: int, codes: np.ndarray) -> list[str]:
@@ -484,7 +484,7 @@ def dependence_svg(canvas: Canvas, graph: ForestGraph, matrix: np.ndarray, featu
 
     fig, (left, right) = canvas.figure(1, 2, figsize=(11.0, 4.2), gridspec_kw={"width_ratios": [1.15, 1.0]})
     x_positions = np.arange(curve_x.size) if a_categorical else curve_x
-    for i, (curve, label) in enumerate(zip(lines, held_labels)):
+    for i, (curve, label) in enumerate(zip(lines, held_labels, strict=True)):
         left.plot(x_positions, curve, color=SERIES_COLOURS[i % len(SERIES_COLOURS)],
                   linestyle=SERIES_LINES[i % len(SERIES_LINES)], marker=SERIES_MARKERS[i % len(SERIES_MARKERS)],
                   markevery=max(1, curve.size // 6), markersize=5, linewidth=1.6, label=f"{feature_b}: {label}")
@@ -529,7 +529,7 @@ def rounds_svg(canvas: Canvas, graph: ForestGraph, leading: pd.DataFrame, output
     """
     by_round = structure_by_round(graph, max_order=2, output=output)
     by_round = by_round[by_round["order"] == 2]
-    keys = [frozenset((str(a), str(b))) for a, b in zip(by_round["feature_a"], by_round["feature_b"])]
+    keys = [frozenset((str(a), str(b))) for a, b in zip(by_round["feature_a"], by_round["feature_b"], strict=True)]
     keys = pd.Series(keys, index=by_round.index, dtype=object)
     last_round = int(by_round["round"].max()) if len(by_round) else 0
     fig, ax = canvas.figure(figsize=(8.4, 4.6))
