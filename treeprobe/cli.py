@@ -426,7 +426,7 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
     data = _read_data(args, ens)
     result = _run_triage(args, ens, data)
     suggestion = suggest_constraints(result, min_strength=args.min_strength)
-    library = args.library or (ens.library if ens.library in ("xgboost", "lightgbm") else "xgboost")
+    library = args.library or ens.library
     validation = None
     if args.validate:
         groups = suggestion.alternative if (suggestion.overlapping and args.non_overlapping) else suggestion.groups
@@ -565,7 +565,9 @@ def _triage_command_options(p: argparse.ArgumentParser) -> None:
 def _constrain_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
-    p.add_argument("--library", choices=("xgboost", "lightgbm"), help="library of the Python snippet (default: the model's)")
+    p.add_argument("--library", choices=("xgboost", "lightgbm", "sklearn"),
+                   help="library of the Python snippet (default: the model's; sklearn writes HistGradientBoosting "
+                        "interaction_cst)")
     p.add_argument("--min-strength", type=float, default=0.0, help="weakest interaction strength to allow (default 0)")
     p.add_argument("--validate", action="store_true", help="cross-validate with and without the groups (needs --target)")
     p.add_argument("--non-overlapping", action="store_true",

@@ -82,6 +82,7 @@ from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
 
 from .checks import check_choice, check_float, check_int, check_progress, check_seed
+from .cooccurrence import structure
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
@@ -670,7 +671,6 @@ def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> 
 def _cross_group(refit: ForestGraph, groups: list[list[int]],
                  columns: tuple[str, ...]) -> tuple[list[tuple[str, str]], list[list[str]]]:
     """Pairs on a path that no group contains, and path feature sets that no group contains."""
-    from .cooccurrence import structure
 
     within = {pair for group in groups for pair in combinations(sorted(group), 2)}
     position = {name: j for j, name in enumerate(refit.feature_names)}
