@@ -32,6 +32,7 @@ from treeprobe.constraints import (
 from treeprobe.cooccurrence import structure
 from treeprobe.errors import DataError, MissingLibraryError, ParameterError, TreeprobeError
 from treeprobe.io import load_model
+from treeprobe.refit import _held_out_split
 
 xgb = pytest.importorskip("xgboost")
 lgb = pytest.importorskip("lightgbm")
@@ -181,7 +182,8 @@ def test_friedman1_suggestion_and_validation():
     assert checked.summary["params"]["max_depth"] == "4"
     assert rmse["relative_change"] <= 0.02
     assert checked.cross_group_pairs == [] and checked.stray_paths == []
-    assert list(checked.folds.columns) == ["fold", "metric", "unconstrained", "constrained", "difference"]
+    assert list(checked.folds.columns) == ["fold", "metric", "unconstrained", "constrained", "difference",
+                                           "unconstrained_rounds", "constrained_rounds"]
     assert np.allclose(checked.folds["difference"], checked.folds["constrained"] - checked.folds["unconstrained"])
     assert rmse["difference_low"] <= rmse["difference_mean"] <= rmse["difference_high"]
     additive = validate_constraints(booster, frame, y, [[j] for j in range(6)], folds=3)
@@ -391,7 +393,10 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
     """A saved LightGBM binary model: its stored parameters and rounds are reused; log-loss and AUC per fold.
 
     Reference: scikit-learn's log_loss and roc_auc_score recomputed on the same
-    fold from a LightGBM model trained by hand with the same parameters.
+    fold from a LightGBM model trained by hand with the same parameters and
+    LightGBM's own ``early_stopping`` callback (patience 50, budget
+    max(8 * 12, 200) = 200) on the same inner split. (Before early stopping
+    the hand fit ran the model's fixed 12 rounds.)
     """
     rng = np.random.default_rng(11)
     X = rng.normal(size=(500, 4))
@@ -411,8 +416,14 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
     from sklearn.model_selection import StratifiedKFold
 
     train, test = next(StratifiedKFold(3, shuffle=True, random_state=0).split(X, y.astype(int)))
-    by_hand = lgb.train({**params, "seed": 0}, lgb.Dataset(X[train], y[train]), 12).predict(X[test])
+    fit, stop = _held_out_split(len(train), 0.8, 1, y[train].astype(int))
+    fit_set = lgb.Dataset(X[train][fit], y[train][fit])
+    booster = lgb.train({**params, "seed": 0}, fit_set, 200, valid_sets=[lgb.Dataset(X[train][stop], y[train][stop],
+                                                                                      reference=fit_set)],
+                        callbacks=[lgb.early_stopping(50, verbose=False)])
+    by_hand = booster.predict(X[test])
     first = checked.folds[checked.folds["fold"] == 1].set_index("metric")["unconstrained"]
+    assert checked.folds["unconstrained_rounds"].iloc[0] == booster.best_iteration
     assert first["log_loss"] == pytest.approx(log_loss(y[test], by_hand), rel=1e-9)
     assert first["auc"] == pytest.approx(roc_auc_score(y[test], by_hand), rel=1e-9)
 
@@ -426,7 +437,7 @@ def test_saved_xgboost_file_notes_missing_parameters(tmp_path, three_way_data):
     assert checked.summary["params"]["max_depth"] == 3
     assert checked.summary["num_boost_round"] == 8
     assert any("does not store its training parameters" in note for note in checked.summary["notes"])
-    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/2"
+    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/3"
 
 
 def test_cross_group_check_finds_crossing_paths(three_way_data):
@@ -447,7 +458,9 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     """A live XGBClassifier (three classes): rounds = trees / classes, its configuration is reused, log-loss per fold.
 
     Reference: scikit-learn's log_loss on the probabilities of an XGBClassifier
-    refitted by hand on the first fold with the same parameters.
+    refitted by hand on the first fold with the same parameters and XGBoost's
+    own ``early_stopping_rounds`` (50, budget max(8 * 6, 200) = 200) on the
+    same inner split. (Before early stopping the hand fit ran 6 fixed rounds.)
     """
     X, y_numeric = three_way_data
     y = np.digitize(y_numeric, np.quantile(y_numeric, [1 / 3, 2 / 3])).astype(float)
@@ -462,9 +475,13 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     from sklearn.model_selection import StratifiedKFold
 
     train, test = next(StratifiedKFold(2, shuffle=True, random_state=0).split(X, y.astype(int)))
-    by_hand = xgb.XGBClassifier(n_estimators=6, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0)
-    probability = by_hand.fit(X[train], y[train]).predict_proba(X[test])
+    fit, stop = _held_out_split(len(train), 0.8, 1, y[train].astype(int))
+    by_hand = xgb.XGBClassifier(n_estimators=200, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0,
+                                early_stopping_rounds=50)
+    by_hand.fit(X[train][fit], y[train][fit], eval_set=[(X[train][stop], y[train][stop])], verbose=False)
+    probability = by_hand.predict_proba(X[test])
     first = checked.folds.loc[checked.folds["fold"] == 1, "unconstrained"].iloc[0]
+    assert checked.folds["unconstrained_rounds"].iloc[0] == by_hand.best_iteration + 1
     assert first == pytest.approx(log_loss(y[test], probability), rel=1e-5)
 
 
