@@ -32,6 +32,7 @@ from treeprobe.constraints import (
 from treeprobe.cooccurrence import structure
 from treeprobe.errors import DataError, MissingLibraryError, ParameterError, TreeprobeError
 from treeprobe.io import load_model
+from treeprobe.refit import _held_out_split
 
 xgb = pytest.importorskip("xgboost")
 lgb = pytest.importorskip("lightgbm")
@@ -94,6 +95,15 @@ def _stand_in(ensemble, pairs: list[tuple[str, str, str, float]], *, triples=(),
     pair_frame["note"] = [None] + ["checked"] * (len(pair_frame) - 1) if len(pair_frame) else []
     triple_frame = pd.DataFrame(list(triples), columns=["feature_a", "feature_b", "feature_c", "verdict", "strength"])
     return SimpleNamespace(ensemble=ensemble, features=features, pairs=pair_frame, triples=triple_frame)
+
+
+@pytest.fixture
+def one_openmp_thread():
+    """One OpenMP thread for scikit-learn's estimators: on busy cores their thread pool spun ~30 s on 1500 rows."""
+    from threadpoolctl import threadpool_limits  # installed with scikit-learn
+
+    with threadpool_limits(limits=1):
+        yield
 
 
 @pytest.fixture(scope="module")
@@ -181,7 +191,8 @@ def test_friedman1_suggestion_and_validation():
     assert checked.summary["params"]["max_depth"] == "4"
     assert rmse["relative_change"] <= 0.02
     assert checked.cross_group_pairs == [] and checked.stray_paths == []
-    assert list(checked.folds.columns) == ["fold", "metric", "unconstrained", "constrained", "difference"]
+    assert list(checked.folds.columns) == ["fold", "metric", "unconstrained", "constrained", "difference",
+                                           "unconstrained_rounds", "constrained_rounds"]
     assert np.allclose(checked.folds["difference"], checked.folds["constrained"] - checked.folds["unconstrained"])
     assert rmse["difference_low"] <= rmse["difference_mean"] <= rmse["difference_high"]
     additive = validate_constraints(booster, frame, y, [[j] for j in range(6)], folds=3)
@@ -391,7 +402,10 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
     """A saved LightGBM binary model: its stored parameters and rounds are reused; log-loss and AUC per fold.
 
     Reference: scikit-learn's log_loss and roc_auc_score recomputed on the same
-    fold from a LightGBM model trained by hand with the same parameters.
+    fold from a LightGBM model trained by hand with the same parameters and
+    LightGBM's own ``early_stopping`` callback (patience 50, budget
+    max(8 * 12, 200) = 200) on the same inner split. (Before early stopping
+    the hand fit ran the model's fixed 12 rounds.)
     """
     rng = np.random.default_rng(11)
     X = rng.normal(size=(500, 4))
@@ -411,8 +425,14 @@ def test_lightgbm_binary_reads_parameters_and_scores(tmp_path):
     from sklearn.model_selection import StratifiedKFold
 
     train, test = next(StratifiedKFold(3, shuffle=True, random_state=0).split(X, y.astype(int)))
-    by_hand = lgb.train({**params, "seed": 0}, lgb.Dataset(X[train], y[train]), 12).predict(X[test])
+    fit, stop = _held_out_split(len(train), 0.8, 1, y[train].astype(int))
+    fit_set = lgb.Dataset(X[train][fit], y[train][fit])
+    booster = lgb.train({**params, "seed": 0}, fit_set, 200, valid_sets=[lgb.Dataset(X[train][stop], y[train][stop],
+                                                                                      reference=fit_set)],
+                        callbacks=[lgb.early_stopping(50, verbose=False)])
+    by_hand = booster.predict(X[test])
     first = checked.folds[checked.folds["fold"] == 1].set_index("metric")["unconstrained"]
+    assert checked.folds["unconstrained_rounds"].iloc[0] == booster.best_iteration
     assert first["log_loss"] == pytest.approx(log_loss(y[test], by_hand), rel=1e-9)
     assert first["auc"] == pytest.approx(roc_auc_score(y[test], by_hand), rel=1e-9)
 
@@ -426,7 +446,7 @@ def test_saved_xgboost_file_notes_missing_parameters(tmp_path, three_way_data):
     assert checked.summary["params"]["max_depth"] == 3
     assert checked.summary["num_boost_round"] == 8
     assert any("does not store its training parameters" in note for note in checked.summary["notes"])
-    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/2"
+    assert json.loads(json.dumps(checked.to_dict()))["schema"] == "treeprobe.constraints.validation/3"
 
 
 def test_cross_group_check_finds_crossing_paths(three_way_data):
@@ -447,7 +467,9 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     """A live XGBClassifier (three classes): rounds = trees / classes, its configuration is reused, log-loss per fold.
 
     Reference: scikit-learn's log_loss on the probabilities of an XGBClassifier
-    refitted by hand on the first fold with the same parameters.
+    refitted by hand on the first fold with the same parameters and XGBoost's
+    own ``early_stopping_rounds`` (50, budget max(8 * 6, 200) = 200) on the
+    same inner split. (Before early stopping the hand fit ran 6 fixed rounds.)
     """
     X, y_numeric = three_way_data
     y = np.digitize(y_numeric, np.quantile(y_numeric, [1 / 3, 2 / 3])).astype(float)
@@ -462,9 +484,13 @@ def test_xgboost_multiclass_wrapper(three_way_data):
     from sklearn.model_selection import StratifiedKFold
 
     train, test = next(StratifiedKFold(2, shuffle=True, random_state=0).split(X, y.astype(int)))
-    by_hand = xgb.XGBClassifier(n_estimators=6, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0)
-    probability = by_hand.fit(X[train], y[train]).predict_proba(X[test])
+    fit, stop = _held_out_split(len(train), 0.8, 1, y[train].astype(int))
+    by_hand = xgb.XGBClassifier(n_estimators=200, max_depth=3, learning_rate=0.4, n_jobs=1, random_state=0,
+                                early_stopping_rounds=50)
+    by_hand.fit(X[train][fit], y[train][fit], eval_set=[(X[train][stop], y[train][stop])], verbose=False)
+    probability = by_hand.predict_proba(X[test])
     first = checked.folds.loc[checked.folds["fold"] == 1, "unconstrained"].iloc[0]
+    assert checked.folds["unconstrained_rounds"].iloc[0] == by_hand.best_iteration + 1
     assert first == pytest.approx(log_loss(y[test], probability), rel=1e-5)
 
 
@@ -519,7 +545,7 @@ def test_snippet_estimator_class_follows_the_objective(kind, expected, three_way
 
 
 @pytest.mark.parametrize("task", ["regression", "binary"])
-def test_histgradientboosting_snippet_sets_interaction_cst(task, three_way_data):
+def test_histgradientboosting_snippet_sets_interaction_cst(task, three_way_data, one_openmp_thread):
     """scikit-learn's own enforcement of ``interaction_cst``: fit the estimator the snippet builds, walk its trees."""
     from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
 
@@ -553,3 +579,117 @@ def test_suggestions_compare_by_value(small_ensemble):
                                                               min_strength=0.9)
     with pytest.raises(ParameterError, match="library"):
         suggest_constraints(result).python_snippet("catboost")
+
+
+# --------------------------------------------------------------------- validation at each variant's best rounds
+def _delivery_times(n_rows: int, seed: int = 5):
+    """Invented scenario: minutes late of a parcel round, 8 recorded conditions (uniform in -1..1, standardised).
+
+    Known answer: y = 3 x0 x1 + 2 sin(x2) x3 + x4 + 0.5 x5^2 + |x6| + noise
+    (sd 0.3); x7 is unused. True groups: {x0, x1}, {x2, x3}, the rest alone.
+    """
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(-1, 1, size=(n_rows, 8))
+    y = 3 * X[:, 0] * X[:, 1] + 2 * np.sin(X[:, 2]) * X[:, 3] + X[:, 4] + 0.5 * X[:, 5] ** 2 + np.abs(X[:, 6]) \
+        + rng.normal(0, 0.3, n_rows)
+    return pd.DataFrame(X, columns=[f"x{j}" for j in range(8)]), y
+
+
+@pytest.fixture(scope="module")
+def delivery_model():
+    frame, y = _delivery_times(2000)
+    model = xgb.XGBRegressor(n_estimators=250, learning_rate=0.05, max_depth=5, n_jobs=1, random_state=0)
+    return model.fit(frame, y), frame, y
+
+
+def test_true_groups_help_at_each_variants_best_rounds(delivery_model):
+    """Known answer: the true groups help once each variant trains to its own early-stopped round count.
+
+    At the model's fixed 250 rounds (learning rate 0.05) the constrained
+    model, which needs more rounds, looked worse. With early stopping the
+    constrained held-out RMSE is lower and the corrected interval (Nadeau and
+    Bengio 2003) lies below zero. XGBoost's enforcement of the groups is read
+    back from the refit (no crossing path).
+    """
+    model, frame, y = delivery_model
+    checked = validate_constraints(model, frame, y, [["x0", "x1"], ["x2", "x3"]], folds=4)
+    rmse = checked.summary["rmse"]
+    assert rmse["constrained_mean"] < rmse["unconstrained_mean"]
+    assert rmse["difference_high"] < 0
+    assert checked.summary["notes"][0].startswith("The groups help")
+    assert checked.summary["num_boost_round"] == 250 and checked.summary["max_rounds"] == 2000
+    free, bound = checked.folds["unconstrained_rounds"], checked.folds["constrained_rounds"]
+    assert ((free >= 1) & (free <= 2000) & (bound >= 1) & (bound <= 2000)).all()
+    assert (free != bound).any()
+    assert bound.median() > free.median()  # the constrained model needs more rounds
+    assert checked.recommended_rounds == int(round(bound.median()))
+    assert checked.summary["recommended_rounds"] == checked.recommended_rounds
+    assert checked.cross_group_pairs == [] and checked.stray_paths == []
+    rows = json.loads(json.dumps(checked.to_dict()))
+    assert [row["constrained_rounds"] for row in rows["folds"]] == bound.tolist()
+    assert rows["recommended_rounds"] == checked.recommended_rounds
+
+
+def test_groups_that_forbid_real_pairs_hurt_and_name_them(delivery_model):
+    """All singletons forbid x0 * x1 and sin(x2) x3: the first note says the groups hurt and names those pairs first.
+
+    The pair ranking follows a triage-like result whose strengths are set by hand.
+    """
+    model, frame, y = delivery_model
+    names = [f"x{j}" for j in range(8)]
+    triage_like = SimpleNamespace(pairs=pd.DataFrame({
+        "feature_a": ["x4", "x0", "x2"], "feature_b": ["x5", "x1", "x3"], "verdict": ["absent", "interaction",
+                                                                                   "interaction"],
+        "strength": [0.01, 0.6, 0.4]}))
+    checked = validate_constraints(model, frame.iloc[:1000], y[:1000], [[name] for name in names], folds=3,
+                                   triage_result=triage_like)
+    assert checked.summary["rmse"]["difference_low"] > 0
+    first = checked.summary["notes"][0]
+    assert first.startswith("The groups measurably hurt")
+    assert "forbid 28 pair(s), strongest by triage strength: (x0, x1), (x2, x3), (x4, x5)" in first
+
+
+def test_corrected_interval_is_wider_than_the_naive_one():
+    """Closed form of the corrected resampled t-test (Nadeau and Bengio 2003, Machine Learning 52:239-281).
+
+    Differences d = (-0.10, -0.05, -0.20, 0.02), K = 4, n_test/n_train = 1/3:
+    mean -0.0825, sample variance 0.0085583, t(0.975, 3) = 3.18245 (scipy);
+    corrected half-width 3.18245 * sqrt((1/4 + 1/3) * 0.0085583) = 0.22486,
+    naive 3.18245 * sqrt(0.0085583 / 4) = 0.14721, ratio sqrt(1 + 4/3).
+    """
+    from scipy.stats import t as student_t
+
+    differences = np.array([-0.10, -0.05, -0.20, 0.02])
+    low, high = constraints_module._corrected_interval(differences, 1 / 3)
+    assert (low, high) == pytest.approx((-0.0825 - 0.22486, -0.0825 + 0.22486), abs=1e-5)
+    naive_half = student_t.ppf(0.975, 3) * differences.std(ddof=1) / math.sqrt(4)
+    assert naive_half == pytest.approx(0.14721, abs=1e-5)
+    assert (high - low) / 2 > naive_half
+    assert (high - low) / 2 / naive_half == pytest.approx(math.sqrt(1 + 4 / 3), rel=1e-12)
+    assert constraints_module._corrected_interval(np.array([0.1, 0.1, 0.1]), 0.5) == (pytest.approx(0.1),
+                                                                                        pytest.approx(0.1))
+
+
+@pytest.mark.parametrize(("low", "high", "opening"), [
+    (-0.3, 0.1, "No clear difference"),
+    (-0.3, -0.1, "The groups help"),
+    (0.05, 0.2, "The groups measurably hurt"),
+])
+def test_outcome_wording_follows_the_interval(low, high, opening):
+    """An interval spanning zero reads "no clear difference", never "the groups help"."""
+    summary = {"rmse": {"difference_mean": (low + high) / 2, "difference_low": low, "difference_high": high,
+                        "relative_change": 0.01}}
+    note = constraints_module._outcome_note(summary, [[0, 1], [2]], ("x0", "x1", "x2"), None)
+    assert note.startswith(opening)
+    assert ("help" in note) == (opening == "The groups help")
+    if opening.endswith("hurt"):
+        assert "forbid 2 pair(s), in feature order: (x0, x2), (x1, x2)" in note
+
+
+def test_snippet_prints_the_recommended_rounds(small_ensemble):
+    suggestion = suggest_constraints(_stand_in(small_ensemble, [("fuel_price", "shift_length", "interaction", 0.5)]))
+    assert "num_boost_round = 640  # median best round count" in suggestion.python_snippet("xgboost", num_boost_round=640)
+    assert "max_iter = 640" in suggestion.python_snippet("sklearn", num_boost_round=640)
+    assert "num_boost_round" not in suggestion.python_snippet("lightgbm")
+    with pytest.raises(ParameterError, match="num_boost_round must be an integer >= 1"):
+        suggestion.python_snippet("xgboost", num_boost_round=0)

@@ -95,6 +95,7 @@ from .refit import (
     MULTICLASS,
     REGRESSION,
     design_matrix,
+    fit_early_stopped,
     fit_model,
     import_library,
     live_training_params,
@@ -125,8 +126,18 @@ _PAIR_COLUMNS = ("feature_a", "feature_b", "verdict", "strength")
 _TRIPLE_COLUMNS = ("feature_a", "feature_b", "feature_c", "verdict", "strength")
 _FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_rest", "used")
 _SCHEMA = "treeprobe.constraints/2"
-_VALIDATION_SCHEMA = "treeprobe.constraints.validation/2"
-_FOLD_COLUMNS = ("fold", "metric", "unconstrained", "constrained", "difference")
+_VALIDATION_SCHEMA = "treeprobe.constraints.validation/3"
+_FOLD_COLUMNS = ("fold", "metric", "unconstrained", "constrained", "difference", "unconstrained_rounds",
+                 "constrained_rounds")
+# Early stopping of every validation fit. The budget is 8x the model's rounds (at least 200) so that a
+# variant needing more rounds than the model had can find them; patience of 50 rounds and an 80/20
+# inner split are common practice, not taken from a source.
+_ROUND_BUDGET_FACTOR = 8
+_MIN_ROUND_BUDGET = 200
+_PATIENCE = 50
+_INNER_FRACTION = 0.8
+# Forbidden pairs named in a note when the groups measurably hurt.
+_PAIRS_NAMED = 5
 # Where each library's snippet puts the groups: the estimator class by task, and its keyword.
 _SNIPPET_LIBRARIES = (*LIBRARIES, "sklearn")
 _ESTIMATORS = {
@@ -413,15 +424,18 @@ class ConstraintSuggestion:
             task = REGRESSION
         return "regression" if task == REGRESSION else "classification"
 
-    def python_snippet(self, library: str | None = None) -> str:
+    def python_snippet(self, library: str | None = None, *, num_boost_round: int | None = None) -> str:
         """Python lines to paste into a training script: the groups in ``library``'s accepted form.
 
         ``library`` is "xgboost", "lightgbm" or "sklearn" (scikit-learn's
         ``HistGradientBoosting*``, keyword ``interaction_cst``); default the
         model's own library. The estimator class (regressor, classifier or
-        ranker) follows the model's objective.
+        ranker) follows the model's objective. ``num_boost_round`` (e.g.
+        :attr:`ValidationResult.recommended_rounds`) adds a line with the
+        round count the constrained model needed under early stopping.
         """
         library = check_choice("library", self.library if library is None else library, _SNIPPET_LIBRARIES)
+        num_boost_round = check_int("num_boost_round", num_boost_round, low=1, allow_none=True)
         estimator = _ESTIMATORS[library][self._task()]
         legend = [f"#   group {i}: {', '.join(group)}" for i, group in enumerate(self.groups)]
         if self.unused:
@@ -447,6 +461,10 @@ class ConstraintSuggestion:
                 'params["interaction_constraints"] = interaction_constraints  # lightgbm.train(params, train_set, ...)',
                 f"# or: {estimator}(..., interaction_constraints=interaction_constraints)",
             ]
+        if num_boost_round is not None:
+            keyword = "max_iter" if library == "sklearn" else "num_boost_round"
+            body.append(f"{keyword} = {num_boost_round}  # median best round count of the constrained fits "
+                        "(early stopping, treeprobe.validate_constraints)")
         return "\n".join(header + body) + "\n"
 
 
@@ -690,6 +708,20 @@ def _t_quantile(degrees: int) -> float:
     return float(student_t.ppf(0.975, degrees))
 
 
+def _corrected_interval(differences: np.ndarray, test_to_train: float) -> tuple[float, float]:
+    """95% interval of the mean paired difference by the corrected resampled t-test (Nadeau and Bengio 2003).
+
+    ``mean +/- t(0.975, K - 1) * sqrt((1/K + n_test/n_train) * sd^2)``, where
+    ``sd^2`` is the sample variance of the K fold differences. The naive
+    paired interval uses ``sd^2 / K``; the added ``n_test/n_train`` accounts
+    for the overlap of the training parts.
+    """
+    k = len(differences)
+    mean, variance = float(differences.mean()), float(differences.var(ddof=1))
+    half = _t_quantile(k - 1) * math.sqrt((1.0 / k + test_to_train) * variance)
+    return mean - half, mean + half
+
+
 @dataclass(frozen=True, eq=False)
 class ValidationResult:
     """Cross-validated cost of interaction constraints, and a check of the constrained refit.
@@ -699,21 +731,32 @@ class ValidationResult:
     folds : DataFrame
         One row per (fold, metric): ``fold`` (1..K), ``metric`` ("rmse",
         "log_loss" or "auc"), ``unconstrained``, ``constrained`` (held-out
-        scores) and ``difference`` = constrained - unconstrained.
+        scores), ``difference`` = constrained - unconstrained, and
+        ``unconstrained_rounds``, ``constrained_rounds`` (each variant's best
+        round count under early stopping in that fold).
     summary : dict
         Per metric (key = metric name): ``unconstrained_mean``,
         ``constrained_mean``, ``difference_mean``, ``difference_sd`` (sample
         standard deviation over folds), ``difference_low`` and
-        ``difference_high`` (95% t-interval of the mean paired difference),
-        ``relative_change`` (``difference_mean / unconstrained_mean``); plus
-        ``library``, ``objective``, ``task``, ``num_boost_round``, ``params``,
-        ``groups``, ``n_folds``, ``n_rows``, ``stray_paths`` and ``notes``.
+        ``difference_high`` (95% interval of the mean paired difference by the
+        corrected resampled t-test), ``relative_change`` (``difference_mean /
+        unconstrained_mean``); plus ``library``, ``objective``, ``task``,
+        ``num_boost_round`` (the model's), ``max_rounds``, ``patience``,
+        ``inner_fraction`` (early stopping), ``recommended_rounds``,
+        ``variance_factor`` (``1/K + n_test/n_train``), ``params``,
+        ``groups``, ``n_folds``, ``n_rows``, ``stray_paths`` and ``notes``
+        (the first note says whether the groups help, hurt, or make no clear
+        difference).
     cross_group_pairs : list of (str, str)
         Pairs that share a path of the constrained refit (all data) but no
         group. Empty when the library enforced the groups.
     stray_paths : list of list of str
         Feature sets of refit paths contained in no single group (catches a
         path holding three features whose pairs each share some group).
+    recommended_rounds : int
+        Median best round count of the constrained variant over the folds:
+        the ``num_boost_round`` to train the constrained model with
+        (:meth:`ConstraintSuggestion.python_snippet` prints it).
 
     Results compare by value (``folds`` with :meth:`pandas.DataFrame.equals`).
     """
@@ -722,20 +765,24 @@ class ValidationResult:
     summary: dict
     cross_group_pairs: list[tuple[str, str]]
     stray_paths: list[list[str]]
+    recommended_rounds: int = 0
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, ValidationResult):
             return NotImplemented
         return (self.folds.equals(other.folds) and self.summary == other.summary
-                and self.cross_group_pairs == other.cross_group_pairs and self.stray_paths == other.stray_paths)
+                and self.cross_group_pairs == other.cross_group_pairs and self.stray_paths == other.stray_paths
+                and self.recommended_rounds == other.recommended_rounds)
 
     __hash__ = None  # type: ignore[assignment]
 
     def to_dict(self) -> dict:
-        """JSON-ready dict: ``schema``, ``limits``, ``folds`` (rows), ``summary``, ``cross_group_pairs``, ``stray_paths``."""
+        """JSON-ready dict: ``schema``, ``limits``, ``folds`` (rows), ``summary``, ``cross_group_pairs``,
+        ``stray_paths``, ``recommended_rounds``."""
         return to_jsonable({
             "schema": _VALIDATION_SCHEMA, "limits": LIMITS, "folds": self.folds, "summary": self.summary,
             "cross_group_pairs": [list(p) for p in self.cross_group_pairs], "stray_paths": self.stray_paths,
+            "recommended_rounds": self.recommended_rounds,
         })
 
 
@@ -770,45 +817,101 @@ def _class_count(setup: dict, target: np.ndarray) -> int:
     return int(setup["params"]["num_class"])
 
 
+def _round_budget(setup: dict) -> int:
+    return max(_ROUND_BUDGET_FACTOR * setup["rounds"], _MIN_ROUND_BUDGET)
+
+
+def _variant_scores(setup: dict, matrix: np.ndarray, target: np.ndarray, columns: tuple[str, ...],
+                    chosen: list[list[int]] | None, train: np.ndarray, test: np.ndarray, *, n_classes: int,
+                    seed: int) -> tuple[dict[str, float], int]:
+    """Held-out scores of one variant, early-stopped on an inner split of the training part, and its best rounds."""
+    model, best_rounds = fit_early_stopped(
+        setup["library"], setup["module"], setup["params"], matrix[train], target[train],
+        max_rounds=_round_budget(setup), patience=_PATIENCE, inner_fraction=_INNER_FRACTION, seed=seed,
+        groups=chosen, columns=columns, stratify=setup["task"] != REGRESSION)
+    predicted = predict_model(setup["library"], setup["module"], model, matrix[test], columns, setup["objective"])
+    return _scores(setup["task"], target[test], predicted, n_classes), best_rounds
+
+
 def _fold_scores(setup: dict, matrix: np.ndarray, target: np.ndarray, columns: tuple[str, ...],
                  groups: list[list[int]], *, folds: int, n_classes: int, random_state: int,
-                 progress: bool | None) -> pd.DataFrame:
-    """Held-out scores of the unconstrained and the constrained fit on each fold (numbered 1..K)."""
+                 progress: bool | None) -> tuple[pd.DataFrame, float]:
+    """Held-out scores and best rounds of both variants on each fold (numbered 1..K), and mean n_test / n_train."""
     task = setup["task"]
     splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
-    fit_args = (setup["library"], setup["module"], setup["params"])
-    rows = []
+    rows, ratios = [], []
     with progress_bar(folds, "constraint folds", enabled=progress) as bar:
         splits = splitter.split(matrix, target.astype(int) if task != REGRESSION else None)
         for fold, (train, test) in enumerate(splits, start=1):
-            scores = {}
-            for label, chosen in (("unconstrained", None), ("constrained", groups)):
-                fitted = fit_model(*fit_args, matrix[train], target[train], setup["rounds"], chosen, columns)
-                predicted = predict_model(setup["library"], setup["module"], fitted, matrix[test], columns,
-                                          setup["objective"])
-                scores[label] = _scores(task, target[test], predicted, n_classes)
-            for metric in scores["unconstrained"]:
-                free, bound = scores["unconstrained"][metric], scores["constrained"][metric]
-                rows.append({"fold": fold, "metric": metric, "unconstrained": free, "constrained": bound,
-                             "difference": bound - free})
+            ratios.append(len(test) / len(train))
+            # Both variants share the inner split, so they differ by the groups only.
+            free, free_rounds = _variant_scores(setup, matrix, target, columns, None, train, test,
+                                                n_classes=n_classes, seed=random_state + fold)
+            bound, bound_rounds = _variant_scores(setup, matrix, target, columns, groups, train, test,
+                                                  n_classes=n_classes, seed=random_state + fold)
+            rows += [{"fold": fold, "metric": metric, "unconstrained": free[metric], "constrained": bound[metric],
+                      "difference": bound[metric] - free[metric], "unconstrained_rounds": free_rounds,
+                      "constrained_rounds": bound_rounds} for metric in free]
             bar.update()
-    return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS))
+    return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS)), float(np.mean(ratios))
 
 
-def _paired_summary(table: pd.DataFrame) -> dict[str, dict[str, float]]:
-    """Per metric: means, the mean paired difference, its sd and 95% t-interval, and the relative change."""
+def _budget_notes(per_fold: pd.DataFrame, budget: int) -> list[str]:
+    """A note per variant whose best round count reached the budget in some fold (it may need more rounds)."""
+    notes = []
+    for label in ("unconstrained", "constrained"):
+        capped = int((per_fold[f"{label}_rounds"] >= budget).sum())
+        if capped:
+            notes.append(f"The {label} variant was still improving at the round budget ({budget}) in {capped} "
+                         "fold(s); its loss may be overstated.")
+    return notes
+
+
+def _paired_summary(table: pd.DataFrame, test_to_train: float) -> dict[str, dict[str, float]]:
+    """Per metric: means, the mean paired difference, its sd and corrected 95% interval, and the relative change."""
     summary = {}
     for metric, part in table.groupby("metric", sort=False):
         difference = part["difference"].to_numpy()
-        mean, sd = float(difference.mean()), float(difference.std(ddof=1))
-        half = _t_quantile(len(difference) - 1) * sd / math.sqrt(len(difference))
+        low, high = _corrected_interval(difference, test_to_train)
         free_mean = float(part["unconstrained"].mean())
+        mean = float(difference.mean())
         summary[str(metric)] = {
             "unconstrained_mean": free_mean, "constrained_mean": float(part["constrained"].mean()),
-            "difference_mean": mean, "difference_sd": sd, "difference_low": mean - half, "difference_high": mean + half,
-            "relative_change": mean / free_mean if free_mean != 0 else math.nan,
+            "difference_mean": mean, "difference_sd": float(difference.std(ddof=1)), "difference_low": low,
+            "difference_high": high, "relative_change": mean / free_mean if free_mean != 0 else math.nan,
         }
     return summary
+
+
+def _forbidden_pairs(groups: list[list[int]], columns: tuple[str, ...], triage_result: Any) -> list[tuple[str, str]]:
+    """Pairs that share no group, strongest first by the triage's ``strength`` when a triage result is given."""
+    within = {pair for group in groups for pair in combinations(sorted(group), 2)}
+    forbidden = [(columns[a], columns[b]) for a, b in combinations(range(len(columns)), 2) if (a, b) not in within]
+    if triage_result is None:
+        return forbidden
+    pairs = _frame_of(triage_result, "pairs", _PAIR_COLUMNS)
+    strength = dict(zip(map(frozenset, zip(pairs["feature_a"].astype(str), pairs["feature_b"].astype(str),
+                                           strict=True)), _check_strength(pairs, "pairs"), strict=True))
+    return sorted(forbidden, key=lambda pair: -strength.get(frozenset(pair), 0.0))
+
+
+def _outcome_note(summary: dict, groups: list[list[int]], columns: tuple[str, ...], triage_result: Any) -> str:
+    """One sentence: whether the groups help, hurt or make no clear difference on the loss (rmse or log-loss)."""
+    metric = "rmse" if "rmse" in summary else "log_loss"
+    part = summary[metric]
+    interval = (f"mean {metric} difference constrained - unconstrained {part['difference_mean']:+.4g}, 95% corrected "
+                f"interval [{part['difference_low']:+.4g}, {part['difference_high']:+.4g}], "
+                f"relative change {part['relative_change']:+.1%}")
+    if part["difference_high"] < 0:
+        return f"The groups help: the constrained model's held-out {metric} is lower ({interval})."
+    if part["difference_low"] <= 0:
+        return f"No clear difference between the constrained and the unconstrained model ({interval})."
+    forbidden = _forbidden_pairs(groups, columns, triage_result)
+    ranked = "strongest by triage strength" if triage_result is not None else "in feature order"
+    named = ", ".join(f"({a}, {b})" for a, b in forbidden[:_PAIRS_NAMED])
+    more = f" and {len(forbidden) - _PAIRS_NAMED} more" if len(forbidden) > _PAIRS_NAMED else ""
+    return (f"The groups measurably hurt: the constrained model's held-out {metric} is higher ({interval}). "
+            f"The groups forbid {len(forbidden)} pair(s), {ranked}: {named}{more}; the cost most likely lies there.")
 
 
 def validate_constraints(
@@ -824,6 +927,7 @@ def validate_constraints(
     random_state: int = 0,
     n_jobs: int = 1,
     progress: bool | None = None,
+    triage_result: Any = None,
 ) -> ValidationResult:
     """Cross-validated loss of the same model with and without interaction constraints.
 
@@ -852,13 +956,17 @@ def validate_constraints(
         ``max_depth`` for a saved XGBoost model, which does not store them).
         ``interaction_constraints`` is not allowed here (pass ``groups``).
     num_boost_round : int, optional
-        Boosting rounds; default the model's (trees / outputs / parallel trees).
+        The model's boosting rounds; default read from the model (trees /
+        outputs / parallel trees). Sets the early-stopping budget.
     random_state : int, default 0
         Seed of the fold split and of the libraries' sampling.
     n_jobs : int, default 1
         Threads per fit.
     progress : bool, optional
         Progress bar over folds on standard error; default: only on a terminal.
+    triage_result : triage result, optional
+        When given, its ``pairs`` (``feature_a``, ``feature_b``, ``strength``)
+        rank the forbidden pairs named when the groups measurably hurt.
 
     Returns
     -------
@@ -885,13 +993,33 @@ def validate_constraints(
     found. The intercept (``base_score``) is left for each fit to estimate
     from its own training folds rather than copied from the full-data model.
 
+    Each variant is compared at its own best round count: a model with
+    many groups needs more rounds than the unconstrained one. In each outer
+    fold, each variant (unconstrained, constrained) is fitted on a seeded
+    80/20 inner split of the training part (:func:`treeprobe.refit.fit_early_stopped`;
+    both variants share the split), with early stopping on the 20% after
+    50 rounds without improvement of the library's default metric, up to
+    ``max(8 * num_boost_round, 200)`` rounds. That inner-split model, cut at
+    its best round count, is scored on the outer fold (no refit on the full
+    training part). The constrained refit on all rows, walked for
+    cross-group paths, uses ``recommended_rounds`` (median best rounds of the
+    constrained variant).
+
     Per fold ``k`` with held-out score ``s``: ``d_k = s_constrained -
-    s_unconstrained``; reported are the mean ``d``, its sample standard
-    deviation ``sd`` and the interval ``d +/- t(0.975, K - 1) sd / sqrt(K)``.
-    Fold scores share training rows, so the interval is a rough guide that
-    tends to be too narrow [1]_ (common practice nonetheless). Then a
-    constrained refit on all rows is walked (:func:`treeprobe.cooccurrence.structure`)
-    to list pairs and path sets that no group contains.
+    s_unconstrained``, mean ``d`` and sample variance ``sd^2`` over the K
+    folds. Fold scores share training rows, so the naive paired interval
+    ``d +/- t(0.975, K - 1) sd / sqrt(K)`` is too narrow. Reported is the
+    corrected resampled t-test of Nadeau and Bengio [1]_ (their corrected
+    variance estimate, section 4, applied to K-fold differences):
+
+    ``d +/- t(0.975, K - 1) * sqrt((1/K + n_test/n_train) * sd^2)``
+
+    with ``n_test/n_train`` the mean ratio of outer-fold sizes (about
+    ``1/(K - 1)``). The first note reads "the groups help" only when the
+    whole interval lies below zero (lower loss), "no clear difference" when
+    it spans zero, and "the groups measurably hurt" (naming the forbidden
+    pairs) when it lies above zero. The interval is still approximate: the
+    correction is a heuristic under the assumption of its paper, not exact.
 
     References
     ----------
@@ -908,6 +1036,8 @@ def validate_constraints(
         raise ParameterError(f"params must be a dict of training parameters, got {type(params).__name__}")
     if params and "interaction_constraints" in params:
         raise ParameterError("params must not hold interaction_constraints; pass the groups as groups=")
+    if triage_result is not None:
+        _frame_of(triage_result, "pairs", _PAIR_COLUMNS)
     source = model_or_params if isinstance(model_or_params, dict) else load_model(model_or_params)
     setup = _fold_setup(source, live_training_params(model_or_params), library=library, params=params,
                         num_boost_round=num_boost_round, n_jobs=n_jobs, random_state=random_state)
@@ -916,20 +1046,26 @@ def validate_constraints(
     n_classes = _class_count(setup, target)
     if matrix.shape[0] < 2 * folds:
         raise DataError(f"X has {matrix.shape[0]} rows, too few for {folds} folds")
-    table = _fold_scores(setup, matrix, target, columns, index_groups, folds=folds, n_classes=n_classes,
-                         random_state=random_state, progress=progress)
-    refit = load_model(fit_model(setup["library"], setup["module"], setup["params"], matrix, target, setup["rounds"],
+    table, test_to_train = _fold_scores(setup, matrix, target, columns, index_groups, folds=folds,
+                                        n_classes=n_classes, random_state=random_state, progress=progress)
+    per_fold = table.drop_duplicates("fold")
+    recommended = int(round(float(np.median(per_fold["constrained_rounds"]))))
+    refit = load_model(fit_model(setup["library"], setup["module"], setup["params"], matrix, target, recommended,
                                  index_groups, columns))
     crossing, stray = _cross_group(refit, index_groups, columns)
-    notes = setup["notes"]
+    summary: dict[str, Any] = _paired_summary(table, test_to_train)
+    notes = [_outcome_note(summary, index_groups, columns, triage_result), *setup["notes"],
+             *_budget_notes(per_fold, _round_budget(setup))]
     if crossing or stray:
         notes.append(f"The constrained refit has {len(stray)} path feature set(s) outside every group; "
                      f"pairs crossing groups: {', '.join(f'({a}, {b})' for a, b in crossing) or 'none'}.")
-    summary: dict[str, Any] = _paired_summary(table)
     summary.update({
         "library": setup["library"], "objective": setup["objective"], "task": setup["task"],
-        "num_boost_round": setup["rounds"], "params": dict(setup["params"]),
+        "num_boost_round": setup["rounds"], "max_rounds": _round_budget(setup), "patience": _PATIENCE,
+        "inner_fraction": _INNER_FRACTION, "recommended_rounds": recommended,
+        "variance_factor": 1.0 / folds + test_to_train, "params": dict(setup["params"]),
         "groups": [[columns[j] for j in g] for g in index_groups], "n_folds": folds, "n_rows": int(matrix.shape[0]),
         "stray_paths": len(stray), "notes": notes,
     })
-    return ValidationResult(folds=table, summary=summary, cross_group_pairs=crossing, stray_paths=stray)
+    return ValidationResult(folds=table, summary=summary, cross_group_pairs=crossing, stray_paths=stray,
+                            recommended_rounds=recommended)

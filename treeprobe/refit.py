@@ -244,3 +244,58 @@ def predict_model(library: str, module: Any, model: Any, X: np.ndarray, columns:
         # logitraw predicts the margin; the scores need probabilities.
         return 1.0 / (1.0 + np.exp(-predicted)) if objective == "binary:logitraw" else predicted
     return model.predict(X)
+
+
+def _held_out_split(n_rows: int, inner_fraction: float, seed: int,
+                    labels: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Row indices of the inner training part and of the early-stopping hold-out (per class when labels are given)."""
+    rng = np.random.default_rng(seed)
+    strata = [np.arange(n_rows)] if labels is None else [np.flatnonzero(labels == c) for c in np.unique(labels)]
+    fit_parts, stop_parts = [], []
+    for rows in strata:
+        shuffled = rng.permutation(rows)
+        n_stop = min(max(1, round((1.0 - inner_fraction) * len(rows))), len(rows) - 1) if len(rows) > 1 else 0
+        stop_parts.append(shuffled[:n_stop])
+        fit_parts.append(shuffled[n_stop:])
+    return np.sort(np.concatenate(fit_parts)), np.sort(np.concatenate(stop_parts))
+
+
+def fit_early_stopped(library: str, module: Any, params: dict, X: np.ndarray, y: np.ndarray, *,
+                      max_rounds: int, patience: int, inner_fraction: float, seed: int,
+                      groups: list[list[int]] | None, columns: tuple[str, ...],
+                      stratify: bool = False) -> tuple[Any, int]:
+    """Fit on an inner split of ``(X, y)``, stop early on the rest; the model cut at its best round count.
+
+    A seeded split keeps ``inner_fraction`` of the rows for fitting and the
+    rest as the early-stopping hold-out (stratified by class when
+    ``stratify``). Boosting runs up to ``max_rounds`` and stops once the
+    library's default evaluation metric for the objective (e.g. RMSE,
+    log-loss) on the hold-out has not improved for ``patience`` rounds:
+    ``xgboost.train(..., evals, early_stopping_rounds)`` or LightGBM's
+    ``lightgbm.early_stopping`` callback.
+
+    Returns the model fitted on the inner split, predicting with its first
+    ``best_rounds`` rounds only (XGBoost: the booster sliced to those rounds;
+    LightGBM: ``predict`` uses ``best_iteration``), and ``best_rounds`` (1-based).
+    """
+    labels = y.astype(int) if stratify else None
+    fit_rows, stop_rows = _held_out_split(len(y), inner_fraction, seed, labels)
+    if library == "xgboost":
+        run = dict(params)
+        if groups is not None:
+            run["interaction_constraints"] = xgboost_constraint_text(groups)
+        fit_data = module.DMatrix(X[fit_rows], y[fit_rows], feature_names=list(columns))
+        stop_data = module.DMatrix(X[stop_rows], y[stop_rows], feature_names=list(columns))
+        booster = module.train(run, fit_data, num_boost_round=max_rounds, evals=[(stop_data, "early_stop")],
+                               early_stopping_rounds=patience, verbose_eval=False)
+        best_rounds = int(booster.best_iteration) + 1
+        return booster[:best_rounds], best_rounds
+    run = {**params, "verbosity": -1}
+    if groups is not None:
+        run["interaction_constraints"] = groups
+    fit_data = module.Dataset(X[fit_rows], y[fit_rows], feature_name=list(columns), params={"verbosity": -1})
+    stop_data = module.Dataset(X[stop_rows], y[stop_rows], reference=fit_data)
+    booster = module.train(run, fit_data, num_boost_round=max_rounds, valid_sets=[stop_data],
+                           callbacks=[module.early_stopping(patience, verbose=False)])
+    best_rounds = int(booster.best_iteration) if booster.best_iteration > 0 else booster.current_iteration()
+    return booster, best_rounds
