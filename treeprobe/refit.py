@@ -34,6 +34,7 @@ __all__ = [
     "task_of",
     "rounds_of",
     "live_training_params",
+    "params_from_xgboost_config",
     "Recipe",
     "recover_xgboost_step",
     "training_recipe",
@@ -105,6 +106,36 @@ def import_library(library: str) -> Any:
     return module
 
 
+def _plain_value(text: Any) -> Any:
+    """A configuration string as the number or boolean it spells (``"0.05"`` -> 0.05); other text unchanged."""
+    if not isinstance(text, str):
+        return text
+    try:
+        return json.loads(text)
+    except ValueError:
+        return text
+
+
+def params_from_xgboost_config(config: dict) -> dict:
+    """Training parameters in the JSON that XGBoost's ``Booster.save_config()`` writes (already parsed).
+
+    Reads ``learner.gradient_booster.tree_train_param`` (the tree keys in
+    ``_XGBOOST_TREE_KEYS``), its ``gbtree_train_param.tree_method`` and
+    ``learner.learner_train_param.objective``; numeric strings become numbers.
+    """
+    learner = config.get("learner", {}) if isinstance(config, dict) else {}
+    booster = learner.get("gradient_booster", {}) if isinstance(learner, dict) else {}
+    tree = booster.get("tree_train_param", {}) if isinstance(booster, dict) else {}
+    params = {key: _plain_value(tree[key]) for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
+    method = booster.get("gbtree_train_param", {}).get("tree_method") if isinstance(booster, dict) else None
+    if method and method != "auto":
+        params["tree_method"] = method
+    objective = learner.get("learner_train_param", {}).get("objective") if isinstance(learner, dict) else None
+    if objective:
+        params["objective"] = objective
+    return params
+
+
 def live_training_params(model: Any) -> dict:
     """Training parameters a live XGBoost booster or wrapper reports in its configuration; ``{}`` for anything else.
 
@@ -117,15 +148,10 @@ def live_training_params(model: Any) -> dict:
         return {}
     booster = model.get_booster() if hasattr(model, "get_booster") else model
     try:
-        config = json.loads(booster.save_config())["learner"]
+        config = json.loads(booster.save_config())
     except Exception:  # noqa: BLE001 - a booster without a readable configuration gives no extra parameters
         return {}
-    tree = config.get("gradient_booster", {}).get("tree_train_param", {})
-    params = {key: tree[key] for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
-    method = config.get("gradient_booster", {}).get("gbtree_train_param", {}).get("tree_method")
-    if method and method != "auto":
-        params["tree_method"] = method
-    return params
+    return params_from_xgboost_config(config)
 
 
 def task_of(library: str, objective: str) -> str:
