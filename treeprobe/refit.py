@@ -106,27 +106,17 @@ def import_library(library: str) -> Any:
     return module
 
 
-def _plain_value(text: Any) -> Any:
-    """A configuration string as the number or boolean it spells (``"0.05"`` -> 0.05); other text unchanged."""
-    if not isinstance(text, str):
-        return text
-    try:
-        return json.loads(text)
-    except ValueError:
-        return text
-
-
 def params_from_xgboost_config(config: dict) -> dict:
     """Training parameters in the JSON that XGBoost's ``Booster.save_config()`` writes (already parsed).
 
     Reads ``learner.gradient_booster.tree_train_param`` (the tree keys in
     ``_XGBOOST_TREE_KEYS``), its ``gbtree_train_param.tree_method`` and
-    ``learner.learner_train_param.objective``; numeric strings become numbers.
+    ``learner.learner_train_param.objective``; values stay the strings XGBoost wrote.
     """
     learner = config.get("learner", {}) if isinstance(config, dict) else {}
     booster = learner.get("gradient_booster", {}) if isinstance(learner, dict) else {}
     tree = booster.get("tree_train_param", {}) if isinstance(booster, dict) else {}
-    params = {key: _plain_value(tree[key]) for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
+    params = {key: tree[key] for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
     method = booster.get("gbtree_train_param", {}).get("tree_method") if isinstance(booster, dict) else None
     if method and method != "auto":
         params["tree_method"] = method
