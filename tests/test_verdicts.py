@@ -219,34 +219,10 @@ def test_tables_have_fixed_columns_and_results_compare(friedman1):
 
 
 # ----------------------------------------------- refits with a recovered recipe
-def _planted_diabetes(folder):
-    """scikit-learn's diabetes data (Efron, Hastie, Johnstone and Tibshirani 2004, ``load_diabetes``) with two
-    planted pairs: target = progression + 25 z(bmi) z(bp) + 12 z(age) z(s6), z standardised."""
-    from sklearn.datasets import load_diabetes
-
-    X = load_diabetes(as_frame=True, scaled=False).data
-
-    def z(column):
-        return (X[column] - X[column].mean()) / X[column].std()
-
-    target = load_diabetes(as_frame=True, scaled=False).target + 25 * z("bmi") * z("bp") + 12 * z("age") * z("s6")
-    model = xgb.XGBRegressor(n_estimators=200, max_depth=4, learning_rate=0.05, n_jobs=1, random_state=0)
-    path = folder / "model.json"
-    model.fit(X, target).save_model(path)
-    data = X.assign(target=target)
-    data.to_csv(folder / "planted.csv", index=False)
-    return path, data
-
-
-@pytest.fixture(scope="module")
-def planted_diabetes(tmp_path_factory):
-    return _planted_diabetes(tmp_path_factory.mktemp("planted"))
-
-
 def test_planted_diabetes_pairs_pass_the_noise_floor_of_a_saved_json(planted_diabetes):
     # Refits at XGBoost's default eta 0.3 overfit and lift the floor above both planted pairs (measured: null h
     # 22.1 vs h_low 19.1 for bmi:bp with 10 refits and 20 resamples); the eta recovered from the trees (0.05) puts it below.
-    path, data = planted_diabetes
+    path, data, _ = planted_diabetes
     result = triage(path, data, "target", sample=None, resamples=6, null_refits=8)
     verdicts = _verdicts(result)
     assert verdicts[frozenset(("bmi", "bp"))] == "interaction"
@@ -260,7 +236,7 @@ def test_planted_diabetes_pairs_pass_the_noise_floor_of_a_saved_json(planted_dia
 
 
 def test_given_params_reach_the_refits(planted_diabetes):
-    path, data = planted_diabetes
+    path, data, _ = planted_diabetes
     result = triage(path, data, "target", sample=200, resamples=0, null_refits=1, params={"eta": 0.3, "max_depth": 2})
     params = result.facts["refit_recipe"]["params"]
     assert params["eta"] == {"value": 0.3, "origin": "given"} and params["max_depth"] == {"value": 2, "origin": "given"}
@@ -279,7 +255,7 @@ def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkey
         return real(library, module, params, *rest)
 
     monkeypatch.setattr(verdicts, "fit_model", spy)
-    path, data = planted_diabetes
+    path, data, _ = planted_diabetes
     # The threading backend runs the workers in this process, so the spy sees their fits.
     with joblib.parallel_backend("threading"):
         result = triage(path, data, "target", sample=150, resamples=0, null_refits=3, n_jobs=2)
