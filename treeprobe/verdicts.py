@@ -595,7 +595,7 @@ def triage(
         ``dependent``; 0.7 as "strong correlation" is common practice.
     params : dict, optional
         Training parameters for the refits, overriding those read from the model
-        (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_setup`).
+        (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_recipe`).
     output : int, optional
         Output (class) of a multiclass model, 0-based; default the first output.
     include_absent : bool, default True
