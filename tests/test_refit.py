@@ -108,3 +108,16 @@ def test_thread_counts_per_fit():
     assert with_threads(recipe, 1)["num_threads"] == 1
     assert with_threads(recipe, 0)["num_threads"] >= 1
     assert "nthread" in with_threads(Recipe("xgboost", {}, 5, {"rounds": "given"}), 1)
+
+
+def test_lightgbm_text_parameters_are_stored_origin():
+    # Reference: the parameters LightGBM itself wrote into the model text's parameters section.
+    from pathlib import Path
+
+    pytest.importorskip("lightgbm")
+    graph = treeprobe.load_model(Path(__file__).resolve().parent.parent / "fixtures" / "lightgbm" / "binary_late.txt")
+    recipe = training_recipe(graph, params={"num_leaves": 7})
+    stored = graph.provenance.stored_params
+    assert recipe.params["learning_rate"] == stored["learning_rate"] and recipe.origins["learning_rate"] == "stored"
+    assert recipe.params["num_leaves"] == 7 and recipe.origins["num_leaves"] == "given"
+    assert "num_leaves 7 (given)" in recipe.describe()
