@@ -309,3 +309,62 @@ def test_nothing_the_cli_prints_uses_retired_names(saved_regressor):
               run("measure", path, "--data", data, "--sample", "100", "--format", "json").stdout]
     for text in texts:
         assert not OLD_NAMES.search(text), OLD_NAMES.search(text).group(0)
+
+
+# ------------------------------------------------------- refit recipe options
+def test_triage_planted_diabetes_with_no_parameters(planted_diabetes):
+    # Reference: the two pairs planted in scikit-learn's diabetes data (see conftest); the saved JSON keeps no
+    # learning rate, so the refits run on the recipe recovered from the trees.
+    path, _, csv = planted_diabetes
+    payload = json.loads(run("triage", path, "--data", csv, "--target", "target", "--sample", "0", "--resamples", "6",
+                             "--null-refits", "8", "--format", "json", "--quiet").stdout)
+    verdicts = {(r["feature_a"], r["feature_b"]): r["verdict"] for r in payload["pairs"]}
+    assert verdicts[("bmi", "bp")] == verdicts[("age", "s6")] == "interaction"
+    params = payload["facts"]["refit_recipe"]["params"]
+    assert params["eta"]["origin"] == "recovered" and params["eta"]["value"] == pytest.approx(0.05, rel=1e-5)
+    table = _flat(run("triage", path, "--data", csv, "--target", "target", "--sample", "150", "--resamples", "0",
+                      "--null-refits", "1", "--quiet").stdout)
+    assert "refit recipe (xgboost):" in table and "eta 0.05 (recovered from the trees)" in table
+    assert "max_depth 4 (recovered from the trees)" in table and "200 rounds (from the tree count)" in table
+
+
+def test_param_options_and_params_file_reach_the_recipe(planted_diabetes, tmp_path):
+    path, _, csv = planted_diabetes
+    xgb = pytest.importorskip("xgboost")
+    booster = xgb.train({"eta": 0.15, "max_depth": 3, "lambda": 2.0}, xgb.DMatrix(np.ones((4, 2)), np.arange(4.0)), 1)
+    config = tmp_path / "config.json"
+    config.write_text(booster.save_config())
+    common = ("--data", csv, "--target", "target", "--sample", "100", "--resamples", "0", "--null-refits", "1",
+              "--format", "json", "--quiet")
+    params = json.loads(run("triage", path, *common, "--params", config, "--param", "max_depth=2",
+                            "--param", "grow_policy=lossguide").stdout)["facts"]["refit_recipe"]["params"]
+    assert params["eta"] == {"value": "0.150000006", "origin": "given"}
+    assert params["lambda"]["origin"] == "given" and "reg_lambda" not in params
+    assert params["max_depth"] == {"value": 2, "origin": "given"}
+    assert params["grow_policy"] == {"value": "lossguide", "origin": "given"}
+    plain = tmp_path / "plain.json"
+    plain.write_text(json.dumps({"learning_rate": 0.2}))
+    params = json.loads(run("triage", path, *common, "--params", plain).stdout)["facts"]["refit_recipe"]["params"]
+    assert params["learning_rate"] == {"value": 0.2, "origin": "given"} and "eta" not in params
+
+
+@pytest.mark.parametrize(
+    ("content", "message"),
+    [("[1, 2]", "expected a JSON object of training parameters, found a list"),
+     ("{oops", "not valid JSON"),
+     ('{"learner": {"objective": {}}}', "an XGBoost configuration without tree_train_param"),
+     (None, "cannot read the file")],
+)
+def test_bad_params_file_is_one_clear_error(planted_diabetes, tmp_path, content, message):
+    path, _, csv = planted_diabetes
+    file = tmp_path / "params.json"
+    if content is not None:
+        file.write_text(content)
+    proc = run("triage", path, "--data", csv, "--target", "target", "--params", file, "--quiet", check_code=1)
+    assert f"--params {file}" in proc.stderr and message in proc.stderr and "Traceback" not in proc.stderr
+
+
+@pytest.mark.parametrize("value", ["eta", "=0.1", "eta="])
+def test_bad_param_value_is_a_usage_error_before_reading(tmp_path, value):
+    proc = run("triage", tmp_path / "absent.json", "--data", tmp_path / "absent.csv", "--param", value, check_code=2)
+    assert "--param takes key=value" in proc.stderr and "Traceback" not in proc.stderr

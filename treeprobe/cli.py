@@ -50,6 +50,54 @@ def _check_sample(value: Any) -> int:
     return value
 
 
+def _parse_param_pairs(pairs: Sequence[str] | None) -> dict[str, Any]:
+    """``--param key=value`` options as a dict; values read as JSON when they parse (0.05, true, [1, 2]), else text."""
+    import json
+
+    params: dict[str, Any] = {}
+    for pair in pairs or ():
+        key, sep, text = pair.partition("=")
+        if not sep or not key.strip() or not text.strip():
+            raise ParameterError(f"--param takes key=value (for example --param eta=0.05), got {pair!r}")
+        try:
+            params[key.strip()] = json.loads(text)
+        except ValueError:
+            params[key.strip()] = text.strip()
+    return params
+
+
+def _read_params_file(path: str | None) -> dict[str, Any]:
+    """A --params file: a JSON object of training parameters, or the JSON of XGBoost's Booster.save_config()."""
+    import json
+
+    from .refit import params_from_xgboost_config
+
+    if path is None:
+        return {}
+    try:
+        with open(path, encoding="utf-8") as handle:
+            content = json.load(handle)
+    except OSError as exc:
+        raise TreeprobeError(f"--params {path}: cannot read the file ({exc.strerror})") from None
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise TreeprobeError(f"--params {path}: not valid JSON ({exc})") from None
+    if not isinstance(content, dict):
+        raise TreeprobeError(f"--params {path}: expected a JSON object of training parameters, found a "
+                             f"{type(content).__name__}")
+    if isinstance(content.get("learner"), dict):
+        params = params_from_xgboost_config(content)
+        if not params:
+            raise TreeprobeError(f"--params {path}: an XGBoost configuration without tree_train_param")
+        return params
+    return content
+
+
+def _training_params(args: argparse.Namespace) -> dict[str, Any] | None:
+    """Training parameters of the refits: the --params file, then --param options over it; None when neither."""
+    params = {**_read_params_file(getattr(args, "params_file", None)), **_parse_param_pairs(getattr(args, "param", None))}
+    return params or None
+
+
 # Option (argparse dest) -> its check; run on every option a command has, before any file is read.
 _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
     "top": lambda v: check_int("--top", v, low=1),
@@ -66,6 +114,7 @@ _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
     "min_strength": lambda v: check_float("--min-strength", v, low=0),
     "folds": lambda v: check_int("--folds", v, low=2),
     "top_pairs": lambda v: check_int("--top-pairs", v, low=0),
+    "param": _parse_param_pairs,
 }
 
 
@@ -328,6 +377,7 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
         min_effect=args.min_effect,
         max_dependence=args.max_dependence,
         output=args.class_index,
+        params=_training_params(args),
         random_state=args.seed,
         n_jobs=args.jobs,
         progress=False if args.quiet else None,
@@ -354,6 +404,8 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
     if len(result.triples):
         lines += ["", _table(result.triples[_TRIAGE_TRIPLE_COLUMNS], "Triples sharing a path", args.top)]
     lines += ["", _verdict_legend(result.rules, VERDICTS)]
+    if facts.get("refit_recipe_text"):
+        lines += [_wrap(facts["refit_recipe_text"])]
     lines += [_wrap(note) for note in facts.get("refit_notes", [])]
     lines += ["", _wrap(result.limits)]
     return lines
@@ -381,7 +433,8 @@ def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: An
     # A trusted pickle's live model knows its full training set-up; a file only what it stores.
     return validate_constraints(
         getattr(args, "model_object", None) or ens, data.drop(columns=[args.target]), data[args.target].to_numpy(),
-        groups, folds=args.folds, random_state=args.seed, n_jobs=args.jobs, progress=False if args.quiet else None,
+        groups, folds=args.folds, params=_training_params(args), random_state=args.seed, n_jobs=args.jobs,
+        progress=False if args.quiet else None,
     )
 
 
@@ -528,6 +581,12 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
                    help="smallest interaction size h as a share of the prediction spread (default 0.05)")
     p.add_argument("--max-dependence", type=float, default=0.7,
                    help="dependence from which a pair is 'dependent' (default 0.7)")
+    p.add_argument("--params", dest="params_file", metavar="FILE",
+                   help="training parameters for the refits: a JSON object, or the JSON of XGBoost's "
+                        "Booster.save_config(); they override what is read from the model")
+    p.add_argument("--param", action="append", metavar="KEY=VALUE",
+                   help="one training parameter for the refits (repeatable; value read as JSON when it parses, "
+                        "e.g. --param eta=0.05); overrides --params")
 
 
 def _inspect_options(p: argparse.ArgumentParser) -> None:

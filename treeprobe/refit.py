@@ -15,6 +15,8 @@ one gives :class:`~treeprobe.errors.MissingLibraryError`.
 from __future__ import annotations
 
 import json
+import os
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -32,6 +34,11 @@ __all__ = [
     "task_of",
     "rounds_of",
     "live_training_params",
+    "params_from_xgboost_config",
+    "Recipe",
+    "recover_xgboost_step",
+    "training_recipe",
+    "with_threads",
     "training_setup",
     "design_matrix",
     "fit_model",
@@ -64,6 +71,17 @@ _XGBOOST_TREE_KEYS = (
     "colsample_bylevel", "colsample_bynode", "max_bin", "grow_policy", "max_leaves", "max_delta_step",
     "sampling_method", "monotone_constraints", "max_cat_to_onehot", "max_cat_threshold",
 )
+# XGBoost's documented defaults (eta 0.3, lambda 1; from memory of its parameter page) used when recovery fails.
+_XGBOOST_DEFAULTS = {"eta": 0.3, "lambda": 1.0}
+# Recovery gives up when the per-node step sizes spread more than this (median absolute deviation of log eta).
+_MAX_LOG_SPREAD = 1e-3
+_MIN_RECOVERY_NODES = 5
+# Native XGBoost parameter aliases: a given alias replaces whatever the model gave under another name.
+_XGBOOST_ALIASES = (frozenset({"eta", "learning_rate"}), frozenset({"lambda", "reg_lambda"}),
+                    frozenset({"alpha", "reg_alpha"}), frozenset({"gamma", "min_split_loss"}))
+ORIGINS = ("stored", "given", "recovered", "default")
+_ORIGIN_TEXT = {"stored": "stored in the model", "given": "given", "recovered": "recovered from the trees",
+                "default": "library default"}
 REGRESSION = "regression"
 BINARY = "binary"
 MULTICLASS = "multiclass"
@@ -88,6 +106,26 @@ def import_library(library: str) -> Any:
     return module
 
 
+def params_from_xgboost_config(config: dict) -> dict:
+    """Training parameters in the JSON that XGBoost's ``Booster.save_config()`` writes (already parsed).
+
+    Reads ``learner.gradient_booster.tree_train_param`` (the tree keys in
+    ``_XGBOOST_TREE_KEYS``), its ``gbtree_train_param.tree_method`` and
+    ``learner.learner_train_param.objective``; values stay the strings XGBoost wrote.
+    """
+    learner = config.get("learner", {}) if isinstance(config, dict) else {}
+    booster = learner.get("gradient_booster", {}) if isinstance(learner, dict) else {}
+    tree = booster.get("tree_train_param", {}) if isinstance(booster, dict) else {}
+    params = {key: tree[key] for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
+    method = booster.get("gbtree_train_param", {}).get("tree_method") if isinstance(booster, dict) else None
+    if method and method != "auto":
+        params["tree_method"] = method
+    objective = learner.get("learner_train_param", {}).get("objective") if isinstance(learner, dict) else None
+    if objective:
+        params["objective"] = objective
+    return params
+
+
 def live_training_params(model: Any) -> dict:
     """Training parameters a live XGBoost booster or wrapper reports in its configuration; ``{}`` for anything else.
 
@@ -100,15 +138,10 @@ def live_training_params(model: Any) -> dict:
         return {}
     booster = model.get_booster() if hasattr(model, "get_booster") else model
     try:
-        config = json.loads(booster.save_config())["learner"]
+        config = json.loads(booster.save_config())
     except Exception:  # noqa: BLE001 - a booster without a readable configuration gives no extra parameters
         return {}
-    tree = config.get("gradient_booster", {}).get("tree_train_param", {})
-    params = {key: tree[key] for key in _XGBOOST_TREE_KEYS if key in tree and tree[key] not in ("", "()")}
-    method = config.get("gradient_booster", {}).get("gbtree_train_param", {}).get("tree_method")
-    if method and method != "auto":
-        params["tree_method"] = method
-    return params
+    return params_from_xgboost_config(config)
 
 
 def task_of(library: str, objective: str) -> str:
@@ -136,25 +169,177 @@ def rounds_of(ensemble: ForestGraph) -> int:
     return max(1, ensemble.n_trees // ((ensemble.n_outputs if per_class else 1) * parallel))
 
 
-def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,  # noqa: C901
-                   num_boost_round: int | None = None,
-                   live_params: dict | None = None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
-    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes.
+def _last_splits(ensemble: ForestGraph) -> tuple[np.ndarray, ...]:
+    """Leaf values, hessian sums (cover) and gains of every split whose two children are leaves."""
+    inner = np.flatnonzero(ensemble.feature >= 0)
+    left, right = ensemble.left[inner], ensemble.right[inner]
+    both = (ensemble.feature[left] < 0) & (ensemble.feature[right] < 0)
+    node, left, right = inner[both], left[both], right[both]
+    column = np.maximum(ensemble.output_of_tree[ensemble.tree[node]], 0) if ensemble.value.shape[1] > 1 else 0
+    w_left, w_right = ensemble.value[left, column], ensemble.value[right, column]
+    h_left, h_right, gain = ensemble.cover[left], ensemble.cover[right], ensemble.gain[node]
+    usable = (gain > 0) & (h_left > 0) & (h_right > 0) & (w_left != w_right)
+    return w_left[usable], w_right[usable], h_left[usable], h_right[usable], gain[usable]
 
-    ``source`` is the loaded model graph, or a dict of native training
-    parameters (then ``library`` and ``num_boost_round`` are required).
-    ``live_params`` are those of :func:`live_training_params`; ``params``
-    override everything read from the model.
+
+def _log_steps(splits: tuple[np.ndarray, ...], lambdas: np.ndarray) -> np.ndarray:
+    """log eta of every split (columns) for every candidate lambda (rows), from eta² gain = f(g, H, lambda)."""
+    w_left, w_right, h_left, h_right, gain = (a[None, :] for a in splits)
+    lam = lambdas[:, None]
+    g_left, g_right = w_left * (h_left + lam), w_right * (h_right + lam)
+    scaled = g_left**2 / (h_left + lam) + g_right**2 / (h_right + lam) - (g_left + g_right) ** 2 / (h_left + h_right + lam)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return 0.5 * np.log(np.abs(scaled) / gain)
+
+
+def _spread(log_steps: np.ndarray) -> np.ndarray:
+    centre = np.median(log_steps, axis=1, keepdims=True)
+    spread = np.median(np.abs(log_steps - centre), axis=1)
+    return np.where(np.isfinite(spread), spread, np.inf)
+
+
+def recover_xgboost_step(ensemble: ForestGraph, *, max_nodes: int = 4000) -> tuple[float, float, float, int]:
+    """Learning rate eta and L2 penalty lambda of an XGBoost model, read back from its trees.
+
+    Parameters
+    ----------
+    ensemble : ForestGraph
+        A loaded XGBoost model (leaf ``value`` with the learning rate applied,
+        ``cover`` = hessian sums, ``gain`` = loss change of each split).
+    max_nodes : int, default 4000
+        Splits used at most (the first ones), to bound the cost.
+
+    Returns
+    -------
+    eta, reg_lambda, spread, n_splits : float, float, float, int
+        ``spread`` is the median absolute deviation of log eta over the splits
+        at the chosen lambda; a large one (or few splits) means the recovery
+        cannot be trusted. NaN eta and lambda when no split is usable.
+
+    Notes
+    -----
+    For a split whose children are leaves, XGBoost's leaf weight is
+    ``w = -eta G / (H + lambda)`` and its gain (Chen and Guestrin 2016, eq. 7,
+    without the 1/2 and gamma) is
+    ``G_L²/(H_L+lambda) + G_R²/(H_R+lambda) - (G_L+G_R)²/(H_L+H_R+lambda)``.
+    With ``g = w (H + lambda) = -eta G`` the right side computed from ``g``
+    equals ``eta² gain``, so each split gives eta for a candidate lambda. The
+    lambda at which all splits agree (smallest spread of log eta over
+    {0} and a log grid 1e-3 to 1e3, refined locally) is taken, and eta is the
+    median. L1 (alpha) and max_delta_step change the leaf formula and show as
+    a large spread.
+
+    References
+    ----------
+    .. [1] T. Chen and C. Guestrin, "XGBoost: A scalable tree boosting
+       system", KDD 2016, equations 5 and 7.
     """
+    splits = tuple(a[:max_nodes] for a in _last_splits(ensemble))
+    n_splits = int(splits[0].size)
+    if n_splits == 0:
+        return float("nan"), float("nan"), float("inf"), 0
+    lambdas = np.concatenate([[0.0], np.geomspace(1e-3, 1e3, 1201)])
+    for _ in range(2):
+        spread = _spread(_log_steps(splits, lambdas))
+        best = int(np.argmin(spread))
+        low, high = lambdas[max(best - 1, 0)], lambdas[min(best + 1, lambdas.size - 1)]
+        lambdas = np.unique(np.concatenate([[lambdas[best]], np.linspace(low, high, 201)]))
+    spread = _spread(_log_steps(splits, lambdas))
+    best = int(np.argmin(spread))
+    reg_lambda = float(f"{lambdas[best]:.3g}")
+    log_steps = _log_steps(splits, np.array([reg_lambda]))
+    eta = float(f"{np.exp(np.median(log_steps)):.6g}")
+    return eta, reg_lambda, float(_spread(log_steps)[0]), n_splits
+
+
+@dataclass(frozen=True, eq=False)
+class Recipe:
+    """The training recipe of a refit and where each of its values came from.
+
+    Attributes
+    ----------
+    library : str
+        "xgboost" or "lightgbm".
+    params : dict
+        Native training parameters passed to the library's ``train``.
+    rounds : int
+        Boosting rounds.
+    origins : dict
+        Parameter name (and "rounds") -> one of ``ORIGINS``: "stored" (in the
+        model file or the live model's configuration), "given" (by the user),
+        "recovered" (read back from the trees) or "default" (the library's).
+    feature_names : tuple of str or None
+        The model's feature names (None when built from a parameter dict).
+    notes : list of str
+        Sentences for the reader (recovery figures, fall-backs).
+    """
+
+    library: str
+    params: dict
+    rounds: int
+    origins: dict
+    feature_names: tuple[str, ...] | None = None
+    notes: list[str] = field(default_factory=list)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Recipe):
+            return NotImplemented
+        return (self.library, self.params, self.rounds, self.origins, self.feature_names) == (
+            other.library, other.params, other.rounds, other.origins, other.feature_names)
+
+    def to_dict(self) -> dict:
+        """Plain JSON data: library, rounds and, per parameter, its value and origin."""
+        return {"library": self.library, "rounds": self.rounds, "rounds_origin": self.origins.get("rounds", "given"),
+                "params": {key: {"value": value, "origin": self.origins.get(key, "given")}
+                           for key, value in self.params.items()}}
+
+    def describe(self) -> str:
+        """One line naming every value and its origin, e.g. ``eta 0.05 (recovered from the trees)``."""
+        parts = [f"{key} {value:.6g}" if isinstance(value, float) else f"{key} {value}" for key, value in self.params.items()]
+        parts = [f"{text} ({_ORIGIN_TEXT[self.origins.get(key, 'given')]})" for text, key in zip(parts, self.params, strict=True)]
+        rounds_from = {"stored": "from the tree count", "given": "given"}.get(self.origins.get("rounds", "given"), "given")
+        return f"refit recipe ({self.library}): " + ", ".join(parts) + f", {self.rounds} rounds ({rounds_from})"
+
+
+def with_threads(recipe: Recipe, threads: int) -> dict:
+    """The recipe's parameters with the thread count of one fit (``threads <= 0`` = all cores)."""
+    count = threads if threads > 0 else (os.cpu_count() or 1)
+    return {**recipe.params, ("nthread" if recipe.library == "xgboost" else "num_threads"): count}
+
+
+def _xgboost_base(ensemble: ForestGraph, live: dict) -> tuple[dict, dict, list[str]]:
+    """Parameters of a saved or live XGBoost model, their origins and notes."""
+    base: dict = {"objective": ensemble.objective}
+    if ensemble.provenance.stored_params.get("num_class"):
+        base["num_class"] = int(ensemble.provenance.stored_params["num_class"])
+    if ensemble.trees_per_round > 1:
+        base["num_parallel_tree"] = ensemble.trees_per_round
+    origins = dict.fromkeys(base, "stored")
+    base.update(live)
+    origins.update(dict.fromkeys(live, "stored"))
     notes: list[str] = []
-    if isinstance(source, dict):
-        if library not in LIBRARIES:
-            raise ParameterError(f"library must be one of {LIBRARIES} when model_or_params is a parameter dict, got {library!r}")
-        if num_boost_round is None:
-            raise ParameterError("num_boost_round is required when model_or_params is a parameter dict")
-        base = {str(k): v for k, v in source.items()}
-        return library, {**base, **(params or {})}, num_boost_round, None, notes
-    ensemble = source
+    if live:
+        return base, origins, notes
+    depth = int(ensemble.depth[ensemble.is_leaf].max()) if ensemble.n_nodes else 1
+    base["max_depth"], origins["max_depth"] = max(depth, 1), "recovered"
+    eta, reg_lambda, spread, n_splits = recover_xgboost_step(ensemble)
+    if n_splits >= _MIN_RECOVERY_NODES and spread <= _MAX_LOG_SPREAD:
+        base.update(eta=eta, reg_lambda=reg_lambda)
+        origins.update(eta="recovered", reg_lambda="recovered")
+        notes.append(f"A saved XGBoost model does not store its training parameters: eta {eta:.6g} and lambda "
+                     f"{reg_lambda:.3g} were recovered from {n_splits} splits (spread of log eta {spread:.1e}), "
+                     f"max_depth {base['max_depth']} from the deepest leaf; the rest are XGBoost's defaults.")
+    else:
+        base.update(eta=_XGBOOST_DEFAULTS["eta"], reg_lambda=_XGBOOST_DEFAULTS["lambda"])
+        origins.update(eta="default", reg_lambda="default")
+        notes.append(f"A saved XGBoost model does not store its training parameters, and eta and lambda could not "
+                     f"be recovered from its trees ({n_splits} usable splits, spread of log eta {spread:.1e}; alpha "
+                     "or max_delta_step change the leaf formula): XGBoost's defaults eta 0.3 and lambda 1 were used. "
+                     "Give the real values with params (--param eta=...) for a trustworthy noise floor.")
+    return base, origins, notes
+
+
+def _check_retrainable(ensemble: ForestGraph, library: str | None) -> None:
     if ensemble.library not in LIBRARIES:
         raise UnsupportedModelError(
             f"{ensemble.source}: treeprobe retrains XGBoost and LightGBM models; this one is from "
@@ -164,30 +349,64 @@ def training_setup(source: ForestGraph | dict, *, library: str | None = None, pa
         raise ParameterError(f"library={library!r} contradicts the model, which is from {ensemble.library}")
     if "categorical" in ensemble.feature_types:
         raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
-    library = ensemble.library
-    if library == "lightgbm":
+
+
+def _without_aliases(base: dict, given: dict) -> dict:
+    """``base`` without the XGBoost parameters the user gave under another of their names (eta vs learning_rate)."""
+    dropped = {name for names in _XGBOOST_ALIASES if names & given.keys() for name in names - given.keys()}
+    return {key: value for key, value in base.items() if key not in dropped}
+
+
+def training_recipe(source: ForestGraph | dict, *, live_params: dict | None = None, params: dict | None = None,
+                    library: str | None = None, num_boost_round: int | None = None) -> Recipe:
+    """The recipe to retrain a model with: from the model, its live configuration and the user's params.
+
+    ``source`` is the loaded model graph, or a dict of native training
+    parameters (then ``library`` and ``num_boost_round`` are required).
+    ``live_params`` are those of :func:`live_training_params`. Precedence:
+    ``params`` (origin "given") over the live configuration and stored
+    parameters ("stored") over values read back from the trees ("recovered")
+    over library defaults ("default"). A saved XGBoost JSON keeps no learning
+    rate or penalty; they are recovered with :func:`recover_xgboost_step`.
+    """
+    given = {str(k): v for k, v in (params or {}).items()}
+    if isinstance(source, dict):
+        if library not in LIBRARIES:
+            raise ParameterError(f"library must be one of {LIBRARIES} when model_or_params is a parameter dict, got {library!r}")
+        if num_boost_round is None:
+            raise ParameterError("num_boost_round is required when model_or_params is a parameter dict")
+        merged = {**{str(k): v for k, v in source.items()}, **given}
+        return Recipe(library, merged, num_boost_round, {**dict.fromkeys(merged, "given"), "rounds": "given"})
+    ensemble = source
+    _check_retrainable(ensemble, library)
+    if ensemble.library == "lightgbm":
         stored = ensemble.provenance.stored_params
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
         base.update({key: base[key] not in ("0", "false") for key in _LIGHTGBM_BOOLEANS & base.keys()})
-        if not stored:
-            notes.append("The LightGBM model stores no training parameters; LightGBM's defaults were used.")
+        origins = dict.fromkeys(base, "stored")
+        notes = [] if stored else ["The LightGBM model stores no training parameters; LightGBM's defaults were used."]
     else:
-        base = {"objective": ensemble.objective}
-        if ensemble.provenance.stored_params.get("num_class"):
-            base["num_class"] = int(ensemble.provenance.stored_params["num_class"])
-        if ensemble.trees_per_round > 1:
-            base["num_parallel_tree"] = ensemble.trees_per_round
-        live = dict(live_params or {})
-        base.update(live)
-        if not live:
-            depth = int(ensemble.depth[ensemble.is_leaf].max()) if ensemble.n_nodes else 1
-            base["max_depth"] = max(depth, 1)
-            notes.append(
-                "A saved XGBoost model does not store its training parameters: max_depth was set to the deepest "
-                f"leaf found ({depth}) and the rest (eta, subsample, ...) are XGBoost's defaults unless given in params."
-            )
+        base, origins, notes = _xgboost_base(ensemble, dict(live_params or {}))
+    if ensemble.library == "xgboost":
+        base = _without_aliases(base, given)
+    origins.update(dict.fromkeys(given, "given"))
     rounds = num_boost_round if num_boost_round is not None else rounds_of(ensemble)
-    return library, {**base, **(params or {})}, rounds, ensemble.feature_names, notes
+    origins["rounds"] = "given" if num_boost_round is not None else "stored"
+    merged = {**base, **given}
+    return Recipe(ensemble.library, merged, rounds, {k: origins[k] for k in [*merged, "rounds"]},
+                  ensemble.feature_names, notes)
+
+
+def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,
+                   num_boost_round: int | None = None,
+                   live_params: dict | None = None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
+    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes.
+
+    The tuple form of :func:`training_recipe` (same arguments and precedence).
+    """
+    recipe = training_recipe(source, live_params=live_params, params=params, library=library,
+                             num_boost_round=num_boost_round)
+    return recipe.library, dict(recipe.params), recipe.rounds, recipe.feature_names, [*recipe.notes, recipe.describe()]
 
 
 def design_matrix(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:

@@ -87,13 +87,15 @@ from .progress import progress_bar
 from .refit import (
     BINARY,
     REGRESSION,
+    Recipe,
     design_matrix,
     fit_model,
     import_library,
     live_training_params,
     predict_model,
     task_of,
-    training_setup,
+    training_recipe,
+    with_threads,
 )
 
 __all__ = ["TriageResult", "triage", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
@@ -219,7 +221,10 @@ class TriageResult:
     facts : dict
         ``n_rows``, ``n_rows_available``, ``resamples``, ``null_refits``,
         ``has_target``, ``prediction_sd``, ``output``, ``scale``, ``seconds``,
-        ``refit_notes``.
+        ``refit_notes``, ``refit_recipe`` (library, rounds and each training
+        parameter's value and origin: stored, given, recovered or default;
+        None without refits), ``refit_recipe_text`` (the same in one line) and
+        ``refit_threads_per_fit`` (1 inside parallel workers, 0 = all cores).
     """
 
     pairs: pd.DataFrame
@@ -366,22 +371,29 @@ def _synthetic_target(task: str, target: np.ndarray, fitted: np.ndarray, seed: i
     return (draw.random((target.size, 1)) > cumulative[:, :-1]).sum(axis=1).astype(np.float64)
 
 
+def _threads_per_fit(n_jobs: int) -> int:
+    """Threads of one refit: 1 inside parallel workers (never threads x workers), all cores (0) for lone fits."""
+    return 1 if n_jobs != 1 else 0
+
+
 def _null_h(graph: ForestGraph, live_params: dict, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *,
             refits: int, params: dict | None, output: int | None, random_state: int, n_jobs: int,
-            progress: bool | None) -> tuple[np.ndarray, list[str]]:
+            progress: bool | None) -> tuple[np.ndarray, list[str], Recipe]:
     """H² and h of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3).
 
-    Returns an array of shape (refits, 2, n_pairs) and notes for the reader.
+    Returns an array of shape (refits, 2, n_pairs), notes for the reader and the recipe used.
     """
-    library, run_params, rounds, model_names, notes = training_setup(graph, params=params, live_params=live_params)
-    matrix, target, columns = design_matrix(X, y, model_names)
+    recipe = training_recipe(graph, params=params, live_params=live_params)
+    library, rounds = recipe.library, recipe.rounds
+    matrix, target, columns = design_matrix(X, y, recipe.feature_names)
     module = import_library(library)
-    objective = str(run_params.get("objective", graph.objective))
+    objective = str(recipe.params.get("objective", graph.objective))
     task = task_of(library, objective)
     additive_groups = [[j] for j in range(matrix.shape[1])]
-    additive = fit_model(library, module, run_params, matrix, target, rounds, additive_groups, columns)
+    additive = fit_model(library, module, with_threads(recipe, 0), matrix, target, rounds, additive_groups, columns)
     fitted = np.asarray(predict_model(library, module, additive, matrix, columns, objective), dtype=np.float64)
     seeds = np.random.default_rng(random_state).integers(0, 2**31 - 1, size=refits)
+    run_params = with_threads(recipe, _threads_per_fit(n_jobs))
 
     def one(seed: int) -> np.ndarray:
         synthetic = _synthetic_target(task, target, fitted, seed)
@@ -398,11 +410,11 @@ def _null_h(graph: ForestGraph, live_params: dict, X: Any, y: np.ndarray, rows: 
         else:
             values = Parallel(n_jobs=n_jobs)(delayed(one)(int(seed)) for seed in seeds)
             bar.update(refits)
-    notes = list(notes) + [
+    notes = list(recipe.notes) + [
         f"Noise floor from {refits} refits of the {library} model on synthetic targets without interaction "
         f"({'additive fit plus permuted residuals' if task == REGRESSION else 'labels drawn from the additive fit'})."
     ]
-    return np.stack(values) if values else np.zeros((0, 2, len(names))), notes
+    return np.stack(values) if values else np.zeros((0, 2, len(names))), notes, recipe
 
 
 # ------------------------------------------------------------------ tables
@@ -484,17 +496,19 @@ def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resam
 
 def _with_noise_floor(frame: pd.DataFrame, graph: ForestGraph, live_params: dict, X: Any, target: np.ndarray | None,
                       rows: Any, *, refits: int, quantile: float, params: dict | None, output: int | None,
-                      random_state: int, n_jobs: int, progress: bool | None) -> tuple[pd.DataFrame, list[str]]:
-    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits) and the refit notes."""
+                      random_state: int, n_jobs: int,
+                      progress: bool | None) -> tuple[pd.DataFrame, list[str], Recipe | None]:
+    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits), refit notes and recipe."""
     sharing, names = _sharing(frame)
     null = np.full((2, len(frame)), np.nan)
     notes: list[str] = []
+    recipe = None
     if target is not None and refits and names:
-        values, notes = _null_h(graph, live_params, X, target, rows, names, refits=refits, params=params,
+        values, notes, recipe = _null_h(graph, live_params, X, target, rows, names, refits=refits, params=params,
                                 output=output, random_state=random_state, n_jobs=n_jobs, progress=progress)
         null[:, sharing] = np.quantile(values, quantile, axis=0)
     frame["null_h2"], frame["null_h"] = null[0], null[1]
-    return frame, notes
+    return frame, notes, recipe
 
 
 def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray, random_state: int) -> pd.DataFrame:
@@ -581,7 +595,7 @@ def triage(
         ``dependent``; 0.7 as "strong correlation" is common practice.
     params : dict, optional
         Training parameters for the refits, overriding those read from the model
-        (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_setup`).
+        (a saved XGBoost file stores few; see :func:`treeprobe.refit.training_recipe`).
     output : int, optional
         Output (class) of a multiclass model, 0-based; default the first output.
     include_absent : bool, default True
@@ -669,7 +683,7 @@ def triage(
     frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
                             output=h_output, progress=progress)
     frame["effect"] = frame["h"] / scale
-    frame, refit_notes = _with_noise_floor(frame, graph, live_params, X, target, rows, refits=null_refits,
+    frame, refit_notes, recipe = _with_noise_floor(frame, graph, live_params, X, target, rows, refits=null_refits,
                                            quantile=thresholds["null_quantile"], params=params, output=h_output,
                                            random_state=random_state, n_jobs=n_jobs, progress=progress)
     frame = _with_dependence(frame, graph, matrix, random_state)
@@ -689,6 +703,9 @@ def triage(
         "scale": "margin",
         "seconds": time.perf_counter() - started,
         "refit_notes": refit_notes,
+        "refit_recipe": None if recipe is None else recipe.to_dict(),
+        "refit_recipe_text": "" if recipe is None else recipe.describe(),
+        "refit_threads_per_fit": None if recipe is None else _threads_per_fit(n_jobs),
     }
     return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
                         ensemble=graph, rules=_rules(thresholds, has_floor), thresholds=thresholds, facts=facts)
