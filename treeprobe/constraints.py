@@ -81,7 +81,7 @@ from scipy.stats import t as student_t
 from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
 
-from .checks import check_choice, check_float, check_int, check_progress, check_seed
+from .checks import check_choice, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
@@ -1027,7 +1027,9 @@ def validate_constraints(
        Machine Learning 52(3), 239-281, 2003.
     """
     folds = check_int("folds", folds, low=2)
-    n_jobs = check_int("n_jobs", n_jobs, low=1)
+    # Folds run one after another, so n_jobs is the thread count of each fit (-1: all cores).
+    n_jobs = check_n_jobs(n_jobs)
+    n_jobs = n_jobs if n_jobs > 0 else (os.cpu_count() or 1)
     num_boost_round = check_int("num_boost_round", num_boost_round, low=1, allow_none=True)
     random_state = check_seed("random_state", random_state, allow_none=False)
     library = check_choice("library", library, (*LIBRARIES, None))
