@@ -368,3 +368,19 @@ def test_bad_params_file_is_one_clear_error(planted_diabetes, tmp_path, content,
 def test_bad_param_value_is_a_usage_error_before_reading(tmp_path, value):
     proc = run("triage", tmp_path / "absent.json", "--data", tmp_path / "absent.csv", "--param", value, check_code=2)
     assert "--param takes key=value" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_triage_and_validation_with_text_class_labels(tmp_path):
+    """A yes/no target column reaches the refits and the validation: no float-conversion traceback."""
+    xgb = pytest.importorskip("xgboost")
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame(rng.uniform(-1, 1, size=(400, 3)), columns=["dwell", "reach", "noise"])
+    positive = (X["dwell"] * X["reach"] + 0.3 * X["dwell"] + rng.normal(0, 0.2, 400)) > 0
+    model = tmp_path / "bought.json"
+    xgb.XGBClassifier(n_estimators=30, max_depth=3, learning_rate=0.2, n_jobs=1).fit(X, positive.astype(int)).save_model(model)
+    data = tmp_path / "bought.csv"
+    X.assign(bought=np.where(positive, "yes", "no")).to_csv(data, index=False)
+    payload = json.loads(run("constrain", model, "--data", data, "--target", "bought", "--null-refits", "2",
+                             "--resamples", "2", "--validate", "--folds", "3", "--format", "json").stdout)
+    assert payload["triage"]["facts"]["null_refits"] == 2
+    assert payload["validation"]["folds"]

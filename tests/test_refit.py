@@ -121,3 +121,50 @@ def test_lightgbm_text_parameters_are_stored_origin():
     assert recipe.params["learning_rate"] == stored["learning_rate"] and recipe.origins["learning_rate"] == "stored"
     assert recipe.params["num_leaves"] == 7 and recipe.origins["num_leaves"] == "given"
     assert "num_leaves 7 (given)" in recipe.describe()
+
+
+def test_text_class_labels_are_coded_in_sorted_order():
+    """Text labels become 0, 1, ... in sorted order, as scikit-learn's LabelEncoder numbers classes."""
+    from sklearn.preprocessing import LabelEncoder
+
+    from treeprobe.errors import DataError
+    from treeprobe.refit import target_values
+
+    labels = np.array(["yes", "no", "no", "yes", "maybe"], dtype=object)
+    np.testing.assert_array_equal(target_values(labels), LabelEncoder().fit_transform(labels).astype(float))
+    np.testing.assert_array_equal(target_values([0, 1, 1]), [0.0, 1.0, 1.0])
+    with pytest.raises(DataError, match=r"missing class label.*row 1"):
+        target_values(np.array(["yes", None, "no"], dtype=object))
+
+
+def test_triage_with_text_labels_runs_the_noise_floor(tmp_path):
+    """A binary target given as yes/no reaches the refits instead of failing in a float conversion."""
+    import xgboost as xgb
+
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame(rng.uniform(-1, 1, size=(400, 3)), columns=["dwell", "reach", "noise"])
+    positive = (X["dwell"] * X["reach"] + 0.3 * X["dwell"] + rng.normal(0, 0.2, 400)) > 0
+    model = xgb.XGBClassifier(n_estimators=30, max_depth=3, learning_rate=0.2, n_jobs=1).fit(X, positive.astype(int))
+    result = treeprobe.triage(model, X, np.where(positive, "yes", "no"), null_refits=2, resamples=2, sample=200)
+    assert result.facts["null_refits"] == 2
+    assert result.pairs["null_h"].notna().any()
+
+
+def test_unrefittable_model_fails_before_any_h_computation(monkeypatch):
+    """A scikit-learn forest cannot be refit: the triage with a target stops at once and offers the fallback."""
+    from sklearn.ensemble import RandomForestRegressor
+
+    import treeprobe.verdicts as verdicts_module
+    from treeprobe.errors import UnsupportedModelError
+
+    rng = np.random.default_rng(0)
+    X = pd.DataFrame(rng.uniform(size=(120, 3)), columns=["a", "b", "c"])
+    y = X["a"] * X["b"]
+    forest = RandomForestRegressor(n_estimators=5, max_depth=3, random_state=0).fit(X, y)
+
+    def no_h(*args, **kwargs):
+        raise AssertionError("H was computed before the retraining check")
+
+    monkeypatch.setattr(verdicts_module, "h_statistic", no_h)
+    with pytest.raises(UnsupportedModelError, match="without them the triage still runs"):
+        treeprobe.triage(forest, X, y.to_numpy(), null_refits=2)

@@ -34,6 +34,8 @@ __all__ = [
     "task_of",
     "rounds_of",
     "live_training_params",
+    "check_retrainable",
+    "target_values",
     "params_from_xgboost_config",
     "Recipe",
     "recover_xgboost_step",
@@ -339,7 +341,12 @@ def _xgboost_base(ensemble: ForestGraph, live: dict) -> tuple[dict, dict, list[s
     return base, origins, notes
 
 
-def _check_retrainable(ensemble: ForestGraph, library: str | None) -> None:
+def check_retrainable(ensemble: ForestGraph, library: str | None = None) -> None:
+    """Refuse, before any work, a model treeprobe cannot retrain (raises UnsupportedModelError).
+
+    Called at the entry points that retrain (triage with a target, constraint validation) so that a
+    model of an unsupported kind fails at once instead of after the H computations.
+    """
     if ensemble.library not in LIBRARIES:
         raise UnsupportedModelError(
             f"{ensemble.source}: treeprobe retrains XGBoost and LightGBM models; this one is from "
@@ -378,7 +385,7 @@ def training_recipe(source: ForestGraph | dict, *, live_params: dict | None = No
         merged = {**{str(k): v for k, v in source.items()}, **given}
         return Recipe(library, merged, num_boost_round, {**dict.fromkeys(merged, "given"), "rounds": "given"})
     ensemble = source
-    _check_retrainable(ensemble, library)
+    check_retrainable(ensemble, library)
     if ensemble.library == "lightgbm":
         stored = ensemble.provenance.stored_params
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
@@ -409,6 +416,32 @@ def training_setup(source: ForestGraph | dict, *, library: str | None = None, pa
     return recipe.library, dict(recipe.params), recipe.rounds, recipe.feature_names, [*recipe.notes, recipe.describe()]
 
 
+def target_values(y: Any) -> np.ndarray:
+    """The target as float64: numbers as they are; text class labels coded 0, 1, ... in sorted label order.
+
+    Sorted order is how scikit-learn's ``LabelEncoder`` (and so ``XGBClassifier`` / ``LGBMClassifier``
+    fitted on encoded labels) numbers classes, so "no"/"yes" become 0/1. Missing labels are refused.
+
+    Raises
+    ------
+    DataError
+        Naming the first missing label and its row.
+    """
+    values = np.asarray(y).ravel()
+    try:
+        return values.astype(np.float64)
+    except (TypeError, ValueError):
+        pass
+    labels = pd.Series(values, dtype=object)
+    missing = labels.isna().to_numpy()
+    if missing.any():
+        raise DataError(f"the target holds {int(missing.sum())} missing class label(s); the first at row "
+                        f"{int(np.flatnonzero(missing)[0])}")
+    text = labels.astype(str)
+    classes = sorted(text.unique())
+    return pd.Index(classes).get_indexer(text).astype(np.float64)
+
+
 def design_matrix(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
     if isinstance(X, pd.DataFrame):
         columns = tuple(str(c) for c in X.columns)
@@ -430,7 +463,7 @@ def design_matrix(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.nda
         columns = names if names is not None else tuple(f"x{j}" for j in range(matrix.shape[1]))
     if names is not None and matrix.shape[1] != len(names):
         raise DataError(f"X has {matrix.shape[1]} columns; the model has {len(names)} features")
-    target = np.asarray(y, dtype=np.float64).ravel()
+    target = target_values(y)
     if target.size != matrix.shape[0]:
         raise DataError(f"y has {target.size} values for {matrix.shape[0]} rows of X")
     if not np.all(np.isfinite(target)):

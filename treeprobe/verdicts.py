@@ -78,7 +78,7 @@ from sklearn.feature_selection import mutual_info_classif, mutual_info_regressio
 
 from .checks import check_bool, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
-from .errors import DataError, ParameterError
+from .errors import DataError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
 from .measure import h_statistic
@@ -88,6 +88,7 @@ from .refit import (
     BINARY,
     REGRESSION,
     Recipe,
+    check_retrainable,
     design_matrix,
     fit_model,
     import_library,
@@ -274,6 +275,17 @@ def _split_target(X: Any, y: Any) -> tuple[Any, Any]:
     if target.ndim != 1 or target.shape[0] != len(X):
         raise DataError(f"y has shape {target.shape}; expected one value per row of X ({len(X)} rows)")
     return X, target
+
+
+def _check_refits_possible(graph: ForestGraph) -> None:
+    """Fail before any H computation when the noise-floor refits cannot run, and say what still works."""
+    try:
+        check_retrainable(graph)
+    except UnsupportedModelError as exc:
+        raise UnsupportedModelError(
+            f"{exc}. The noise floor needs refits; without them the triage still runs: give no target "
+            "(command line: leave out --target) or null_refits=0 (--null-refits 0)"
+        ) from None
 
 
 def _take_rows(X: Any, index: np.ndarray) -> Any:
@@ -666,6 +678,8 @@ def triage(
         raise ParameterError(f"params must be a dict of training parameters or None, got {type(params).__name__}")
 
     X, target = _split_target(X, y)
+    if target is not None and null_refits:
+        _check_refits_possible(graph)
     matrix_all = graph.check_X(X)
     rng = np.random.default_rng(random_state)
     chosen = _sample_rows(matrix_all, sample, rng)
