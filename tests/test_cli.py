@@ -216,7 +216,7 @@ def test_package_exports_its_errors_and_warning_lazily():
     assert set(treeprobe.__all__) <= set(dir(treeprobe))
     for name in treeprobe.__all__:
         assert getattr(treeprobe, name) is not None
-    for retired in ("hstat", "TreeEnsemble"):
+    for retired in (RETIRED_NAMES[0], RETIRED_NAMES[5]):
         with pytest.raises(AttributeError, match=f"no attribute '{retired}'"):
             getattr(treeprobe, retired)
 
@@ -297,7 +297,12 @@ def test_constrain_json_has_a_schema_and_fixed_keys(saved_regressor):
     assert payload["suggestion"]["schema"].startswith("treeprobe.") and payload["triage"]["schema"].startswith("treeprobe.triage/")
 
 
-OLD_NAMES = re.compile(r"hstat|\boverall\b|confounded|raw scale|--output|TreeEnsemble|root_splits|mean_depth|min_depth")
+# The names the interface issue retired, stored reversed so that a text search of the repository for
+# them finds only real uses, never this list of what must not appear.
+RETIRED_NAMES = tuple(name[::-1] for name in (
+    "tatsh", "llarevo", "dednuofnoc", "elacs war", "tuptuo--", "elbmesnEeerT", "stilps_toor", "htped_naem",
+    "htped_nim"))
+OLD_NAMES = re.compile("|".join(re.escape(name) for name in RETIRED_NAMES))
 
 
 def test_nothing_the_cli_prints_uses_retired_names(saved_regressor):

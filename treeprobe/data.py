@@ -386,13 +386,19 @@ def _frame_matrix(graph: ForestGraph, frame: pd.DataFrame, source_columns: list[
     return out, coerced, unseen
 
 
-def _array_matrix(graph: ForestGraph, X: Any, *, strict: bool) -> np.ndarray:
+def numeric_array(X: Any) -> np.ndarray:
+    """``X`` as a 2-D float64 array (rows x columns), or one DataError saying why it is not one."""
     try:
         arr = np.asarray(X, dtype=np.float64)
     except (TypeError, ValueError) as exc:
         raise DataError(f"data is not numeric: {exc}") from None
     if arr.ndim != 2:
         raise DataError(f"data must be 2-D (rows x features), got {arr.ndim}-D")
+    return arr
+
+
+def _array_matrix(graph: ForestGraph, X: Any, *, strict: bool) -> np.ndarray:
+    arr = numeric_array(X)
     if arr.shape[1] != graph.n_features:
         raise DataError(f"data has {arr.shape[1]} columns, the model expects {graph.n_features} features")
     if np.isinf(arr).any():

@@ -61,6 +61,7 @@ from joblib import Parallel, delayed
 from scipy.sparse import csr_matrix
 
 from .checks import check_choice, check_int
+from .data import model_matrix, numeric_array
 from .errors import DataError, ParameterError
 from .graph import ForestGraph
 from .io import load_model
@@ -149,7 +150,7 @@ def prepare_rows(fitted: FittedModel, X: Any, *, min_rows: int = 1) -> PreparedD
     """
     if fitted.is_tree:
         ens = fitted.ensemble
-        matrix = ens.check_X(X)
+        matrix = model_matrix(ens, X)
         names = ens.feature_names
         frame = None
     elif isinstance(X, pd.DataFrame):
@@ -159,12 +160,7 @@ def prepare_rows(fitted: FittedModel, X: Any, *, min_rows: int = 1) -> PreparedD
             raise DataError(f"data has duplicate column names: {sorted(n for n in set(names) if names.count(n) > 1)}")
         matrix = _numeric_view(frame)
     else:
-        try:
-            matrix = np.asarray(X, dtype=np.float64)
-        except (TypeError, ValueError) as exc:
-            raise DataError(f"data is not numeric: {exc}") from None
-        if matrix.ndim != 2:
-            raise DataError(f"data must be 2-D (rows x features), got {matrix.ndim}-D")
+        matrix = numeric_array(X)
         names = tuple(f"x{j}" for j in range(matrix.shape[1]))
         frame = None
     if matrix.shape[0] < min_rows:

@@ -78,6 +78,7 @@ from sklearn.feature_selection import mutual_info_classif, mutual_info_regressio
 
 from .checks import check_bool, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
+from .data import model_matrix
 from .errors import DataError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
@@ -680,7 +681,7 @@ def triage(
     X, target = _split_target(X, y)
     if target is not None and null_refits:
         _check_refits_possible(graph)
-    matrix_all = graph.check_X(X)
+    matrix_all = model_matrix(graph, X)
     rng = np.random.default_rng(random_state)
     chosen = _sample_rows(matrix_all, sample, rng)
     rows, matrix = _take_rows(X, chosen), matrix_all[chosen]

@@ -56,6 +56,7 @@ import pandas as pd
 
 from ..checks import check_int, check_progress
 from ..constraints import ConstraintSuggestion, ValidationResult, suggest_constraints
+from ..data import model_matrix
 from ..errors import DataError, ParameterError
 from ..graph import ForestGraph
 from ..io import load_model
@@ -312,7 +313,7 @@ def report(
     canvas = Canvas(pyplot())
     steps = _Steps()
     graph = steps.run("load the model", load_model, model)
-    matrix = graph.check_X(_features_of(X, y))
+    matrix = model_matrix(graph, _features_of(X, y))
     if triage_result is None:
         options = {"progress": progress, **(triage_options or {})}
         triage_result = steps.run("triage: structure, H-statistics, interval, noise floor, dependence", triage,
