@@ -14,7 +14,7 @@ import pytest
 
 import treeprobe
 from treeprobe.errors import ParameterError
-from treeprobe.refit import Recipe, recover_xgboost_step, training_recipe, training_setup, with_threads
+from treeprobe.refit import Recipe, recover_xgboost_step, training_recipe
 
 xgb = pytest.importorskip("xgboost")
 
@@ -88,26 +88,38 @@ def test_given_params_override_and_replace_aliases(regression_data, tmp_path):
 def test_live_configuration_is_stored_origin(regression_data):
     X, y = regression_data
     model = xgb.XGBRegressor(n_estimators=20, max_depth=2, learning_rate=0.07, n_jobs=1).fit(X, y)
-    recipe = training_recipe(treeprobe.load_model(model), live_params=treeprobe.refit.live_training_params(model))
+    recipe = training_recipe(treeprobe.load_model(model), live_model=model)
     assert float(recipe.params["eta"]) == pytest.approx(0.07) and recipe.origins["eta"] == "stored"
 
 
-def test_recipe_from_a_parameter_dict_and_tuple_form():
+def test_recipe_from_a_parameter_dict():
     recipe = training_recipe({"eta": 0.1}, library="xgboost", num_boost_round=7, params={"max_depth": 2})
     assert recipe == Recipe("xgboost", {"eta": 0.1, "max_depth": 2}, 7,
                             {"eta": "given", "max_depth": "given", "rounds": "given"})
-    library, params, rounds, names, notes = training_setup({"eta": 0.1}, library="xgboost", num_boost_round=7)
-    assert (library, params, rounds, names) == ("xgboost", {"eta": 0.1}, 7, None)
-    assert notes[-1].startswith("refit recipe (xgboost): eta 0.1 (given)")
+    assert recipe.feature_names is None and recipe.describe().startswith("refit recipe (xgboost): eta 0.1 (given)")
     with pytest.raises(ParameterError, match="num_boost_round"):
         training_recipe({"eta": 0.1}, library="xgboost")
 
 
-def test_thread_counts_per_fit():
-    recipe = Recipe("lightgbm", {"learning_rate": 0.1}, 5, {"learning_rate": "given", "rounds": "given"})
-    assert with_threads(recipe, 1)["num_threads"] == 1
-    assert with_threads(recipe, 0)["num_threads"] >= 1
-    assert "nthread" in with_threads(Recipe("xgboost", {}, 5, {"rounds": "given"}), 1)
+def test_thread_counts_reach_the_library(regression_data, monkeypatch):
+    """The thread count of a fit is what XGBoost's own train() receives: 1 in a worker, every core alone."""
+    import os
+
+    from treeprobe.refit import fit
+
+    X, y = regression_data
+    seen = []
+    real = xgb.train
+
+    def spy(params, *args, **kwargs):
+        seen.append(params["nthread"])
+        return real(params, *args, **kwargs)
+
+    monkeypatch.setattr(xgb, "train", spy)
+    recipe = Recipe("xgboost", {"max_depth": 2}, 3, {"max_depth": "given", "rounds": "given"}, tuple(X.columns))
+    fit(recipe, X.to_numpy(), y.to_numpy(), threads=1)
+    fit(recipe, X.to_numpy(), y.to_numpy(), threads=0)
+    assert seen == [1, os.cpu_count()]
 
 
 def test_lightgbm_text_parameters_are_stored_origin():
@@ -151,7 +163,7 @@ def test_triage_with_text_labels_runs_the_noise_floor(tmp_path):
 
 
 def test_unrefittable_model_fails_before_any_h_computation(monkeypatch):
-    """A scikit-learn forest cannot be refit: the triage with a target stops at once and offers the fallback."""
+    """A scikit-learn graph without its estimator cannot be refit: the triage stops at once and offers the fallback."""
     from sklearn.ensemble import RandomForestRegressor
 
     import treeprobe.verdicts as verdicts_module
@@ -166,5 +178,6 @@ def test_unrefittable_model_fails_before_any_h_computation(monkeypatch):
         raise AssertionError("H was computed before the retraining check")
 
     monkeypatch.setattr(verdicts_module, "h_statistic", no_h)
-    with pytest.raises(UnsupportedModelError, match="without them the triage still runs"):
-        treeprobe.triage(forest, X, y.to_numpy(), null_refits=2)
+    with pytest.raises(UnsupportedModelError, match="needs the estimator object") as caught:
+        treeprobe.triage(treeprobe.load_model(forest), X, y.to_numpy(), null_refits=2)
+    assert "without them the triage still runs" in str(caught.value)

@@ -243,24 +243,26 @@ def test_given_params_reach_the_refits(planted_diabetes):
 
 
 def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkeypatch):
+    """XGBoost's own train() receives nthread=1 for every refit inside workers; the lone additive fits get every core."""
+    import os
+
     import joblib
 
-    import treeprobe.verdicts as verdicts
-
     seen = []
-    real = verdicts.fit_model
+    real = xgb.train
 
-    def spy(library, module, params, *rest):
+    def spy(params, *args, **kwargs):
         seen.append(params["nthread"])
-        return real(library, module, params, *rest)
+        return real(params, *args, **kwargs)
 
-    monkeypatch.setattr(verdicts, "fit_model", spy)
+    monkeypatch.setattr(xgb, "train", spy)
     path, data, _ = planted_diabetes
     # The threading backend runs the workers in this process, so the spy sees their fits.
     with joblib.parallel_backend("threading"):
         result = triage(path, data, "target", sample=150, resamples=0, null_refits=3, n_jobs=2)
-    assert seen[1:] == [1, 1, 1] and seen[0] >= 1  # the lone additive fit may use every core
+    # Two lone additive fits (early-stopped, then all rows at the best rounds), then three refits in workers.
+    assert seen[:2] == [os.cpu_count()] * 2 and seen[2:] == [1, 1, 1]
     assert result.facts["refit_threads_per_fit"] == 1
     seen.clear()
     triage(path, data, "target", sample=150, resamples=0, null_refits=2, n_jobs=1)
-    assert len(seen) == 3 and min(seen) >= 1
+    assert seen == [os.cpu_count()] * 4

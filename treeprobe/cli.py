@@ -102,7 +102,7 @@ def _training_params(args: argparse.Namespace) -> dict[str, Any] | None:
 _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
     "top": lambda v: check_int("--top", v, low=1),
     "order": lambda v: check_int("--order", v, low=1),
-    "class_index": lambda v: check_int("--class", v, low=0, allow_none=True),
+    "class_index": lambda v: v if v == "all" else check_int("--class", v, low=0, allow_none=True),
     "sample": _check_sample,
     "seed": lambda v: check_seed("--seed", v, allow_none=False),
     "jobs": lambda v: check_n_jobs(v, name="--jobs"),
@@ -118,10 +118,22 @@ _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
 }
 
 
+def _class_choice(text: str) -> int | str:
+    """--class: a 0-based class index, or "all"."""
+    if text.strip().lower() == "all":
+        return "all"
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a class index (0, 1, ...) or 'all', got {text!r}") from None
+
+
 def _check_options(args: argparse.Namespace) -> None:
     for dest, check in _OPTION_CHECKS.items():
         if hasattr(args, dest):
             check(getattr(args, dest))
+    if getattr(args, "class_index", None) == "all" and args.command != "triage":
+        raise ParameterError(f"--class all is for triage; {args.command} takes one class index (0, 1, ...)")
 
 
 def _parse_tree_range(text: str | None) -> slice | None:
@@ -360,7 +372,7 @@ def _verdict_legend(rules: dict[str, str], order: Sequence[str]) -> str:
     return "\n".join(lines)
 
 
-def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
+def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame, output: int | None = None):
     from .verdicts import triage
 
     if args.target is not None and args.target not in data.columns:
@@ -376,7 +388,7 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
         min_h2=args.min_h2,
         min_effect=args.min_effect,
         max_dependence=args.max_dependence,
-        output=args.class_index,
+        output=args.class_index if output is None else output,
         params=_training_params(args),
         random_state=args.seed,
         n_jobs=args.jobs,
@@ -397,6 +409,7 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
         f"data       {args.data}: {facts['n_rows']:,} of {facts['n_rows_available']:,} rows, "
         f"{facts['resamples']} resamples, {floor}, {facts['seconds']:.1f} s",
         f"pairs      {tally}",
+        *([f"class      {facts['class_analysed']}"] if facts.get("class_analysed") else []),
         "",
         _table(result.pairs[[c for c in _TRIAGE_COLUMNS if c in result.pairs.columns]],
                "Pairs, strongest evidence first", args.top),
@@ -411,15 +424,37 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
     return lines
 
 
+_TRIAGE_BY_CLASS_SCHEMA = "treeprobe.triage_by_class/1"
+
+
 def _cmd_triage(args: argparse.Namespace) -> int:
     _check_table(args, ["pairs", "triples", "features"] if args.triples else ["pairs", "features"], "add --triples")
     ens = _load(args)
-    result = _run_triage(args, ens, _read_data(args, ens))
+    data = _read_data(args, ens)
+    if args.class_index == "all":
+        return _triage_each_class(args, ens, data)
+    result = _run_triage(args, ens, data)
     if args.format == "json":
         return _emit_json(result.to_dict(), args)
     if args.format == "csv":
         return _emit_csv({"pairs": result.pairs, "triples": result.triples, "features": result.features}, args)
     _emit("\n".join(_triage_text(result, args)), args.out)
+    return 0
+
+
+def _triage_each_class(args: argparse.Namespace, ens: Any, data: pd.DataFrame) -> int:
+    """--class all: one triage per output (class) of the model, each with its own noise floor."""
+    import pandas as pd
+
+    results = [_run_triage(args, ens, data, output) for output in range(ens.n_outputs)]
+    if args.format == "json":
+        return _emit_json({"schema": _TRIAGE_BY_CLASS_SCHEMA, "classes": [r.to_dict() for r in results]}, args)
+    if args.format == "csv":
+        tables = {name: pd.concat([getattr(r, name).assign(class_index=r.facts["output"]) for r in results],
+                                  ignore_index=True) for name in ("pairs", "triples", "features")}
+        return _emit_csv(tables, args)
+    sections = ["\n".join(_triage_text(r, args)) for r in results]
+    _emit(("\n\n" + "=" * 100 + "\n\n").join(sections), args.out)
     return 0
 
 
@@ -547,8 +582,9 @@ def _add_common(p: argparse.ArgumentParser) -> None:
                    help="output format (default: table); json and csv mirror the result tables' columns")
     p.add_argument("--out", metavar="FILE", help="write to FILE (atomically) instead of standard output")
     p.add_argument("--top", type=int, default=20, metavar="N", help="rows per table in table format (default: 20)")
-    p.add_argument("--class", dest="class_index", type=int, default=None, metavar="I",
-                   help="restrict to class I of a multiclass model (0-based class index)")
+    p.add_argument("--class", dest="class_index", type=_class_choice, default=None, metavar="I",
+                   help="class I of a multiclass model (0-based class index; default 0); triage also takes "
+                        "'all' (every class in turn)")
 
 
 def _add_table(p: argparse.ArgumentParser, names: Sequence[str] | None, listed: str) -> None:
@@ -587,6 +623,9 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--param", action="append", metavar="KEY=VALUE",
                    help="one training parameter for the refits (repeatable; value read as JSON when it parses, "
                         "e.g. --param eta=0.05); overrides --params")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run the refits and validation folds on the Dask cluster whose scheduler is at ADDRESS "
+                        "(e.g. tcp://scheduler-host:8786; one thread per fit; needs dask[distributed])")
 
 
 def _inspect_options(p: argparse.ArgumentParser) -> None:
@@ -640,8 +679,8 @@ def _report_options(p: argparse.ArgumentParser) -> None:
     _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
                    help="HTML file to write (default: treeprobe-report.html)")
-    p.add_argument("--class", dest="class_index", type=int, default=None, metavar="I",
-                   help="class I of a multiclass model (0-based class index)")
+    p.add_argument("--class", dest="class_index", type=_class_choice, default=None, metavar="I",
+                   help="class I of a multiclass model (0-based class index; default 0)")
     p.add_argument("--title", help="page title (default: from the model file name)")
     p.add_argument("--top-pairs", type=int, default=4, metavar="N", help="pairs drawn as partial dependence (default 4)")
     p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")
@@ -720,7 +759,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ParameterError as exc:
         parser.error(str(exc))
     try:
-        return int(args.handler(args))
+        from .parallel import dask_cluster
+
+        with dask_cluster(getattr(args, "scheduler", None)):
+            return int(args.handler(args))
     except _UsageError as exc:
         parser.error(str(exc))
     except TreeprobeError as exc:

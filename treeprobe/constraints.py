@@ -69,7 +69,8 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import partial
 from itertools import combinations
 from pathlib import Path
 from typing import Any
@@ -83,25 +84,31 @@ from sklearn.model_selection import KFold, StratifiedKFold
 
 from .checks import check_choice, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
+from .data import model_matrix
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
 from .output import atomic_write, dumps_json, to_jsonable
+from .parallel import run_tasks, threads_per_fit
 from .paths import leaf_feature_sets
-from .progress import progress_bar
 from .refit import (
     BINARY,
+    INNER_FRACTION,
     LIBRARIES,
     MULTICLASS,
+    PATIENCE,
     REGRESSION,
+    Recipe,
+    checked_target,
+    constrained_substitute,
     design_matrix,
+    fit,
     fit_early_stopped,
-    fit_model,
-    import_library,
-    live_training_params,
-    predict_model,
+    live_model_of,
+    predict_response,
+    round_budget,
     task_of,
-    training_setup,
+    training_recipe,
     xgboost_constraint_text,
 )
 from .verdicts import VERDICTS
@@ -126,16 +133,9 @@ _PAIR_COLUMNS = ("feature_a", "feature_b", "verdict", "strength")
 _TRIPLE_COLUMNS = ("feature_a", "feature_b", "feature_c", "verdict", "strength")
 _FEATURE_COLUMNS = ("feature", "gain", "splits", "h2_rest", "used")
 _SCHEMA = "treeprobe.constraints/2"
-_VALIDATION_SCHEMA = "treeprobe.constraints.validation/3"
+_VALIDATION_SCHEMA = "treeprobe.constraints.validation/4"
 _FOLD_COLUMNS = ("fold", "metric", "unconstrained", "constrained", "difference", "unconstrained_rounds",
                  "constrained_rounds")
-# Early stopping of every validation fit. The budget is 8x the model's rounds (at least 200) so that a
-# variant needing more rounds than the model had can find them; patience of 50 rounds and an 80/20
-# inner split are common practice, not taken from a source.
-_ROUND_BUDGET_FACTOR = 8
-_MIN_ROUND_BUDGET = 200
-_PATIENCE = 50
-_INNER_FRACTION = 0.8
 # Forbidden pairs named in a note when the groups measurably hurt.
 _PAIRS_NAMED = 5
 # Where each library's snippet puts the groups: the estimator class by task, and its keyword.
@@ -786,73 +786,71 @@ class ValidationResult:
         })
 
 
-def _fold_setup(source: ForestGraph | dict, live_params: dict, *, library: str | None, params: dict | None,
-                num_boost_round: int | None, n_jobs: int, random_state: int) -> dict:
-    """The training recipe of every fit: library, module, parameters (threads, seed), rounds, objective, task, notes."""
-    library, run_params, rounds, names, notes = training_setup(source, library=library, params=params,
-                                                               num_boost_round=num_boost_round,
-                                                               live_params=live_params)
-    module = import_library(library)
-    objective = str(run_params.get("objective", "reg:squarederror" if library == "xgboost" else "regression"))
-    task = task_of(library, objective)
-    if objective == "multi:softmax":
-        # Same loss; softprob predicts class probabilities, which log-loss needs.
-        objective = run_params["objective"] = "multi:softprob"
-    if objective == "binary:hinge":
+def _validation_recipe(model_or_params: Any, *, library: str | None, params: dict | None,
+                       num_boost_round: int | None) -> tuple[Recipe, ForestGraph | None]:
+    """The recipe of every validation fit (a family without constraints replaced by its nearest one) and the graph."""
+    source = model_or_params if isinstance(model_or_params, dict) else load_model(model_or_params)
+    recipe = training_recipe(source, live_model=live_model_of(model_or_params), params=params, library=library,
+                             num_boost_round=num_boost_round)
+    if recipe.objective == "binary:hinge":
         raise UnsupportedModelError("validate_constraints scores probabilities; binary:hinge predicts labels only")
-    threads = {"nthread": n_jobs, "seed": random_state} if library == "xgboost" else {"num_threads": n_jobs, "seed": random_state}
-    return {"library": library, "module": module, "params": {**run_params, **threads}, "rounds": rounds,
-            "names": names, "objective": objective, "task": task, "notes": notes}
+    return constrained_substitute(recipe), (None if isinstance(source, dict) else source)
 
 
-def _class_count(setup: dict, target: np.ndarray) -> int:
-    """Classes scored (2 for binary and regression); sets ``num_class`` for a multiclass fit that lacks it."""
-    if setup["task"] == REGRESSION:
-        return 2
-    if not np.all(target == np.round(target)) or target.min() < 0:
-        raise DataError("y must hold class codes 0, 1, ... for a classification objective")
-    if setup["task"] != MULTICLASS:
-        return 2
-    setup["params"].setdefault("num_class", int(target.max()) + 1)
-    return int(setup["params"]["num_class"])
+def _class_count(recipe: Recipe, target: np.ndarray) -> tuple[Recipe, int]:
+    """Classes scored (2 for binary and regression), and the recipe with ``num_class`` set for a multiclass fit."""
+    if recipe.task != MULTICLASS:
+        return recipe, 2
+    if recipe.library == "sklearn":
+        return recipe, max(recipe.n_classes, int(target.max()) + 1)
+    count = int(recipe.params.get("num_class", int(target.max()) + 1))
+    return replace(recipe, params={**recipe.params, "num_class": count}), count
 
 
-def _round_budget(setup: dict) -> int:
-    return max(_ROUND_BUDGET_FACTOR * setup["rounds"], _MIN_ROUND_BUDGET)
+@dataclass(frozen=True)
+class _FoldContext:
+    """What every fold's fits share (sent once to each worker)."""
+
+    recipe: Recipe
+    matrix: np.ndarray
+    target: np.ndarray
+    groups: list[list[int]]
+    n_classes: int
+    random_state: int
+    threads: int
 
 
-def _variant_scores(setup: dict, matrix: np.ndarray, target: np.ndarray, columns: tuple[str, ...],
-                    chosen: list[list[int]] | None, train: np.ndarray, test: np.ndarray, *, n_classes: int,
+def _variant_scores(context: _FoldContext, chosen: list[list[int]] | None, train: np.ndarray, test: np.ndarray,
                     seed: int) -> tuple[dict[str, float], int]:
     """Held-out scores of one variant, early-stopped on an inner split of the training part, and its best rounds."""
-    model, best_rounds = fit_early_stopped(
-        setup["library"], setup["module"], setup["params"], matrix[train], target[train],
-        max_rounds=_round_budget(setup), patience=_PATIENCE, inner_fraction=_INNER_FRACTION, seed=seed,
-        groups=chosen, columns=columns, stratify=setup["task"] != REGRESSION)
-    predicted = predict_model(setup["library"], setup["module"], model, matrix[test], columns, setup["objective"])
-    return _scores(setup["task"], target[test], predicted, n_classes), best_rounds
+    model, best_rounds = fit_early_stopped(context.recipe, context.matrix[train], context.target[train], groups=chosen,
+                                           threads=context.threads, seed=seed)
+    predicted = predict_response(context.recipe, model, context.matrix[test])
+    return _scores(context.recipe.task, context.target[test], predicted, context.n_classes), best_rounds
 
 
-def _fold_scores(setup: dict, matrix: np.ndarray, target: np.ndarray, columns: tuple[str, ...],
-                 groups: list[list[int]], *, folds: int, n_classes: int, random_state: int,
+def _one_fold(context: _FoldContext, item: tuple[int, np.ndarray, np.ndarray]) -> list[dict]:
+    """Rows of one outer fold: both variants, sharing the inner split so that they differ by the groups only."""
+    fold, train, test = item
+    seed = context.random_state + fold
+    free, free_rounds = _variant_scores(context, None, train, test, seed)
+    bound, bound_rounds = _variant_scores(context, context.groups, train, test, seed)
+    return [{"fold": fold, "metric": metric, "unconstrained": free[metric], "constrained": bound[metric],
+             "difference": bound[metric] - free[metric], "unconstrained_rounds": free_rounds,
+             "constrained_rounds": bound_rounds} for metric in free]
+
+
+def _fold_scores(context: _FoldContext, *, folds: int, n_jobs: int,
                  progress: bool | None) -> tuple[pd.DataFrame, float]:
     """Held-out scores and best rounds of both variants on each fold (numbered 1..K), and mean n_test / n_train."""
-    task = setup["task"]
-    splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True, random_state=random_state)
-    rows, ratios = [], []
-    with progress_bar(folds, "constraint folds", enabled=progress) as bar:
-        splits = splitter.split(matrix, target.astype(int) if task != REGRESSION else None)
-        for fold, (train, test) in enumerate(splits, start=1):
-            ratios.append(len(test) / len(train))
-            # Both variants share the inner split, so they differ by the groups only.
-            free, free_rounds = _variant_scores(setup, matrix, target, columns, None, train, test,
-                                                n_classes=n_classes, seed=random_state + fold)
-            bound, bound_rounds = _variant_scores(setup, matrix, target, columns, groups, train, test,
-                                                  n_classes=n_classes, seed=random_state + fold)
-            rows += [{"fold": fold, "metric": metric, "unconstrained": free[metric], "constrained": bound[metric],
-                      "difference": bound[metric] - free[metric], "unconstrained_rounds": free_rounds,
-                      "constrained_rounds": bound_rounds} for metric in free]
-            bar.update()
+    task = context.recipe.task
+    splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True,
+                                                                   random_state=context.random_state)
+    labels = context.target.astype(int) if task != REGRESSION else None
+    items = [(fold, train, test) for fold, (train, test) in enumerate(splitter.split(context.matrix, labels), start=1)]
+    rows = [row for part in run_tasks(partial(_one_fold, context), items, n_jobs=n_jobs, label="constraint folds",
+                                      progress=progress) for row in part]
+    ratios = [len(test) / len(train) for _, train, test in items]
     return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS)), float(np.mean(ratios))
 
 
@@ -961,7 +959,10 @@ def validate_constraints(
     random_state : int, default 0
         Seed of the fold split and of the libraries' sampling.
     n_jobs : int, default 1
-        Threads per fit.
+        Parallel workers for the folds (joblib; -1 = all cores). With 1 the
+        folds run one after another and each fit uses every core; with more,
+        each fit uses one thread (never threads x workers). Inside joblib's
+        Dask backend the folds run on the cluster's workers.
     progress : bool, optional
         Progress bar over folds on standard error; default: only on a terminal.
     triage_result : triage result, optional
@@ -1027,47 +1028,48 @@ def validate_constraints(
        Machine Learning 52(3), 239-281, 2003.
     """
     folds = check_int("folds", folds, low=2)
-    # Folds run one after another, so n_jobs is the thread count of each fit (-1: all cores).
     n_jobs = check_n_jobs(n_jobs)
-    n_jobs = n_jobs if n_jobs > 0 else (os.cpu_count() or 1)
     num_boost_round = check_int("num_boost_round", num_boost_round, low=1, allow_none=True)
     random_state = check_seed("random_state", random_state, allow_none=False)
     library = check_choice("library", library, (*LIBRARIES, None))
     progress = check_progress(progress)
     if params is not None and not isinstance(params, dict):
         raise ParameterError(f"params must be a dict of training parameters, got {type(params).__name__}")
-    if params and "interaction_constraints" in params:
-        raise ParameterError("params must not hold interaction_constraints; pass the groups as groups=")
+    if params and ({"interaction_constraints", "interaction_cst"} & params.keys()):
+        raise ParameterError("params must not hold interaction constraints; pass the groups as groups=")
     if triage_result is not None:
         _frame_of(triage_result, "pairs", _PAIR_COLUMNS)
-    source = model_or_params if isinstance(model_or_params, dict) else load_model(model_or_params)
-    setup = _fold_setup(source, live_training_params(model_or_params), library=library, params=params,
-                        num_boost_round=num_boost_round, n_jobs=n_jobs, random_state=random_state)
-    matrix, target, columns = design_matrix(X, y, setup["names"])
+    recipe, graph = _validation_recipe(model_or_params, library=library, params=params, num_boost_round=num_boost_round)
+    if graph is None:
+        matrix, target, columns = design_matrix(X, y, None)
+    else:
+        matrix, columns = model_matrix(graph, X), graph.feature_names
+        target = checked_target(y, matrix.shape[0], recipe.task)
     index_groups = _index_groups(groups, columns)
-    n_classes = _class_count(setup, target)
+    recipe, n_classes = _class_count(recipe, target)
     if matrix.shape[0] < 2 * folds:
         raise DataError(f"X has {matrix.shape[0]} rows, too few for {folds} folds")
-    table, test_to_train = _fold_scores(setup, matrix, target, columns, index_groups, folds=folds,
-                                        n_classes=n_classes, random_state=random_state, progress=progress)
+    context = _FoldContext(recipe, matrix, target, index_groups, n_classes, random_state, threads_per_fit(n_jobs))
+    table, test_to_train = _fold_scores(context, folds=folds, n_jobs=n_jobs, progress=progress)
     per_fold = table.drop_duplicates("fold")
     recommended = int(round(float(np.median(per_fold["constrained_rounds"]))))
-    refit = load_model(fit_model(setup["library"], setup["module"], setup["params"], matrix, target, recommended,
-                                 index_groups, columns))
+    refit = load_model(fit(recipe, matrix, target, groups=index_groups, rounds=recommended, threads=0,
+                           seed=random_state), feature_names=columns)
     crossing, stray = _cross_group(refit, index_groups, columns)
     summary: dict[str, Any] = _paired_summary(table, test_to_train)
-    notes = [_outcome_note(summary, index_groups, columns, triage_result), *setup["notes"],
-             *_budget_notes(per_fold, _round_budget(setup))]
+    notes = [_outcome_note(summary, index_groups, columns, triage_result), *recipe.notes, recipe.describe(),
+             *_budget_notes(per_fold, round_budget(recipe))]
     if crossing or stray:
         notes.append(f"The constrained refit has {len(stray)} path feature set(s) outside every group; "
                      f"pairs crossing groups: {', '.join(f'({a}, {b})' for a, b in crossing) or 'none'}.")
     summary.update({
-        "library": setup["library"], "objective": setup["objective"], "task": setup["task"],
-        "num_boost_round": setup["rounds"], "max_rounds": _round_budget(setup), "patience": _PATIENCE,
-        "inner_fraction": _INNER_FRACTION, "recommended_rounds": recommended,
-        "variance_factor": 1.0 / folds + test_to_train, "params": dict(setup["params"]),
-        "groups": [[columns[j] for j in g] for g in index_groups], "n_folds": folds, "n_rows": int(matrix.shape[0]),
-        "stray_paths": len(stray), "notes": notes,
+        "library": recipe.library, "family": recipe.family, "objective": recipe.objective, "task": recipe.task,
+        "num_boost_round": recipe.rounds, "max_rounds": round_budget(recipe), "patience": PATIENCE,
+        "inner_fraction": INNER_FRACTION, "recommended_rounds": recommended,
+        "variance_factor": 1.0 / folds + test_to_train, "params": dict(recipe.params), "recipe": recipe.to_dict(),
+        "threads_per_fit": context.threads, "groups": [[columns[j] for j in g] for g in index_groups],
+        "n_folds": folds, "n_rows": int(matrix.shape[0]), "stray_paths": len(stray), "notes": notes,
+        "class_scored": "all classes (multiclass log-loss)" if recipe.task == MULTICLASS else None,
     })
     return ValidationResult(folds=table, summary=summary, cross_group_pairs=crossing, stray_paths=stray,
                             recommended_rounds=recommended)

@@ -4,19 +4,37 @@ Later stages refit a model to test a hypothesis about it: the constraint
 validation of :mod:`treeprobe.constraints` refits with and without
 interaction constraints, and the noise floor of :mod:`treeprobe.verdicts`
 refits on synthetic targets with no interaction (Friedman and Popescu 2008,
-section 8.3). Both need the same thing: the training set-up read back from a
-saved model (LightGBM stores its parameters in the model text; a saved
-XGBoost JSON stores only the objective and a few learner facts, a live
-booster its full configuration), a numeric design matrix, and a fit and
-predict with the library itself. xgboost and lightgbm are optional; a missing
-one gives :class:`~treeprobe.errors.MissingLibraryError`.
+section 8.3). Both need the same things, owned here:
+
+- the training recipe (:class:`Recipe`, :func:`training_recipe`): read back
+  from the model (LightGBM stores its parameters in the model text; a live
+  XGBoost booster its configuration; a saved XGBoost JSON only the objective,
+  so its learning rate and L2 penalty are recovered from the trees), given
+  by the user, or a library default, each value with its origin;
+- the fits, one per model family: XGBoost and LightGBM (native ``train``,
+  categorical features passed as such, interaction constraints), scikit-learn
+  ``HistGradientBoosting*`` (``interaction_cst``), and other scikit-learn
+  estimators (forests, classic gradient boosting, single trees) by cloning,
+  which have no interaction constraints (:func:`constrained_substitute`
+  names the nearest family that has them);
+- early stopping on an inner split (:func:`fit_early_stopped`), so every
+  variant is compared at its own best round count.
+
+Experiments behind the categorical support (xgboost 3.2.0, lightgbm 4.7.0,
+kept as tests in ``tests/test_refit.py``): both libraries apply interaction
+constraints to categorical features as to numeric ones, a categorical
+feature being one member of its group, for partition splits and for one-hot
+splits alike; no path of a constrained model crosses groups.
+
+xgboost and lightgbm are optional; a missing one gives
+:class:`~treeprobe.errors.MissingLibraryError`.
 """
 
 from __future__ import annotations
 
 import json
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -27,28 +45,39 @@ from .graph import ForestGraph
 
 __all__ = [
     "LIBRARIES",
+    "SKLEARN",
     "REGRESSION",
     "BINARY",
     "MULTICLASS",
+    "PATIENCE",
+    "INNER_FRACTION",
     "import_library",
     "task_of",
     "rounds_of",
     "live_training_params",
+    "live_model_of",
     "check_retrainable",
     "target_values",
+    "checked_target",
     "params_from_xgboost_config",
     "Recipe",
     "recover_xgboost_step",
     "training_recipe",
-    "with_threads",
-    "training_setup",
+    "constrained_substitute",
     "design_matrix",
-    "fit_model",
-    "predict_model",
+    "round_budget",
+    "fit",
+    "fit_early_stopped",
+    "predict_response",
     "xgboost_constraint_text",
 ]
 
+# Libraries whose boosters treeprobe trains natively; scikit-learn estimators are cloned.
 LIBRARIES = ("xgboost", "lightgbm")
+SKLEARN = "sklearn"
+# scikit-learn settings shown in a recipe (the fit clones the estimator, which holds all of them).
+_SKLEARN_SHOWN = ("loss", "criterion", "learning_rate", "max_iter", "n_estimators", "max_depth", "max_leaf_nodes",
+                  "min_samples_leaf", "l2_regularization", "max_features", "subsample", "interaction_cst")
 # LightGBM training parameters carried over from the model text: those that
 # shape trees, the objective and sampling. Bookkeeping (files, threads, seeds,
 # devices, metrics, iteration counts) is left to this run.
@@ -60,7 +89,8 @@ _LIGHTGBM_KEYS = (
     "top_rate", "other_rate", "path_smooth", "max_bin", "min_data_in_bin", "use_missing", "zero_as_missing",
     "monotone_constraints", "monotone_constraints_method", "monotone_penalty", "is_unbalance", "scale_pos_weight",
     "sigmoid", "boost_from_average", "reg_sqrt", "alpha", "fair_c", "poisson_max_delta_step",
-    "tweedie_variance_power", "linear_tree", "data_sample_strategy",
+    "tweedie_variance_power", "linear_tree", "data_sample_strategy", "max_cat_to_onehot", "max_cat_threshold",
+    "cat_smooth", "cat_l2", "min_data_per_group",
 )
 # LightGBM writes booleans as 0/1 in the model text but reads only true/false back.
 _LIGHTGBM_BOOLEANS = frozenset({
@@ -261,11 +291,13 @@ class Recipe:
     Attributes
     ----------
     library : str
-        "xgboost" or "lightgbm".
+        "xgboost", "lightgbm" or "sklearn".
     params : dict
-        Native training parameters passed to the library's ``train``.
+        Native training parameters: those passed to ``xgboost.train`` /
+        ``lightgbm.train``; for scikit-learn the estimator's main settings
+        (for display: the fit clones ``estimator``, which holds them all).
     rounds : int
-        Boosting rounds.
+        Boosting rounds (trees for a forest, 1 for a single tree).
     origins : dict
         Parameter name (and "rounds") -> one of ``ORIGINS``: "stored" (in the
         model file or the live model's configuration), "given" (by the user),
@@ -274,6 +306,13 @@ class Recipe:
         The model's feature names (None when built from a parameter dict).
     notes : list of str
         Sentences for the reader (recovery figures, fall-backs).
+    estimator : scikit-learn estimator or None
+        Unfitted clone of a scikit-learn model (None for the boosting libraries).
+    categorical : tuple of int
+        Indices of categorical features, passed to the library as such.
+    n_classes : int
+        Classes of a scikit-learn classifier (0 otherwise; the boosting
+        libraries carry it in ``params``).
     """
 
     library: str
@@ -282,16 +321,60 @@ class Recipe:
     origins: dict
     feature_names: tuple[str, ...] | None = None
     notes: list[str] = field(default_factory=list)
+    estimator: Any = None
+    categorical: tuple[int, ...] = ()
+    n_classes: int = 0
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, Recipe):
             return NotImplemented
-        return (self.library, self.params, self.rounds, self.origins, self.feature_names) == (
-            other.library, other.params, other.rounds, other.origins, other.feature_names)
+        return (self.library, self.params, self.rounds, self.origins, self.feature_names, self.categorical) == (
+            other.library, other.params, other.rounds, other.origins, other.feature_names, other.categorical)
+
+    __hash__ = None  # type: ignore[assignment]
+
+    @property
+    def family(self) -> str:
+        """The model family refitted: the library, or the scikit-learn estimator class."""
+        return type(self.estimator).__name__ if self.estimator is not None else self.library
+
+    @property
+    def trainer(self) -> str:
+        """How fits run: "xgboost", "lightgbm", "hist" (scikit-learn HistGradientBoosting) or "clone"."""
+        if self.library != SKLEARN:
+            return self.library
+        return "hist" if self.family.startswith("HistGradientBoosting") else "clone"
+
+    @property
+    def supports_constraints(self) -> bool:
+        """Whether the family accepts interaction constraints (XGBoost, LightGBM, HistGradientBoosting)."""
+        return self.trainer != "clone"
+
+    @property
+    def boosted(self) -> bool:
+        """Whether rounds can be early-stopped (every family but forests, single trees and classic GB clones)."""
+        return self.trainer != "clone"
+
+    @property
+    def objective(self) -> str:
+        if self.library == SKLEARN:
+            return str(self.params.get("loss", ""))
+        return str(self.params.get("objective", "reg:squarederror" if self.library == "xgboost" else "regression"))
+
+    @property
+    def task(self) -> str:
+        """"regression", "binary" or "multiclass"."""
+        if self.library == SKLEARN:
+            if not _sklearn_is_classifier(self.estimator):
+                return REGRESSION
+            return MULTICLASS if self.n_classes > 2 else BINARY
+        return task_of(self.library, self.objective)
 
     def to_dict(self) -> dict:
-        """Plain JSON data: library, rounds and, per parameter, its value and origin."""
-        return {"library": self.library, "rounds": self.rounds, "rounds_origin": self.origins.get("rounds", "given"),
+        """Plain JSON data: library, family, rounds and, per parameter, its value and origin."""
+        return {"library": self.library, "family": self.family, "rounds": self.rounds,
+                "rounds_origin": self.origins.get("rounds", "given"),
+                "categorical": list(self.categorical),
                 "params": {key: {"value": value, "origin": self.origins.get(key, "given")}
                            for key, value in self.params.items()}}
 
@@ -299,14 +382,16 @@ class Recipe:
         """One line naming every value and its origin, e.g. ``eta 0.05 (recovered from the trees)``."""
         parts = [f"{key} {value:.6g}" if isinstance(value, float) else f"{key} {value}" for key, value in self.params.items()]
         parts = [f"{text} ({_ORIGIN_TEXT[self.origins.get(key, 'given')]})" for text, key in zip(parts, self.params, strict=True)]
-        rounds_from = {"stored": "from the tree count", "given": "given"}.get(self.origins.get("rounds", "given"), "given")
-        return f"refit recipe ({self.library}): " + ", ".join(parts) + f", {self.rounds} rounds ({rounds_from})"
+        rounds_from = {"stored": "from the tree count", "given": "given", "default": "library default"}.get(
+            self.origins.get("rounds", "given"), "given")
+        family = self.library if self.estimator is None else f"scikit-learn {self.family}"
+        return f"refit recipe ({family}): " + ", ".join(parts) + f", {self.rounds} rounds ({rounds_from})"
 
 
-def with_threads(recipe: Recipe, threads: int) -> dict:
-    """The recipe's parameters with the thread count of one fit (``threads <= 0`` = all cores)."""
-    count = threads if threads > 0 else (os.cpu_count() or 1)
-    return {**recipe.params, ("nthread" if recipe.library == "xgboost" else "num_threads"): count}
+def _sklearn_is_classifier(estimator: Any) -> bool:
+    from sklearn.base import is_classifier
+
+    return bool(is_classifier(estimator))
 
 
 def _xgboost_base(ensemble: ForestGraph, live: dict) -> tuple[dict, dict, list[str]]:
@@ -341,21 +426,35 @@ def _xgboost_base(ensemble: ForestGraph, live: dict) -> tuple[dict, dict, list[s
     return base, origins, notes
 
 
-def check_retrainable(ensemble: ForestGraph, library: str | None = None) -> None:
+def live_model_of(model: Any) -> Any:
+    """The library object behind ``model`` when the caller passed one (not a path, file text or graph), else None."""
+    if model is None or isinstance(model, (str, bytes, os.PathLike, ForestGraph, dict)):
+        return None
+    return model
+
+
+def check_retrainable(ensemble: ForestGraph, library: str | None = None, *, live_model: Any = None) -> None:
     """Refuse, before any work, a model treeprobe cannot retrain (raises UnsupportedModelError).
 
     Called at the entry points that retrain (triage with a target, constraint validation) so that a
-    model of an unsupported kind fails at once instead of after the H computations.
+    model of an unsupported kind fails at once instead of after the H computations. XGBoost and
+    LightGBM models retrain from the file; a scikit-learn model needs its estimator object (a live
+    estimator or a trusted pickle) to be cloned.
     """
-    if ensemble.library not in LIBRARIES:
+    if ensemble.library not in (*LIBRARIES, SKLEARN):
         raise UnsupportedModelError(
-            f"{ensemble.source}: treeprobe retrains XGBoost and LightGBM models; this one is from "
+            f"{ensemble.source}: treeprobe retrains XGBoost, LightGBM and scikit-learn models; this one is from "
             f"{ensemble.library}"
         )
     if library is not None and library != ensemble.library:
         raise ParameterError(f"library={library!r} contradicts the model, which is from {ensemble.library}")
-    if "categorical" in ensemble.feature_types:
-        raise UnsupportedModelError(f"{ensemble.source}: retraining models with categorical splits is not supported")
+    if ensemble.library == SKLEARN and live_model is None:
+        raise UnsupportedModelError(
+            f"{ensemble.source}: refitting a scikit-learn {ensemble.provenance.estimator or 'model'} needs the "
+            "estimator object (pass the fitted estimator, or a trusted pickle with --trust-pickle), not a graph"
+        )
+    if ensemble.library in LIBRARIES:
+        task_of(ensemble.library, ensemble.objective)  # refuses ranking and survival objectives
 
 
 def _without_aliases(base: dict, given: dict) -> dict:
@@ -364,17 +463,67 @@ def _without_aliases(base: dict, given: dict) -> dict:
     return {key: value for key, value in base.items() if key not in dropped}
 
 
-def training_recipe(source: ForestGraph | dict, *, live_params: dict | None = None, params: dict | None = None,
-                    library: str | None = None, num_boost_round: int | None = None) -> Recipe:
-    """The recipe to retrain a model with: from the model, its live configuration and the user's params.
+def _sklearn_rounds(estimator: Any) -> int:
+    """Boosting iterations (HistGB ``n_iter_``, GB ``n_estimators_``), trees of a forest, or 1 for a single tree."""
+    for attribute in ("n_iter_", "n_estimators_"):
+        if hasattr(estimator, attribute):
+            return int(getattr(estimator, attribute))
+    members = getattr(estimator, "estimators_", None)
+    return len(members) if members is not None else 1
 
-    ``source`` is the loaded model graph, or a dict of native training
-    parameters (then ``library`` and ``num_boost_round`` are required).
-    ``live_params`` are those of :func:`live_training_params`. Precedence:
-    ``params`` (origin "given") over the live configuration and stored
-    parameters ("stored") over values read back from the trees ("recovered")
-    over library defaults ("default"). A saved XGBoost JSON keeps no learning
-    rate or penalty; they are recovered with :func:`recover_xgboost_step`.
+
+def _sklearn_recipe(ensemble: ForestGraph, model: Any, given: dict, num_boost_round: int | None) -> Recipe:
+    """The recipe of a scikit-learn estimator: its unfitted clone, main settings and given overrides."""
+    from sklearn.base import clone
+
+    template = clone(model)
+    settings = template.get_params(deep=False)
+    unknown = sorted(set(given) - set(settings))
+    if unknown:
+        raise ParameterError(f"params {', '.join(unknown)} are not settings of {type(model).__name__}; it has "
+                             f"{', '.join(sorted(settings))}")
+    template.set_params(**given)
+    shown = {key: template.get_params(deep=False)[key] for key in _SKLEARN_SHOWN if key in settings}
+    shown.update(given)
+    origins = {**dict.fromkeys(shown, "stored"), **dict.fromkeys(given, "given")}
+    rounds = num_boost_round if num_boost_round is not None else _sklearn_rounds(model)
+    origins["rounds"] = "given" if num_boost_round is not None else "stored"
+    categorical = tuple(j for j, kind in enumerate(ensemble.feature_types) if kind == "categorical")
+    return Recipe(SKLEARN, shown, rounds, origins, ensemble.feature_names, [], template, categorical,
+                  len(getattr(model, "classes_", ())))
+
+
+def training_recipe(source: ForestGraph | dict, *, live_model: Any = None, params: dict | None = None,
+                    library: str | None = None, num_boost_round: int | None = None) -> Recipe:
+    """The recipe to retrain a model with: from the model, its live object and the user's params.
+
+    Parameters
+    ----------
+    source : ForestGraph or dict
+        The loaded model graph, or a dict of native XGBoost / LightGBM
+        training parameters (then ``library`` and ``num_boost_round`` are required).
+    live_model : model object, optional
+        The object the user passed (a live XGBoost booster knows its full
+        configuration; a scikit-learn estimator is cloned for refits).
+    params : dict, optional
+        Training parameters given by the user (origin "given").
+    library : {"xgboost", "lightgbm"}, optional
+        Needed with a parameter dict; checked against the model otherwise.
+    num_boost_round : int, optional
+        Rounds; default the model's (trees / outputs / parallel trees).
+
+    Returns
+    -------
+    Recipe
+
+    Notes
+    -----
+    Precedence: ``params`` ("given") over the live configuration and stored
+    parameters ("stored") over values read back from the trees
+    ("recovered") over library defaults ("default"). A saved XGBoost JSON
+    keeps no learning rate or penalty; they are recovered with
+    :func:`recover_xgboost_step`. ``multi:softmax`` is refitted as
+    ``multi:softprob`` (same loss; the refits need class probabilities).
     """
     given = {str(k): v for k, v in (params or {}).items()}
     if isinstance(source, dict):
@@ -383,9 +532,11 @@ def training_recipe(source: ForestGraph | dict, *, live_params: dict | None = No
         if num_boost_round is None:
             raise ParameterError("num_boost_round is required when model_or_params is a parameter dict")
         merged = {**{str(k): v for k, v in source.items()}, **given}
-        return Recipe(library, merged, num_boost_round, {**dict.fromkeys(merged, "given"), "rounds": "given"})
+        return _softprob(Recipe(library, merged, num_boost_round, {**dict.fromkeys(merged, "given"), "rounds": "given"}))
     ensemble = source
-    check_retrainable(ensemble, library)
+    check_retrainable(ensemble, library, live_model=live_model)
+    if ensemble.library == SKLEARN:
+        return _sklearn_recipe(ensemble, live_model, given, num_boost_round)
     if ensemble.library == "lightgbm":
         stored = ensemble.provenance.stored_params
         base = {key: stored[key] for key in _LIGHTGBM_KEYS if stored.get(key, "") != ""}
@@ -393,27 +544,45 @@ def training_recipe(source: ForestGraph | dict, *, live_params: dict | None = No
         origins = dict.fromkeys(base, "stored")
         notes = [] if stored else ["The LightGBM model stores no training parameters; LightGBM's defaults were used."]
     else:
-        base, origins, notes = _xgboost_base(ensemble, dict(live_params or {}))
-    if ensemble.library == "xgboost":
+        base, origins, notes = _xgboost_base(ensemble, live_training_params(live_model) if live_model is not None else {})
         base = _without_aliases(base, given)
     origins.update(dict.fromkeys(given, "given"))
     rounds = num_boost_round if num_boost_round is not None else rounds_of(ensemble)
     origins["rounds"] = "given" if num_boost_round is not None else "stored"
     merged = {**base, **given}
-    return Recipe(ensemble.library, merged, rounds, {k: origins[k] for k in [*merged, "rounds"]},
-                  ensemble.feature_names, notes)
+    categorical = tuple(j for j, kind in enumerate(ensemble.feature_types) if kind == "categorical")
+    return _softprob(Recipe(ensemble.library, merged, rounds, {k: origins[k] for k in [*merged, "rounds"]},
+                            ensemble.feature_names, notes, None, categorical))
 
 
-def training_setup(source: ForestGraph | dict, *, library: str | None = None, params: dict | None = None,
-                   num_boost_round: int | None = None,
-                   live_params: dict | None = None) -> tuple[str, dict, int, tuple[str, ...] | None, list[str]]:
-    """Library, parameters, rounds, the model's feature names (None for a params dict) and notes.
+def _softprob(recipe: Recipe) -> Recipe:
+    """XGBoost's ``multi:softmax`` refitted as ``multi:softprob``: the same loss, with probabilities to score."""
+    if recipe.params.get("objective") != "multi:softmax":
+        return recipe
+    notes = [*recipe.notes, "multi:softmax is refitted as multi:softprob (same loss; the refits need probabilities)."]
+    return replace(recipe, params={**recipe.params, "objective": "multi:softprob"}, notes=notes)
 
-    The tuple form of :func:`training_recipe` (same arguments and precedence).
+
+def constrained_substitute(recipe: Recipe) -> Recipe:
+    """The nearest family with interaction constraints for a scikit-learn family without them.
+
+    Forests, classic gradient boosting and single trees have no interaction
+    constraints; scikit-learn's ``HistGradientBoosting{Regressor,Classifier}``
+    has (``interaction_cst``). The substitute keeps the task, the categorical
+    features and scikit-learn's defaults (learning rate 0.1, 31 leaves),
+    with 100 rounds as the start of the early-stopping budget.
     """
-    recipe = training_recipe(source, live_params=live_params, params=params, library=library,
-                             num_boost_round=num_boost_round)
-    return recipe.library, dict(recipe.params), recipe.rounds, recipe.feature_names, [*recipe.notes, recipe.describe()]
+    from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+
+    if recipe.supports_constraints:
+        return recipe
+    classifier = _sklearn_is_classifier(recipe.estimator)
+    template = (HistGradientBoostingClassifier if classifier else HistGradientBoostingRegressor)()
+    shown = {key: template.get_params(deep=False)[key] for key in ("learning_rate", "max_leaf_nodes", "min_samples_leaf")}
+    note = (f"{recipe.family} has no interaction constraints; the nearest family that has them, scikit-learn's "
+            f"{type(template).__name__} (interaction_cst) with its default settings, stands in for it.")
+    return Recipe(SKLEARN, shown, 100, {**dict.fromkeys(shown, "default"), "rounds": "default"},
+                  recipe.feature_names, [note], template, recipe.categorical, recipe.n_classes)
 
 
 def target_values(y: Any) -> np.ndarray:
@@ -442,7 +611,32 @@ def target_values(y: Any) -> np.ndarray:
     return pd.Index(classes).get_indexer(text).astype(np.float64)
 
 
+def checked_target(y: Any, n_rows: int, task: str) -> np.ndarray:
+    """The target as float64 (:func:`target_values`), one finite value per row; class codes 0, 1, ... for classifiers.
+
+    Raises
+    ------
+    DataError
+        Wrong length, NaN or infinite values (naming the first row), or a
+        classification target that is not class codes.
+    """
+    target = target_values(y)
+    if target.size != n_rows:
+        raise DataError(f"y has {target.size} values for {n_rows} rows of X")
+    if not np.all(np.isfinite(target)):
+        bad = ~np.isfinite(target)
+        raise DataError(f"y holds {int(bad.sum())} NaN or infinite value(s); the first at row {int(np.flatnonzero(bad)[0])}")
+    if task != REGRESSION and (not np.all(target == np.round(target)) or target.min() < 0):
+        raise DataError("y must hold class labels (text, or codes 0, 1, ...) for a classification model")
+    return target
+
+
 def design_matrix(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
+    """Numeric X (columns in the model's order when ``names`` is given), the target as float64, and column names.
+
+    Used when only a parameter dict is known; with a model, entry points code X with
+    :func:`treeprobe.data.model_matrix` (categorical columns as the model's codes).
+    """
     if isinstance(X, pd.DataFrame):
         columns = tuple(str(c) for c in X.columns)
         if names is not None:
@@ -463,39 +657,125 @@ def design_matrix(X: Any, y: Any, names: tuple[str, ...] | None) -> tuple[np.nda
         columns = names if names is not None else tuple(f"x{j}" for j in range(matrix.shape[1]))
     if names is not None and matrix.shape[1] != len(names):
         raise DataError(f"X has {matrix.shape[1]} columns; the model has {len(names)} features")
-    target = target_values(y)
-    if target.size != matrix.shape[0]:
-        raise DataError(f"y has {target.size} values for {matrix.shape[0]} rows of X")
-    if not np.all(np.isfinite(target)):
-        raise DataError(f"y holds {int((~np.isfinite(target)).sum())} NaN or infinite value(s); the first at row "
-                        f"{int(np.flatnonzero(~np.isfinite(target))[0])}")
+    target = checked_target(y, matrix.shape[0], REGRESSION)
     if np.isinf(matrix).any():
         row, column = np.argwhere(np.isinf(matrix))[0]
         raise DataError(f"X holds an infinite value at row {row}, column {columns[column]!r}")
     return matrix, target, columns
 
 
-def fit_model(library: str, module: Any, params: dict, X: np.ndarray, y: np.ndarray, rounds: int,
-         groups: list[list[int]] | None, columns: tuple[str, ...]) -> Any:
-    if library == "xgboost":
-        run = dict(params)
-        if groups is not None:
-            run["interaction_constraints"] = xgboost_constraint_text(groups)
-        return module.train(run, module.DMatrix(X, y, feature_names=list(columns)), num_boost_round=rounds)
-    run = {**params, "verbosity": -1}
+# ------------------------------------------------------------------ fits
+# Early stopping: patience and inner split are common practice; the budget lets a constrained model, which
+# needs more rounds, grow well past the original count.
+PATIENCE = 50
+INNER_FRACTION = 0.8
+_ROUND_BUDGET_FACTOR = 8
+_MIN_ROUND_BUDGET = 200
+
+
+def round_budget(recipe: Recipe) -> int:
+    """Most rounds an early-stopped fit may grow: ``max(8 * rounds, 200)`` (common practice, our choice)."""
+    return max(_ROUND_BUDGET_FACTOR * recipe.rounds, _MIN_ROUND_BUDGET)
+
+
+def _xgboost_data(module: Any, recipe: Recipe, X: np.ndarray, y: np.ndarray | None, columns: list[str]) -> Any:
+    types = ["c" if j in recipe.categorical else "q" for j in range(X.shape[1])]
+    return module.DMatrix(X, y, feature_names=columns, feature_types=types, enable_categorical=bool(recipe.categorical))
+
+
+def _fit_xgboost(recipe: Recipe, X: np.ndarray, y: np.ndarray, groups: list[list[int]] | None, threads: int,
+                 seed: int, rounds: int, stop: tuple | None, columns: list[str]) -> tuple[Any, int]:
+    module = import_library("xgboost")
+    run = {**recipe.params, "nthread": threads, "seed": seed}
+    if groups is not None:
+        run["interaction_constraints"] = xgboost_constraint_text(groups)
+    train = _xgboost_data(module, recipe, X, y, columns)
+    if stop is None:
+        return module.train(run, train, num_boost_round=rounds), rounds
+    X_stop, y_stop, patience = stop
+    booster = module.train(run, train, num_boost_round=rounds, evals=[(_xgboost_data(module, recipe, X_stop, y_stop,
+                                                                                      columns), "early_stop")],
+                           early_stopping_rounds=patience, verbose_eval=False)
+    best = int(booster.best_iteration) + 1
+    return booster[:best], best
+
+
+def _fit_lightgbm(recipe: Recipe, X: np.ndarray, y: np.ndarray, groups: list[list[int]] | None, threads: int,
+                  seed: int, rounds: int, stop: tuple | None, columns: list[str]) -> tuple[Any, int]:
+    module = import_library("lightgbm")
+    run = {**recipe.params, "num_threads": threads, "seed": seed, "verbosity": -1}
     if groups is not None:
         run["interaction_constraints"] = groups
-    data = module.Dataset(X, y, feature_name=list(columns), params={"verbosity": -1})
-    return module.train(run, data, num_boost_round=rounds)
+    categorical = list(recipe.categorical) or "auto"
+    train = module.Dataset(X, y, feature_name=columns, categorical_feature=categorical, params={"verbosity": -1})
+    if stop is None:
+        return module.train(run, train, num_boost_round=rounds), rounds
+    X_stop, y_stop, patience = stop
+    held_out = module.Dataset(X_stop, y_stop, reference=train, categorical_feature=categorical)
+    booster = module.train(run, train, num_boost_round=rounds, valid_sets=[held_out],
+                           callbacks=[module.early_stopping(patience, verbose=False)])
+    best = int(booster.best_iteration) if booster.best_iteration > 0 else booster.current_iteration()
+    # The booster keeps the rounds after the best; a copy cut at the best is what later stages read.
+    return module.Booster(model_str=booster.model_to_string(num_iteration=best)), best
 
 
-def predict_model(library: str, module: Any, model: Any, X: np.ndarray, columns: tuple[str, ...],
-             objective: str) -> np.ndarray:
-    if library == "xgboost":
-        predicted = model.predict(module.DMatrix(X, feature_names=list(columns)))
-        # logitraw predicts the margin; the scores need probabilities.
-        return 1.0 / (1.0 + np.exp(-predicted)) if objective == "binary:logitraw" else predicted
-    return model.predict(X)
+def _fit_hist(recipe: Recipe, X: np.ndarray, y: np.ndarray, groups: list[list[int]] | None, threads: int,
+              seed: int, rounds: int, stop: tuple | None, columns: list[str]) -> tuple[Any, int]:
+    from sklearn.base import clone
+    from threadpoolctl import threadpool_limits
+
+    settings: dict[str, Any] = {"max_iter": rounds, "early_stopping": False, "random_state": seed}
+    if recipe.categorical:
+        settings["categorical_features"] = [j in recipe.categorical for j in range(X.shape[1])]
+    if groups is not None:
+        settings["interaction_cst"] = groups
+    with threadpool_limits(threads, user_api="openmp"):
+        if stop is None:
+            return clone(recipe.estimator).set_params(**settings).fit(X, y), rounds
+        X_stop, y_stop, patience = stop
+        model = clone(recipe.estimator).set_params(**{**settings, "early_stopping": True, "scoring": "loss",
+                                                      "n_iter_no_change": patience})
+        model.fit(X, y, X_val=X_stop, y_val=y_stop)
+        # validation_score_[i] is minus the hold-out loss after i iterations (i = 0: the constant start).
+        best = int(np.argmax(model.validation_score_[1:])) + 1
+        if best < model.n_iter_:
+            model = clone(recipe.estimator).set_params(**{**settings, "max_iter": best}).fit(X, y)
+        return model, best
+
+
+def _fit_clone(recipe: Recipe, X: np.ndarray, y: np.ndarray, groups: list[list[int]] | None, threads: int,
+               seed: int, rounds: int, stop: tuple | None, columns: list[str]) -> tuple[Any, int]:
+    from sklearn.base import clone
+
+    if groups is not None:
+        raise UnsupportedModelError(f"{recipe.family} has no interaction constraints; see constrained_substitute")
+    model = clone(recipe.estimator)
+    own = model.get_params(deep=False)
+    model.set_params(**{key: value for key, value in (("random_state", seed), ("n_jobs", threads)) if key in own})
+    return model.fit(X, y), recipe.rounds
+
+
+_FITTERS = {"xgboost": _fit_xgboost, "lightgbm": _fit_lightgbm, "hist": _fit_hist, "clone": _fit_clone}
+
+
+def _columns(recipe: Recipe, X: np.ndarray) -> list[str]:
+    return list(recipe.feature_names) if recipe.feature_names is not None else [f"x{j}" for j in range(X.shape[1])]
+
+
+def fit(recipe: Recipe, X: np.ndarray, y: np.ndarray, *, groups: list[list[int]] | None = None,
+        rounds: int | None = None, threads: int = 0, seed: int = 0) -> Any:
+    """Train the recipe's model on all of ``(X, y)`` for a fixed number of rounds (default the recipe's).
+
+    ``groups``: interaction-constraint groups of feature indices (None: the
+    family's own setting). ``threads``: threads of this fit (0 = all cores).
+    """
+    model, _ = _FITTERS[recipe.trainer](recipe, X, y, groups, _thread_count(threads), seed,
+                                        recipe.rounds if rounds is None else rounds, None, _columns(recipe, X))
+    return model
+
+
+def _thread_count(threads: int) -> int:
+    return threads if threads > 0 else (os.cpu_count() or 1)
 
 
 def _held_out_split(n_rows: int, inner_fraction: float, seed: int,
@@ -512,42 +792,69 @@ def _held_out_split(n_rows: int, inner_fraction: float, seed: int,
     return np.sort(np.concatenate(fit_parts)), np.sort(np.concatenate(stop_parts))
 
 
-def fit_early_stopped(library: str, module: Any, params: dict, X: np.ndarray, y: np.ndarray, *,
-                      max_rounds: int, patience: int, inner_fraction: float, seed: int,
-                      groups: list[list[int]] | None, columns: tuple[str, ...],
-                      stratify: bool = False) -> tuple[Any, int]:
+def fit_early_stopped(recipe: Recipe, X: np.ndarray, y: np.ndarray, *, groups: list[list[int]] | None = None,
+                      threads: int = 0, seed: int = 0, max_rounds: int | None = None, patience: int = PATIENCE,
+                      inner_fraction: float = INNER_FRACTION) -> tuple[Any, int]:
     """Fit on an inner split of ``(X, y)``, stop early on the rest; the model cut at its best round count.
 
-    A seeded split keeps ``inner_fraction`` of the rows for fitting and the
-    rest as the early-stopping hold-out (stratified by class when
-    ``stratify``). Boosting runs up to ``max_rounds`` and stops once the
-    library's default evaluation metric for the objective (e.g. RMSE,
-    log-loss) on the hold-out has not improved for ``patience`` rounds:
-    ``xgboost.train(..., evals, early_stopping_rounds)`` or LightGBM's
-    ``lightgbm.early_stopping`` callback.
+    Parameters
+    ----------
+    recipe : Recipe
+    X, y : ndarray
+        Design matrix (categorical features as codes) and target.
+    groups : list of list of int, optional
+        Interaction-constraint groups (None: the family's own setting).
+    threads : int, default 0
+        Threads of this fit (0 = all cores; 1 inside parallel workers).
+    seed : int, default 0
+        Seed of the split and of the library's sampling.
+    max_rounds : int, optional
+        Round budget; default :func:`round_budget`.
+    patience, inner_fraction
+        Rounds without improvement before stopping; share of rows fitted.
 
-    Returns the model fitted on the inner split, predicting with its first
-    ``best_rounds`` rounds only (XGBoost: the booster sliced to those rounds;
-    LightGBM: ``predict`` uses ``best_iteration``), and ``best_rounds`` (1-based).
+    Returns
+    -------
+    model, best_rounds
+        The model fitted on the inner split predicting with its first
+        ``best_rounds`` rounds only, and ``best_rounds`` (1-based).
+
+    Notes
+    -----
+    A seeded split keeps ``inner_fraction`` of the rows for fitting and the
+    rest as the hold-out (stratified by class for classifiers). Boosting runs
+    up to ``max_rounds`` and stops once the library's default loss for the
+    objective (RMSE, log-loss) on the hold-out has not improved for
+    ``patience`` rounds: ``xgboost.train(..., evals, early_stopping_rounds)``,
+    LightGBM's ``early_stopping`` callback, or HistGradientBoosting's
+    ``early_stopping`` with ``X_val``. Families without rounds to stop
+    (forests, single trees, classic gradient boosting clones) fit all rows
+    with their own settings.
     """
-    labels = y.astype(int) if stratify else None
+    columns = _columns(recipe, X)
+    if not recipe.boosted:
+        return _FITTERS[recipe.trainer](recipe, X, y, groups, _thread_count(threads), seed, recipe.rounds, None,
+                                        columns)
+    labels = y.astype(int) if recipe.task != REGRESSION else None
     fit_rows, stop_rows = _held_out_split(len(y), inner_fraction, seed, labels)
-    if library == "xgboost":
-        run = dict(params)
-        if groups is not None:
-            run["interaction_constraints"] = xgboost_constraint_text(groups)
-        fit_data = module.DMatrix(X[fit_rows], y[fit_rows], feature_names=list(columns))
-        stop_data = module.DMatrix(X[stop_rows], y[stop_rows], feature_names=list(columns))
-        booster = module.train(run, fit_data, num_boost_round=max_rounds, evals=[(stop_data, "early_stop")],
-                               early_stopping_rounds=patience, verbose_eval=False)
-        best_rounds = int(booster.best_iteration) + 1
-        return booster[:best_rounds], best_rounds
-    run = {**params, "verbosity": -1}
-    if groups is not None:
-        run["interaction_constraints"] = groups
-    fit_data = module.Dataset(X[fit_rows], y[fit_rows], feature_name=list(columns), params={"verbosity": -1})
-    stop_data = module.Dataset(X[stop_rows], y[stop_rows], reference=fit_data)
-    booster = module.train(run, fit_data, num_boost_round=max_rounds, valid_sets=[stop_data],
-                           callbacks=[module.early_stopping(patience, verbose=False)])
-    best_rounds = int(booster.best_iteration) if booster.best_iteration > 0 else booster.current_iteration()
-    return booster, best_rounds
+    budget = round_budget(recipe) if max_rounds is None else max_rounds
+    return _FITTERS[recipe.trainer](recipe, X[fit_rows], y[fit_rows], groups, _thread_count(threads), seed, budget,
+                                    (X[stop_rows], y[stop_rows], patience), columns)
+
+
+def predict_response(recipe: Recipe, model: Any, X: np.ndarray) -> np.ndarray:
+    """Predictions on the response scale: values for regression, class probabilities for classifiers.
+
+    Binary: probability of class 1, shape (n_rows,); multiclass: shape (n_rows, n_classes).
+    """
+    if recipe.library == "xgboost":
+        module = import_library("xgboost")
+        predicted = model.predict(_xgboost_data(module, recipe, X, None, _columns(recipe, X)))
+        # logitraw predicts the margin; the scores need probabilities.
+        return 1.0 / (1.0 + np.exp(-predicted)) if recipe.objective == "binary:logitraw" else predicted
+    if recipe.library == "lightgbm":
+        return model.predict(X)
+    if recipe.task == REGRESSION:
+        return model.predict(X)
+    probability = model.predict_proba(X)
+    return probability[:, 1] if recipe.task == BINARY else probability

@@ -67,40 +67,39 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass, field, fields
+from functools import partial
 from itertools import combinations
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from scipy.stats import spearmanr
 from sklearn.feature_selection import mutual_info_classif, mutual_info_regression
 
 from .checks import check_bool, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
 from .data import model_matrix
-from .errors import DataError, ParameterError, UnsupportedModelError
+from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
 from .measure import h_statistic
 from .output import to_jsonable
+from .parallel import run_tasks, threads_per_fit
 from .progress import progress_bar
 from .refit import (
     BINARY,
     REGRESSION,
     Recipe,
-    check_retrainable,
-    design_matrix,
-    fit_model,
-    import_library,
-    live_training_params,
-    predict_model,
-    task_of,
+    checked_target,
+    constrained_substitute,
+    fit,
+    fit_early_stopped,
+    live_model_of,
+    predict_response,
     training_recipe,
-    with_threads,
 )
 
-__all__ = ["TriageResult", "triage", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
+__all__ = ["TriageResult", "triage", "class_analysed", "label_change_share", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
 
 # The one verdict order: tables, tallies, legends and rules follow it.
 VERDICTS = ("interaction", "dependent", "co-split", "absent")
@@ -120,7 +119,9 @@ LIMITS = (
     "are not the data-generating process's. Where the model decides about people (credit, health, hiring), this "
     "supports, and does not replace, the model-risk review that local rules require."
 )
-_SCHEMA = "treeprobe.triage/2"
+_SCHEMA = "treeprobe.triage/3"
+# Expected share of changed labels under which the classification null is called separable (our convention).
+_SEPARABLE_SHARE = 0.01
 _STRUCTURE_DEFAULTS = (("paths", 0), ("trees", 0), ("cover_share", 0.0), ("nested_gain", 0.0), ("first_level", -1),
                        ("first_tree", -1))
 
@@ -263,10 +264,13 @@ class TriageResult:
 
 
 # --------------------------------------------------------------------- data
-def _split_target(X: Any, y: Any) -> tuple[Any, Any]:
+def _split_target(X: Any, y: Any, graph: ForestGraph) -> tuple[Any, Any]:
     if isinstance(y, str):
         if not isinstance(X, pd.DataFrame):
             raise DataError(f"y={y!r} names a column, but X is not a DataFrame")
+        if y in graph.feature_names:
+            raise DataError(f"target column {y!r} is one of the model's features; name the column the model was "
+                            "trained to predict")
         if y not in X.columns:
             raise DataError(f"target column {y!r} is not in the data; columns are {', '.join(map(str, X.columns))}")
         return X.drop(columns=[y]), X[y].to_numpy()
@@ -278,12 +282,36 @@ def _split_target(X: Any, y: Any) -> tuple[Any, Any]:
     return X, target
 
 
-def _check_refits_possible(graph: ForestGraph) -> None:
-    """Fail before any H computation when the noise-floor refits cannot run, and say what still works."""
+def class_analysed(graph: ForestGraph, output: int) -> str | None:
+    """Which class a classifier's statistics describe, in words; None for a regression model.
+
+    Binary models with one margin describe the positive class (log-odds);
+    multiclass models one output (class) at a time.
+
+    Examples
+    --------
+    >>> from treeprobe.graph import ForestGraph
+    >>> stump = ForestGraph.from_arrays(feature=[0, -1, -1], threshold=[0.5, 0, 0], left=[1, -1, -1],
+    ...                                 right=[2, -1, -1], value=[0.0, -1.0, 1.0], tree_offsets=[0, 3], link="logit")
+    >>> class_analysed(stump, 0)
+    'class 1 (the positive class; log-odds margin)'
+    """
+    labels = graph.provenance.class_labels
+    if graph.n_outputs > 1:
+        label = labels[output] if output < len(labels) else output
+        return f"class {label} (output {output} of {graph.n_outputs})"
+    if graph.link in ("logit", "proba") or len(labels) == 2:
+        positive = labels[1] if len(labels) == 2 else 1
+        return f"class {positive} (the positive class; {'log-odds margin' if graph.link == 'logit' else 'probability'})"
+    return None
+
+
+def _refit_recipe(graph: ForestGraph, live_model: Any, params: dict | None) -> Recipe:
+    """The recipe of the noise-floor refits, built before any H computation; a model that cannot be refit says what still runs."""
     try:
-        check_retrainable(graph)
-    except UnsupportedModelError as exc:
-        raise UnsupportedModelError(
+        return training_recipe(graph, live_model=live_model, params=params)
+    except (UnsupportedModelError, MissingLibraryError) as exc:
+        raise type(exc)(
             f"{exc}. The noise floor needs refits; without them the triage still runs: give no target "
             "(command line: leave out --target) or null_refits=0 (--null-refits 0)"
         ) from None
@@ -384,50 +412,95 @@ def _synthetic_target(task: str, target: np.ndarray, fitted: np.ndarray, seed: i
     return (draw.random((target.size, 1)) > cumulative[:, :-1]).sum(axis=1).astype(np.float64)
 
 
-def _threads_per_fit(n_jobs: int) -> int:
-    """Threads of one refit: 1 inside parallel workers (never threads x workers), all cores (0) for lone fits."""
-    return 1 if n_jobs != 1 else 0
+def label_change_share(task: str, target: np.ndarray, fitted: np.ndarray) -> float:
+    """Expected share of rows whose label drawn from the additive probabilities differs from the real one.
+
+    Binary: mean of ``y (1 - p) + (1 - y) p``; multiclass: mean of
+    ``1 - p[y]``; NaN for regression. Near 0 the null refits see the real
+    labels again (the additive fit separates the classes).
+    """
+    if task == REGRESSION:
+        return float("nan")
+    if task == BINARY:
+        p = np.clip(fitted.ravel(), 0.0, 1.0)
+        return float(np.mean(target * (1.0 - p) + (1.0 - target) * p))
+    probability = fitted.reshape(target.size, -1)
+    return float(np.mean(1.0 - probability[np.arange(target.size), target.astype(int)]))
 
 
-def _null_h(graph: ForestGraph, live_params: dict, X: Any, y: np.ndarray, rows: Any, names: list[tuple[str, str]], *,
-            refits: int, params: dict | None, output: int | None, random_state: int, n_jobs: int,
-            progress: bool | None) -> tuple[np.ndarray, list[str], Recipe]:
+def _separable_note(share: float) -> str:
+    return (f"The additive fit separates the classes almost perfectly: a label drawn from it differs from the real one "
+            f"on {share:.2%} of rows (expected), so every null refit sees nearly the real labels and reproduces the "
+            "model. The floor then asks whether the labels need any interaction at all, and an additive model already "
+            "explains them: a pair below the floor may still be used by this model, but the data give no evidence "
+            "that it is needed. A pair above it is used far beyond what the labels require.")
+
+
+@dataclass(frozen=True)
+class _NullSetup:
+    """What every null refit shares: the recipe, the coded data, the additive fit's predictions, the pairs."""
+
+    recipe: Recipe
+    matrix: np.ndarray
+    target: np.ndarray
+    fitted: np.ndarray
+    rows: np.ndarray
+    names: list[tuple[str, str]]
+    output: int | None
+    threads: int
+
+
+def _one_null(setup: _NullSetup, seed: int) -> tuple[np.ndarray, int]:
+    """H² and h of every pair on one model refitted, early-stopped, to a synthetic target without interaction."""
+    synthetic = _synthetic_target(setup.recipe.task, setup.target, setup.fitted, seed)
+    model, rounds = fit_early_stopped(setup.recipe, setup.matrix, synthetic, threads=setup.threads, seed=seed)
+    refit = load_model(model, feature_names=setup.recipe.feature_names)
+    return _pair_h(refit, setup.rows, setup.names, setup.output), rounds
+
+
+def _additive_fit(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, seed: int) -> tuple[np.ndarray, int, Recipe]:
+    """Predictions of the additive version of the model (each feature alone), its early-stopped rounds, its recipe.
+
+    A family without interaction constraints takes its additive fit from the
+    nearest family that has them (:func:`treeprobe.refit.constrained_substitute`).
+    """
+    base = constrained_substitute(recipe)
+    singles = [[j] for j in range(matrix.shape[1])]
+    _, rounds = fit_early_stopped(base, matrix, target, groups=singles, threads=0, seed=seed)
+    additive = fit(base, matrix, target, groups=singles, rounds=rounds, threads=0, seed=seed)
+    return np.asarray(predict_response(base, additive, matrix), dtype=np.float64), rounds, base
+
+
+def _null_h(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.ndarray, names: list[tuple[str, str]], *,
+            refits: int, output: int | None, random_state: int, n_jobs: int,
+            progress: bool | None) -> tuple[np.ndarray, list[str], dict]:
     """H² and h of every pair on ``refits`` models refitted to targets without interaction ([1]_, section 8.3).
 
-    Returns an array of shape (refits, 2, n_pairs), notes for the reader and the recipe used.
+    ``matrix`` holds all rows (categorical features as the model's codes),
+    ``rows`` the coded rows H is computed on. Each refit is early-stopped on
+    its own inner split. Returns an array of shape (refits, 2, n_pairs),
+    notes for the reader and facts (rounds, label change share).
     """
-    recipe = training_recipe(graph, params=params, live_params=live_params)
-    library, rounds = recipe.library, recipe.rounds
-    matrix, target, columns = design_matrix(X, y, recipe.feature_names)
-    module = import_library(library)
-    objective = str(recipe.params.get("objective", graph.objective))
-    task = task_of(library, objective)
-    additive_groups = [[j] for j in range(matrix.shape[1])]
-    additive = fit_model(library, module, with_threads(recipe, 0), matrix, target, rounds, additive_groups, columns)
-    fitted = np.asarray(predict_model(library, module, additive, matrix, columns, objective), dtype=np.float64)
-    seeds = np.random.default_rng(random_state).integers(0, 2**31 - 1, size=refits)
-    run_params = with_threads(recipe, _threads_per_fit(n_jobs))
-
-    def one(seed: int) -> np.ndarray:
-        synthetic = _synthetic_target(task, target, fitted, seed)
-        refit = load_model(fit_model(library, module, run_params, matrix, synthetic, rounds, None, columns),
-                           feature_names=columns)
-        return _pair_h(refit, rows, names, output)
-
-    with progress_bar(refits, "null refits", enabled=progress) as bar:
-        if n_jobs == 1:
-            values = []
-            for seed in seeds:
-                values.append(one(int(seed)))
-                bar.update()
-        else:
-            values = Parallel(n_jobs=n_jobs)(delayed(one)(int(seed)) for seed in seeds)
-            bar.update(refits)
-    notes = list(recipe.notes) + [
-        f"Noise floor from {refits} refits of the {library} model on synthetic targets without interaction "
-        f"({'additive fit plus permuted residuals' if task == REGRESSION else 'labels drawn from the additive fit'})."
-    ]
-    return np.stack(values) if values else np.zeros((0, 2, len(names))), notes, recipe
+    task = recipe.task
+    fitted, additive_rounds, base = _additive_fit(recipe, matrix, target, random_state)
+    share = label_change_share(task, target, fitted)
+    setup = _NullSetup(recipe, matrix, target, fitted, rows, names, output, threads_per_fit(n_jobs))
+    seeds = [int(s) for s in np.random.default_rng(random_state).integers(0, 2**31 - 1, size=refits)]
+    results = run_tasks(partial(_one_null, setup), seeds, n_jobs=n_jobs, label="null refits", progress=progress)
+    rounds = [r for _, r in results]
+    draw = "additive fit plus permuted residuals" if task == REGRESSION else "labels drawn from the additive fit"
+    stopped = (f"each early-stopped on its own 80/20 inner split at {min(rounds)}-{max(rounds)} rounds (the model has "
+               f"{recipe.rounds})" if recipe.boosted else f"each with the estimator's own {recipe.rounds} rounds (not "
+               "boosted rounds: no early stopping)")
+    notes = [*recipe.notes, *(base.notes if base is not recipe else []),
+             f"Noise floor from {refits} refits of the {recipe.family} model on synthetic targets without interaction "
+             f"({draw}; additive fit early-stopped at {additive_rounds} rounds), {stopped}."]
+    separable = task != REGRESSION and share < _SEPARABLE_SHARE
+    if separable:
+        notes.append(_separable_note(share))
+    facts = {"null_rounds": rounds, "additive_rounds": additive_rounds, "additive_family": base.family,
+             "label_change_share": None if task == REGRESSION else share, "null_separable": separable}
+    return np.stack([v for v, _ in results]), notes, facts
 
 
 # ------------------------------------------------------------------ tables
@@ -507,21 +580,20 @@ def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resam
     return frame
 
 
-def _with_noise_floor(frame: pd.DataFrame, graph: ForestGraph, live_params: dict, X: Any, target: np.ndarray | None,
-                      rows: Any, *, refits: int, quantile: float, params: dict | None, output: int | None,
-                      random_state: int, n_jobs: int,
-                      progress: bool | None) -> tuple[pd.DataFrame, list[str], Recipe | None]:
-    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits), refit notes and recipe."""
+def _with_noise_floor(frame: pd.DataFrame, recipe: Recipe | None, matrix: np.ndarray, target: np.ndarray | None,
+                      rows: np.ndarray, *, refits: int, quantile: float, output: int | None, random_state: int,
+                      n_jobs: int, progress: bool | None) -> tuple[pd.DataFrame, list[str], dict]:
+    """Add ``null_h2`` and ``null_h`` (the refits' quantile; NaN without a target or refits), refit notes and facts."""
     sharing, names = _sharing(frame)
     null = np.full((2, len(frame)), np.nan)
     notes: list[str] = []
-    recipe = None
-    if target is not None and refits and names:
-        values, notes, recipe = _null_h(graph, live_params, X, target, rows, names, refits=refits, params=params,
-                                output=output, random_state=random_state, n_jobs=n_jobs, progress=progress)
+    facts: dict = {}
+    if recipe is not None and target is not None and refits and names:
+        values, notes, facts = _null_h(recipe, matrix, target, rows, names, refits=refits, output=output,
+                                       random_state=random_state, n_jobs=n_jobs, progress=progress)
         null[:, sharing] = np.quantile(values, quantile, axis=0)
     frame["null_h2"], frame["null_h"] = null[0], null[1]
-    return frame, notes, recipe
+    return frame, notes, facts
 
 
 def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray, random_state: int) -> pd.DataFrame:
@@ -663,7 +735,6 @@ def triage(
     """
     started = time.perf_counter()
     graph = load_model(model)
-    live_params = live_training_params(model)
     thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
                                      null_quantile=null_quantile, confidence=confidence)
     triples = check_bool("triples", triples)
@@ -678,10 +749,11 @@ def triage(
     if params is not None and not isinstance(params, dict):
         raise ParameterError(f"params must be a dict of training parameters or None, got {type(params).__name__}")
 
-    X, target = _split_target(X, y)
-    if target is not None and null_refits:
-        _check_refits_possible(graph)
+    X, target = _split_target(X, y, graph)
+    recipe = _refit_recipe(graph, live_model_of(model), params) if target is not None and null_refits else None
     matrix_all = model_matrix(graph, X)
+    if recipe is not None:
+        target = checked_target(target, matrix_all.shape[0], recipe.task)
     rng = np.random.default_rng(random_state)
     chosen = _sample_rows(matrix_all, sample, rng)
     rows, matrix = _take_rows(X, chosen), matrix_all[chosen]
@@ -698,9 +770,9 @@ def triage(
     frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
                             output=h_output, progress=progress)
     frame["effect"] = frame["h"] / scale
-    frame, refit_notes, recipe = _with_noise_floor(frame, graph, live_params, X, target, rows, refits=null_refits,
-                                           quantile=thresholds["null_quantile"], params=params, output=h_output,
-                                           random_state=random_state, n_jobs=n_jobs, progress=progress)
+    frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, matrix_all, target, matrix, refits=null_refits,
+                                                       quantile=thresholds["null_quantile"], output=h_output,
+                                                       random_state=random_state, n_jobs=n_jobs, progress=progress)
     frame = _with_dependence(frame, graph, matrix, random_state)
     frame = _with_verdicts(frame, thresholds)
     triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
@@ -715,12 +787,18 @@ def triage(
         "has_target": target is not None,
         "prediction_sd": prediction_sd,
         "output": output,
+        "class_analysed": class_analysed(graph, output),
         "scale": "margin",
         "seconds": time.perf_counter() - started,
         "refit_notes": refit_notes,
         "refit_recipe": None if recipe is None else recipe.to_dict(),
         "refit_recipe_text": "" if recipe is None else recipe.describe(),
-        "refit_threads_per_fit": None if recipe is None else _threads_per_fit(n_jobs),
+        "refit_threads_per_fit": None if recipe is None else threads_per_fit(n_jobs),
+        "null_rounds": null_facts.get("null_rounds", []),
+        "additive_rounds": null_facts.get("additive_rounds"),
+        "additive_family": null_facts.get("additive_family"),
+        "label_change_share": null_facts.get("label_change_share"),
+        "null_separable": bool(null_facts.get("null_separable", False)),
     }
     return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
                         ensemble=graph, rules=_rules(thresholds, has_floor), thresholds=thresholds, facts=facts)

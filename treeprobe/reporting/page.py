@@ -104,6 +104,7 @@ def _summary(graph: ForestGraph, result: Any, *, rows_available: int, target_tex
             ("Rows", f"{number_text(n_rows)} used for H-statistics and dependence, of "
                      f"{number_text(facts.get('n_rows_available', rows_available))} available"),
             ("Target", target_text),
+            *([("Class analysed", facts["class_analysed"])] if facts.get("class_analysed") else []),
         ],
         "computed": [
             ("Path structure", "every root-to-leaf path of every tree (no data needed)"),
@@ -113,6 +114,7 @@ def _summary(graph: ForestGraph, result: Any, *, rows_available: int, target_tex
              if resamples else "none (no resamples): point values only"),
             ("Noise floor", f"{refits} refits on targets without interaction" if refits
              else "no refits: the floor is the convention min_h2 only"),
+            *([("Refit recipe", facts["refit_recipe_text"])] if facts.get("refit_recipe_text") else []),
             ("Triage", f"run by this report (it took {took})" if triage_origin is None
              else f"{triage_origin} (it took {took})"),
         ],
