@@ -103,19 +103,19 @@ def test_histgradientboosting_refits_and_validation_use_interaction_cst(sklearn_
     from sklearn.ensemble import HistGradientBoostingRegressor
 
     X, y = sklearn_data
-    model = HistGradientBoostingRegressor(max_iter=80, learning_rate=0.1, random_state=0).fit(X, y)
+    model = HistGradientBoostingRegressor(max_iter=30, learning_rate=0.2, random_state=0).fit(X, y)
     recipe = training_recipe(treeprobe.load_model(model), live_model=model)
-    assert recipe.trainer == "hist" and recipe.rounds == 80 and recipe.origins["learning_rate"] == "stored"
+    assert recipe.trainer == "hist" and recipe.rounds == 30 and recipe.origins["learning_rate"] == "stored"
     groups = [[0, 1], [2], [3]]
     refit, rounds = fit_early_stopped(recipe, X.to_numpy(), y, groups=groups, threads=1, seed=0)
-    assert 1 <= rounds <= 640 and refit.n_iter_ == rounds
+    assert 1 <= rounds <= 240 and refit.n_iter_ == rounds
     assert _crossing(treeprobe.load_model(refit, feature_names=list(X.columns)),
                      [["oven_c", "proof_min"], ["flour_pct"], ["salt_g"]]) == []
     result = treeprobe.triage(model, X, y, sample=300, resamples=0, null_refits=2)
     assert result.facts["additive_family"] == "HistGradientBoostingRegressor"
     first = result.pairs.iloc[0]
     assert {first["feature_a"], first["feature_b"]} == {"oven_c", "proof_min"} and first["verdict"] == "interaction"
-    checked = treeprobe.validate_constraints(model, X, y, [["oven_c", "proof_min"]], folds=3)
+    checked = treeprobe.validate_constraints(model, X, y, [["oven_c", "proof_min"]], folds=2)
     assert checked.summary["family"] == "HistGradientBoostingRegressor" and checked.cross_group_pairs == []
     assert checked.summary["rmse"]["difference_mean"] < 0.05 * checked.summary["rmse"]["unconstrained_mean"]
 
