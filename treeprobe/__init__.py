@@ -37,6 +37,8 @@ _HOMES = {
     "write_graphml": "constraints",
     "ConstraintSuggestion": "constraints",
     "ValidationResult": "constraints",
+    "check_constraints": "policy",
+    "PolicyResult": "policy",
     "load_data": "data",
     "prepare_data": "data",
     "DataReport": "data",
