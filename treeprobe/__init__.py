@@ -39,6 +39,8 @@ _HOMES = {
     "ValidationResult": "constraints",
     "check_constraints": "policy",
     "PolicyResult": "policy",
+    "compare_models": "compare",
+    "ModelComparison": "compare",
     "load_data": "data",
     "prepare_data": "data",
     "DataReport": "data",
