@@ -252,7 +252,7 @@ def test_group_sources_agree(models, group_file, tmp_path):
     "groups, forbid, message",
     [
         ([["fuel_prise", "shift_length"]], None, "group 0: the model has no feature 'fuel_prise'; did you mean 'fuel_price'?"),
-        (None, "crew_sise:*", "forbid: the model has no feature 'crew_sise'; did you mean 'crew_size'?"),
+        (None, "crew_sise:*", "forbid crew_sise:*: the model has no feature 'crew_sise'; did you mean 'crew_size'?"),
         ([[0, 1]], None, "group 0 holds 0; give feature names"),
         ([["fuel_price", "fuel_price"]], None, "group 0 lists a feature twice"),
         ([[]], None, "group 0 must be a non-empty list"),

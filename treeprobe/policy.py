@@ -174,15 +174,17 @@ def read_groups(source: Any) -> list[list[str]]:
     return out
 
 
-def _forbidden_item(item: str) -> tuple[str, str]:
+def _forbidden_item(item: str, name: str) -> tuple[str, str]:
     parts = [part.strip() for part in item.split(":")]
     if len(parts) != 2 or not all(parts):
-        raise ParameterError(f"forbid expects name:name or name:* items separated by commas, got {item!r}")
+        raise ParameterError(f"{name} expects name:name or name:* items separated by commas, got {item!r}")
     return parts[0], parts[1]
 
 
-def parse_forbidden(forbid: str | Sequence[Sequence[str]] | None) -> list[tuple[str, str]]:
+def parse_forbidden(forbid: str | Sequence[Sequence[str]] | None, *, name: str = "forbid") -> list[tuple[str, str]]:
     """Forbidden pairs from ``"a:b,c:*"`` text or a sequence of pairs; ``*`` stands for any feature.
+
+    ``name`` is the option named in errors (``--forbid`` on the command line).
 
     Raises
     ------
@@ -197,21 +199,21 @@ def parse_forbidden(forbid: str | Sequence[Sequence[str]] | None) -> list[tuple[
     if forbid is None:
         return []
     if isinstance(forbid, str):
-        pairs = [_forbidden_item(item.strip()) for item in forbid.split(",") if item.strip()]
+        pairs = [_forbidden_item(item.strip(), name) for item in forbid.split(",") if item.strip()]
         if not pairs:
-            raise ParameterError("forbid is empty; give pairs such as age:income or postcode:*")
+            raise ParameterError(f"{name} is empty; give pairs such as age:income or postcode:*")
     elif isinstance(forbid, Sequence):
         pairs = []
         for item in forbid:
             if (isinstance(item, str) or not isinstance(item, Sequence) or len(item) != 2
                     or not all(isinstance(n, str) and n for n in item)):
-                raise ParameterError(f"forbid must hold pairs of feature names (or '*'), got {item!r}")
+                raise ParameterError(f"{name} must hold pairs of feature names (or '*'), got {item!r}")
             pairs.append((item[0], item[1]))
     else:
-        raise ParameterError(f"forbid must be 'a:b,c:*' text or a sequence of name pairs, got {forbid!r}")
+        raise ParameterError(f"{name} must be 'a:b,c:*' text or a sequence of name pairs, got {forbid!r}")
     for a, b in pairs:
         if a == b and a != ANY_FEATURE:
-            raise ParameterError(f"forbid pairs {a!r} with itself; a pair needs two different features")
+            raise ParameterError(f"{name} pairs {a!r} with itself; a pair needs two different features")
     return pairs
 
 
@@ -289,11 +291,12 @@ def paths_outside_groups(graph: ForestGraph, groups: list[list[int]], names: Seq
     return crossing, [[names[j] for j in np.flatnonzero(row)] for row in stray]
 
 
-def _forbidden_matrix(forbidden: list[tuple[str, str]], names: Sequence[str], where: str) -> list[np.ndarray]:
+def _forbidden_matrices(forbidden: list[tuple[str, str]], names: Sequence[str]) -> list[np.ndarray]:
     """One symmetric (features x features) boolean matrix per forbidden rule; ``*`` spans every other feature."""
     n = len(names)
     matrices = []
     for a, b in forbidden:
+        where = f"forbid {a}:{b}"
         rows = np.arange(n) if a == ANY_FEATURE else [_feature_index(a, names, where)]
         cols = np.arange(n) if b == ANY_FEATURE else [_feature_index(b, names, where)]
         matrix = np.zeros((n, n), dtype=bool)
@@ -474,7 +477,7 @@ def check_constraints(
     graph = load_model(model)
     names = graph.feature_names
     index_groups = None if named_groups is None else _index_groups(named_groups, names, where)
-    rules = list(zip([f"{a}:{b}" for a, b in forbidden], _forbidden_matrix(forbidden, names, "forbid"), strict=True))
+    rules = list(zip([f"{a}:{b}" for a, b in forbidden], _forbidden_matrices(forbidden, names), strict=True))
     membership = None if index_groups is None else _membership(index_groups, graph.n_features)
     allowed = None if membership is None else (membership.T.astype(np.int64) @ membership.astype(np.int64)) > 0
     pairs = structure(graph, max_order=2).pairs
