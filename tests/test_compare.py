@@ -13,6 +13,7 @@ exactly.
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -199,3 +200,33 @@ def test_json_and_bad_options(versions):
         compare_models(paths["grouped"], paths["free"], triage_options=QUICK)
     with pytest.raises(ParameterError, match="'null_refits' not accepted"):
         compare_models(paths["grouped"], paths["free"], pd.DataFrame(), triage_options={"null_refits": 3})
+
+
+# --------------------------------------------------------------------- the report's section
+def _sections(page: str) -> dict[str, str]:
+    return dict(re.findall(r'<section id="([^"]+)">(.*?)</section>', page, flags=re.S))
+
+
+def test_report_section_on_changes_since_the_previous_version(versions, depot, tmp_path):
+    pytest.importorskip("matplotlib")
+    from treeprobe import report
+    from treeprobe.reporting import CHANGES_SECTION, SECTIONS
+
+    _, paths = versions
+    X, _ = depot
+    path = report(paths["free"], X, out=tmp_path / "depot.html", triage_options=QUICK, top_pairs=1,
+                  compare_with=paths["grouped"], progress=False)
+    sections = _sections(path.read_text(encoding="utf-8"))
+    expected = list(SECTIONS)
+    expected.insert(expected.index("cautions"), CHANGES_SECTION)
+    assert list(sections) == expected
+    changes = sections[CHANGES_SECTION]
+    diff = compare_models(paths["grouped"], paths["free"], X, triage_options=QUICK)
+    assert f"{diff.facts['counts']['pairs']['new']} pair(s) new" in changes
+    new = diff.pairs[diff.pairs["status"] == "new"]
+    assert changes.count("<td>new</td>") == len(new) > 0
+    assert "Verdict, new" in changes and "<td>interaction</td>" in changes
+    # A comparison made for another new version is refused before any work.
+    with pytest.raises(DataError, match="compare_with compares another new version"):
+        report(paths["lightgbm"], X, out=tmp_path / "other.html", triage_options=QUICK, compare_with=diff)
+    assert not (tmp_path / "other.html").exists()

@@ -43,7 +43,7 @@ from .output import dumps_json, to_jsonable
 from .verdicts import triage
 
 __all__ = ["ModelComparison", "compare_models", "STATUSES", "FLAGS", "FEATURE_COLUMNS", "PAIR_COLUMNS",
-           "VERDICT_COLUMNS", "LIMITS"]
+           "VERDICT_COLUMNS", "TRIAGE_OPTIONS", "LIMITS"]
 
 STATUSES = ("new", "gone", "changed", "same")
 FLAGS = ("new-pair", "new-interaction")
@@ -67,8 +67,10 @@ LIMITS = (
 _SCHEMA = "treeprobe.compare/1"
 # Shares and gains equal to this relative precision count as unchanged (float sums in another order).
 _RTOL = 1e-9
-# Triage options that need a target, which the comparison never passes.
-_TARGET_OPTIONS = ("null_refits", "null_quantile", "params", "n_jobs")
+# Options of the triage a comparison passes on: not those that need a target (it triages without one), and not
+# output and progress, which compare_models takes itself.
+TRIAGE_OPTIONS = tuple(name for name, p in inspect.signature(triage).parameters.items() if p.kind == p.KEYWORD_ONLY
+                       and name not in ("null_refits", "null_quantile", "params", "n_jobs", "output", "progress"))
 
 
 # --------------------------------------------------------------------- matching the two versions
@@ -160,12 +162,10 @@ def _checked_triage_options(options: Any) -> dict:
         return {}
     if not isinstance(options, dict):
         raise ParameterError(f"triage_options must be a dict of triage options or None, got {type(options).__name__}")
-    known = [name for name, p in inspect.signature(triage).parameters.items()
-             if p.kind == p.KEYWORD_ONLY and name not in (*_TARGET_OPTIONS, "output", "progress")]
-    unknown = sorted(set(options) - set(known))
+    unknown = sorted(set(options) - set(TRIAGE_OPTIONS))
     if unknown:
         raise ParameterError(f"triage_options: {', '.join(map(repr, unknown))} not accepted here; the comparison "
-                             f"triages without a target and accepts {', '.join(known)}")
+                             f"triages without a target and accepts {', '.join(TRIAGE_OPTIONS)}")
     return dict(options)
 
 
@@ -214,7 +214,7 @@ class ModelComparison:
     facts : dict
         ``old`` and ``new`` (source, library, objective, trees, input
         features), ``inputs_added``, ``inputs_removed``, ``counts`` (rows per
-        status of each table), ``has_data``, and with data ``n_rows``,
+        status of each table), ``output``, ``has_data``, and with data ``n_rows``,
         ``resamples``, ``thresholds`` and ``verdict_changes``; ``notes``.
     limits : str
 
@@ -377,7 +377,7 @@ def compare_models(
         "old": _model_facts(old_graph), "new": _model_facts(new_graph),
         "inputs_added": [n for n in new_graph.feature_names if n not in old_graph.feature_names],
         "inputs_removed": [n for n in old_graph.feature_names if n not in new_graph.feature_names],
-        "has_data": X is not None, "notes": _notes(old_graph, new_graph, walked),
+        "output": output, "has_data": X is not None, "notes": _notes(old_graph, new_graph, walked),
     }
     if X is not None:
         settings = {"progress": progress, **options, **({} if output is None else {"output": output})}
