@@ -225,7 +225,7 @@ def test_report_section_on_changes_since_the_previous_version(versions, depot, t
     assert f"{diff.facts['counts']['pairs']['new']} pair(s) new" in changes
     new = diff.pairs[diff.pairs["status"] == "new"]
     assert changes.count("<td>new</td>") == len(new) > 0
-    assert "Verdict, new" in changes and "<td>interaction</td>" in changes
+    assert "Verdict, new" in changes and "<td>interaction</td>" in changes and "<td>yes</td>" in changes
     # A comparison made for another new version is refused before any work.
     with pytest.raises(DataError, match="compare_with compares another new version"):
         report(paths["lightgbm"], X, out=tmp_path / "other.html", triage_options=QUICK, compare_with=diff)

@@ -8,7 +8,7 @@ columnar arrays of :class:`~treeprobe.graph.ForestGraph`, with vectorised
 numpy and no per-node Python loop; the structure walk
 (:mod:`treeprobe.cooccurrence`), the exact partial-dependence engine
 (:mod:`treeprobe.pdp`), the H-statistics (:mod:`treeprobe.measure`) and the
-constraint checks (:mod:`treeprobe.constraints`) all use it.
+policy check (:mod:`treeprobe.policy`, which also checks constrained refits) all use it.
 
 A leaf's value depends on the features of its root-to-leaf path only, so the
 feature sets found here bound which interactions a tree can express ([1]_,
