@@ -20,6 +20,7 @@ from treeprobe.paths import (
     leaf_feature_sets,
     leaf_steps,
     parent_links,
+    path_set_counts,
     sets_on_paths,
     tree_nodes,
 )
@@ -35,24 +36,29 @@ def booster_and_graph():
     return model.get_booster(), load_model(model)
 
 
-def _dump_leaf_sets(booster) -> set[frozenset[int]]:
-    """Feature sets of every root-to-leaf path, walked from XGBoost's own dump."""
+def _dump_leaves(booster) -> list[tuple[int, frozenset[int]]]:
+    """(tree, feature set of its path) of every leaf, walked from XGBoost's own dump."""
     frame = booster.trees_to_dataframe()
-    out: set[frozenset[int]] = set()
-    for _, tree in frame.groupby("Tree"):
+    out: list[tuple[int, frozenset[int]]] = []
+    for tree_index, tree in frame.groupby("Tree"):
         rows = {row.ID: row for row in tree.itertuples()}
 
-        def walk(node_id, above, rows=rows):
+        def walk(node_id, above, rows=rows, tree_index=tree_index):
             row = rows[node_id]
             if row.Feature == "Leaf":
-                out.add(frozenset(above))
+                out.append((int(tree_index), frozenset(above)))
                 return
             feature = int(row.Feature[1:])
-            walk(row.Yes, above | {feature}, rows)
-            walk(row.No, above | {feature}, rows)
+            walk(row.Yes, above | {feature})
+            walk(row.No, above | {feature})
 
-        walk(f"{int(tree.Tree.iloc[0])}-0", frozenset())
+        walk(f"{int(tree_index)}-0", frozenset())
     return out
+
+
+def _dump_leaf_sets(booster) -> set[frozenset[int]]:
+    """Feature sets of every root-to-leaf path, walked from XGBoost's own dump."""
+    return {features for _, features in _dump_leaves(booster)}
 
 
 def test_leaf_feature_sets_match_the_xgboost_dump(booster_and_graph):
@@ -67,6 +73,25 @@ def test_sets_on_paths_are_the_subsets_of_the_dump_paths(booster_and_graph):
         expected = sorted({tuple(sorted(c)) for s in _dump_leaf_sets(booster) for c in combinations(s, size)})
         got = [tuple(m) for m in decode_sets(sets_on_paths(graph, size), graph.n_features, size).tolist()]
         assert got == expected
+
+
+def test_path_set_counts_match_the_xgboost_dump(booster_and_graph, monkeypatch):
+    """Leaves, trees and first tree of every distinct path set equal a count over XGBoost's dump, in any chunking."""
+    booster, graph = booster_and_graph
+    expected: dict[frozenset[int], list] = {}
+    for tree, features in _dump_leaves(booster):
+        leaves, trees, first = expected.get(features, [0, set(), tree])
+        expected[features] = [leaves + 1, trees | {tree}, min(first, tree)]
+    import treeprobe.paths as paths_module
+
+    for chunk in (paths_module._CHUNK_NODES, 7):
+        monkeypatch.setattr(paths_module, "_CHUNK_NODES", chunk)
+        sets, leaves, trees, first_tree = path_set_counts(graph)
+        np.testing.assert_array_equal(sets, leaf_feature_sets(graph))
+        got = {frozenset(np.flatnonzero(row).tolist()): [int(n), int(t), int(f)]
+               for row, n, t, f in zip(sets, leaves, trees, first_tree, strict=True)}
+        assert got == {key: [n, len(t), f] for key, (n, t, f) in expected.items()}
+        assert leaves.sum() == graph.summary()["n_leaves"] == len(_dump_leaves(booster))
 
 
 def test_subset_of_trees_and_chunking(booster_and_graph, monkeypatch):

@@ -2,7 +2,9 @@
 
 Exit codes: 0 success, 1 bad input (model file, data; one line on standard
 error, the traceback only with ``--debug``), 2 usage error (an option value
-out of range is refused before any work starts).
+out of range is refused before any work starts), 3 the model breaks the
+policy (``check``) or the comparison holds a change named by ``--fail-on``
+(``diff``).
 """
 
 from __future__ import annotations
@@ -537,6 +539,142 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
     return 0
 
 
+# ------------------------------------------------------------- check / diff
+# A gate's own exit code, apart from bad input (1) and usage (2), so that a pipeline can tell them apart.
+EXIT_VIOLATION = 3
+_EXIT_CODES = ("Exit codes: 0 passed; 1 bad input (model, groups file or data; one line on standard error); "
+               "2 usage error; 3 violation (check: a path breaks the policy; diff: a change named by --fail-on).")
+# treeprobe.compare.FLAGS, written out so that --help does not import pandas; tests/test_cli_pipeline.py keeps them equal.
+_FAIL_ON_CHOICES = ("new-pair", "new-interaction")
+
+
+def _load_file(args: argparse.Namespace, path: str):
+    """A model other than args.model (diff reads two), loaded as _load does."""
+    return _load(argparse.Namespace(model=path, trust_pickle=args.trust_pickle))
+
+
+def _policy_lines(result: Any, args: argparse.Namespace) -> list[str]:
+    facts = result.facts
+    policy = []
+    if result.groups is not None:
+        policy.append(f"{len(result.groups)} group(s) from {args.groups}")
+        if facts["features_alone"]:
+            policy.append(f"in no group, allowed alone: {', '.join(facts['features_alone'])}")
+    if result.forbidden:
+        policy.append("forbidden: " + ", ".join(f"{a}:{b}" for a, b in result.forbidden))
+    lines = [
+        f"model      {facts['source']} ({facts['library']}, {facts['n_trees']:,} trees)",
+        f"policy     {'; '.join(policy)}",
+        f"checked    {facts['n_paths']:,} root-to-leaf paths ({facts['n_path_sets']:,} distinct feature sets), "
+        f"{facts['n_pairs_on_paths']:,} pairs sharing a path",
+    ]
+    if result.ok:
+        return lines + ["result     PASS: every path keeps the policy", "", _wrap(result.limits)]
+    kinds = result.violations["kind"].value_counts()
+    table = result.violations.assign(features=result.violations["features"].map(" & ".join))
+    return lines + [
+        f"result     FAIL: {kinds.get('pair', 0)} pair(s) and {kinds.get('path', 0)} path set(s) break the policy, "
+        f"on {facts['n_paths_breaking']:,} of {facts['n_paths']:,} paths (exit code {EXIT_VIOLATION})",
+        "", _table(table, "Breaches of the policy, most paths first", args.top), "", _wrap(result.limits),
+    ]
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from .policy import check_constraints, parse_forbidden
+
+    if args.groups is None and args.forbid is None:
+        raise _UsageError("check needs --groups FILE, --forbid PAIRS, or both")
+    try:
+        forbidden = parse_forbidden(args.forbid, name="--forbid")
+    except ParameterError as exc:
+        raise _UsageError(str(exc)) from None
+    result = check_constraints(_load(args), args.groups, forbid=forbidden)
+    if args.format == "json":
+        _emit_json(result.to_dict(), args)
+    else:
+        _emit("\n".join(_policy_lines(result, args)), args.out)
+    return 0 if result.ok else EXIT_VIOLATION
+
+
+# The table for people; every column (changes, nested gain, h) is in --format json and csv.
+_DIFF_PAIR_COLUMNS = ["feature_a", "feature_b", "status", "paths_old", "paths_new", "cover_share_old",
+                      "cover_share_new", "h2_old", "h2_new", "verdict_old", "verdict_new"]
+_DIFF_FEATURE_COLUMNS = ["feature", "status", "splits_old", "splits_new", "gain_share_old", "gain_share_new",
+                         "gain_share_change"]
+
+
+def _diff_data(args: argparse.Namespace, versions: Sequence[Any]) -> pd.DataFrame:
+    """The input columns of both versions from the data file; notes on coerced columns once each."""
+    import pandas as pd
+
+    from .data import load_data
+    from .errors import DataWarning
+
+    frames, notes = [], []
+    with warnings.catch_warnings():
+        # Columns one version does not use are the other's inputs: not worth a warning.
+        warnings.simplefilter("ignore", DataWarning)
+        for ens in versions:
+            frame, report = load_data(ens, args.data)
+            frames.append(frame)
+            notes += [note for note in report.coerced if note not in notes]
+    if not args.quiet:
+        for note in notes:
+            print(f"treeprobe: note: {note}", file=sys.stderr)
+    extra = frames[1].drop(columns=[c for c in frames[1].columns if c in frames[0].columns])
+    return pd.concat([frames[0], extra], axis=1)
+
+
+def _diff_lines(result: Any, args: argparse.Namespace, flagged: dict[str, pd.DataFrame]) -> list[str]:
+    facts = result.facts
+    counts = {name: ", ".join(f"{n} {status}" for status, n in tally.items()) for name, tally in facts["counts"].items()}
+    changed = f"; verdict changed for {facts['verdict_changes']}" if facts["has_data"] else " (give --data for verdicts)"
+    lines = [
+        f"old        {facts['old']['source']} ({facts['old']['library']}, {facts['old']['n_trees']:,} trees)",
+        f"new        {facts['new']['source']} ({facts['new']['library']}, {facts['new']['n_trees']:,} trees)",
+        f"pairs      {counts['pairs']}{changed}",
+        f"features   {counts['features']}",
+    ]
+    if facts["inputs_added"] or facts["inputs_removed"]:
+        lines.append(f"inputs     added: {', '.join(facts['inputs_added']) or 'none'}; "
+                     f"removed: {', '.join(facts['inputs_removed']) or 'none'}")
+    pairs = result.pairs[[c for c in _DIFF_PAIR_COLUMNS if c in result.pairs.columns]]
+    lines += ["", _table(pairs, "Pairs sharing a path in either version (new, gone, changed, same)", args.top), "",
+              _table(result.features[_DIFF_FEATURE_COLUMNS], "Features split on in either version", args.top)]
+    lines += [""] + [_wrap(note) for note in facts["notes"]] + [_wrap(result.limits)]
+    for flag, rows in flagged.items():
+        named = ", ".join(f"{a} & {b}" for a, b in zip(rows["feature_a"], rows["feature_b"], strict=True))
+        lines.append(f"fail-on    {flag}: {len(rows)} pair(s){': ' + named if named else ''}")
+    return lines
+
+
+def _cmd_diff(args: argparse.Namespace) -> int:
+    from .compare import compare_models
+
+    fail_on = list(dict.fromkeys(args.fail_on or []))
+    if "new-interaction" in fail_on and args.data is None:
+        raise _UsageError("--fail-on new-interaction compares verdicts and needs --data")
+    if args.data is None and (args.sample, args.resamples, args.seed) != (1000, 20, 0):
+        raise _UsageError("--sample, --resamples and --seed set the triage on data; give --data")
+    versions = (_load_file(args, args.old), _load_file(args, args.new))
+    data = _diff_data(args, versions) if args.data is not None else None
+    options = {"sample": None if args.sample == 0 else args.sample, "resamples": args.resamples,
+               "random_state": args.seed} if data is not None else None
+    result = compare_models(*versions, data, output=args.class_index, triage_options=options,
+                            progress=False if args.quiet else None)
+    flagged = {flag: result.flagged(flag) for flag in fail_on}
+    if args.format == "json":
+        _emit_json(result.to_dict(), args)
+    elif args.format == "csv":
+        _emit_csv({"pairs": result.pairs, "features": result.features}, args)
+    else:
+        _emit("\n".join(_diff_lines(result, args, flagged)), args.out)
+    hits = {flag: len(rows) for flag, rows in flagged.items() if len(rows)}
+    for flag, count in hits.items():
+        print(f"treeprobe: diff: --fail-on {flag}: {count} pair(s); exit code {EXIT_VIOLATION}", file=sys.stderr)
+    return EXIT_VIOLATION if hits else 0
+
+
 # ------------------------------------------------------------------- report
 def _cmd_report(args: argparse.Namespace) -> int:
     from .reporting import report
@@ -675,6 +813,49 @@ def _constrain_options(p: argparse.ArgumentParser) -> None:
     p.set_defaults(triples=True)
 
 
+def _check_command_options(p: argparse.ArgumentParser) -> None:
+    _add_model(p)
+    p.add_argument("--groups", metavar="FILE",
+                   help="feature groups allowed to interact: the JSON that 'treeprobe constrain --format json' writes, "
+                        "or a JSON list of lists of feature names; features in no group may only be used alone")
+    p.add_argument("--forbid", metavar="A:B,...",
+                   help="pairs that must never share a root-to-leaf path; '*' stands for any feature "
+                        "(e.g. postcode:*,age:income)")
+    p.add_argument("--format", choices=("table", "json"), default="table",
+                   help="table for people (default) or json for machines (schema treeprobe.policy/1)")
+    p.add_argument("--out", metavar="FILE", help="write to FILE (atomically) instead of standard output")
+    p.add_argument("--top", type=int, default=20, metavar="N", help="rows of the table in table format (default: 20)")
+    p.epilog = _EXIT_CODES
+
+
+def _diff_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("old", metavar="OLD", help="the previous version of the model (any format inspect reads)")
+    p.add_argument("new", metavar="NEW", help="the new version; it may come from another library")
+    p.add_argument("--trust-pickle", action="store_true",
+                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+    p.add_argument("--data", metavar="FILE",
+                   help="CSV (or Parquet) with the input columns of both versions: adds H², h and the verdict of "
+                        "each version (triage without target)")
+    p.add_argument("--fail-on", action="append", choices=_FAIL_ON_CHOICES, metavar="CHANGE",
+                   help="exit with code 3 when the comparison holds such a change: new-pair (a pair sharing a path "
+                        "only in the new version) or new-interaction (verdict interaction only in the new version; "
+                        "needs --data); repeatable")
+    p.add_argument("--sample", type=int, default=1000, metavar="N",
+                   help="rows drawn from the data for H and dependence (default 1000; 0 = all rows)")
+    p.add_argument("--resamples", type=int, default=20, metavar="B",
+                   help="half-size row subsamples for the intervals of H² and h (default 20)")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the row sample and subsamples (default 0)")
+    p.add_argument("--class", dest="class_index", type=int, default=None, metavar="I",
+                   help="compare class I of multiclass models (0-based class index)")
+    p.add_argument("--format", choices=("table", "json", "csv"), default="table",
+                   help="output format (default: table); json has schema treeprobe.compare/1")
+    _add_table(p, ("pairs", "features"), "pairs, features")
+    p.add_argument("--out", metavar="FILE", help="write to FILE (atomically) instead of standard output")
+    p.add_argument("--top", type=int, default=20, metavar="N", help="rows per table in table format (default: 20)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar and no notes on coerced columns")
+    p.epilog = _EXIT_CODES
+
+
 def _report_options(p: argparse.ArgumentParser) -> None:
     _add_model(p)
     p.add_argument("-o", "--out", dest="out_html", default="treeprobe-report.html", metavar="FILE",
@@ -713,6 +894,16 @@ _COMMANDS: tuple[tuple[str, Callable[[argparse.Namespace], int], Callable[[argpa
      "suggest interaction-constraint groups, export them, validate by retraining",
      "Suggest groups of features allowed to interact (from the triage), print them as XGBoost and LightGBM "
      "interaction_constraints, and optionally cross-validate the constrained model against the unconstrained one."),
+    ("check", _cmd_check, _check_command_options,
+     "gate: does every root-to-leaf path keep the feature groups and forbidden pairs?",
+     "Check every root-to-leaf path of a saved model against feature groups (the JSON that constrain writes, or a "
+     "JSON list of lists of names) and pairs that must never share a path. Reads the model file only: no data, no "
+     "training library, no network. Exits 3 when a path breaks the policy."),
+    ("diff", _cmd_diff, _diff_options,
+     "what changed in the interaction structure between two versions of a model",
+     "Compare two versions of a model, matched by feature name (they may come from different libraries): per "
+     "feature and pair, new, gone, changed or same, with the structure measures of both versions and their change; "
+     "with --data also H², h and the verdicts. --fail-on makes it a pipeline gate (exit 3)."),
     ("report", _cmd_report, _report_options,
      "one self-contained HTML page: verdicts, maps, partial dependence, constraints",
      "Run the triage on data and write one self-contained HTML page (inline CSS and images; opens from disk) with "
@@ -733,7 +924,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="treeprobe",
         description="Which feature interactions does a fitted tree ensemble really use?",
-        epilog="Run 'treeprobe COMMAND --help' for the options of a command.",
+        epilog="Run 'treeprobe COMMAND --help' for the options of a command. Exit codes: 0 success, 1 bad input, "
+               "2 usage error, 3 violation (check, diff --fail-on).",
     )
     parser.add_argument("--version", action="version", version=f"treeprobe {__version__}")
     parser.add_argument("--debug", action="store_true", help="show the full traceback on errors")

@@ -83,14 +83,13 @@ from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
 
 from .checks import check_choice, check_float, check_int, check_n_jobs, check_progress, check_seed
-from .cooccurrence import structure
 from .data import model_matrix
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
 from .output import atomic_write, dumps_json, to_jsonable
 from .parallel import run_tasks, threads_per_fit
-from .paths import leaf_feature_sets
+from .policy import paths_outside_groups as _cross_group  # the one check of paths against groups
 from .refit import (
     BINARY,
     INNER_FRACTION,
@@ -684,24 +683,6 @@ def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> 
         return scores
     probability = predicted.reshape(len(y), n_classes)
     return {"log_loss": float(log_loss(y, probability, labels=list(range(n_classes))))}
-
-
-def _cross_group(refit: ForestGraph, groups: list[list[int]],
-                 columns: tuple[str, ...]) -> tuple[list[tuple[str, str]], list[list[str]]]:
-    """Pairs on a path that no group contains, and path feature sets that no group contains."""
-
-    within = {pair for group in groups for pair in combinations(sorted(group), 2)}
-    position = {name: j for j, name in enumerate(refit.feature_names)}
-    pairs = structure(refit, max_order=2).pairs
-    crossing = [(a, b) for a, b in zip(pairs["feature_a"], pairs["feature_b"], strict=True)
-                if tuple(sorted((position[a], position[b]))) not in within]
-    membership = np.zeros((len(groups), len(columns)), dtype=bool)
-    for g, group in enumerate(groups):
-        membership[g, group] = True
-    path_sets = leaf_feature_sets(refit)
-    outside_counts = path_sets.astype(np.int64) @ (~membership).T.astype(np.int64)
-    stray = path_sets[~(outside_counts == 0).any(axis=1)]
-    return sorted(crossing), [[columns[j] for j in np.flatnonzero(row)] for row in stray]
 
 
 def _t_quantile(degrees: int) -> float:

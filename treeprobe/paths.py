@@ -8,7 +8,7 @@ columnar arrays of :class:`~treeprobe.graph.ForestGraph`, with vectorised
 numpy and no per-node Python loop; the structure walk
 (:mod:`treeprobe.cooccurrence`), the exact partial-dependence engine
 (:mod:`treeprobe.pdp`), the H-statistics (:mod:`treeprobe.measure`) and the
-constraint checks (:mod:`treeprobe.constraints`) all use it.
+policy check (:mod:`treeprobe.policy`, which also checks constrained refits) all use it.
 
 A leaf's value depends on the features of its root-to-leaf path only, so the
 feature sets found here bound which interactions a tree can express ([1]_,
@@ -40,6 +40,7 @@ array([1])
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from functools import lru_cache
 from itertools import combinations
 
@@ -57,6 +58,7 @@ __all__ = [
     "encode_sets",
     "decode_sets",
     "leaf_feature_sets",
+    "path_set_counts",
     "sets_on_paths",
     "leaf_steps",
 ]
@@ -231,17 +233,12 @@ def decode_sets(keys: np.ndarray, radix: int, size: int) -> np.ndarray:
     return members
 
 
-def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np.ndarray:
-    """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix.
-
-    ``trees`` restricts the walk to those tree indices (default: every tree).
-    A single-leaf tree contributes the empty set.
-    """
+def _leaf_masks(graph: ForestGraph, trees: np.ndarray | None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """Per chunk of whole trees: the tree index of every leaf and the uint64 mask of its path's features."""
     trees = np.arange(graph.n_trees) if trees is None else np.asarray(trees, dtype=np.int64)
     parent, _ = parent_links(graph)
     sizes = (graph.tree_offsets[trees + 1] - graph.tree_offsets[trees]).astype(np.int64)
     chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
-    found = [np.zeros((0, max(1, -(-graph.n_features // 64))), dtype=np.uint64)]
     for chunk in np.split(trees, np.flatnonzero(np.diff(chunk_of_tree)) + 1):
         if not chunk.size:
             continue
@@ -249,8 +246,66 @@ def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np
         local_parent = np.searchsorted(nodes, parent[nodes])
         masks = ancestor_masks(local_parent, graph.feature[nodes].astype(np.int64),
                                depth_levels(graph.depth[nodes]), graph.n_features)
-        found.append(np.unique(masks[graph.feature[nodes] < 0], axis=0))
+        tree_of_node = np.repeat(chunk, graph.tree_offsets[chunk + 1] - graph.tree_offsets[chunk])
+        leaf = graph.feature[nodes] < 0
+        yield tree_of_node[leaf], masks[leaf]
+
+
+def _no_masks(graph: ForestGraph) -> np.ndarray:
+    return np.zeros((0, max(1, -(-graph.n_features // 64))), dtype=np.uint64)
+
+
+def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np.ndarray:
+    """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix.
+
+    ``trees`` restricts the walk to those tree indices (default: every tree).
+    A single-leaf tree contributes the empty set.
+    """
+    found = [_no_masks(graph)] + [np.unique(masks, axis=0) for _, masks in _leaf_masks(graph, trees)]
     return mask_members(np.unique(np.concatenate(found), axis=0), graph.n_features)
+
+
+def path_set_counts(graph: ForestGraph) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Distinct feature sets of the root-to-leaf paths, with how many leaves and trees hold each.
+
+    Returns
+    -------
+    sets : ndarray of bool, shape (n_sets, n_features)
+        As :func:`leaf_feature_sets` (same rows, same order).
+    leaves : ndarray of int64
+        Leaves whose path splits on exactly the features of the set.
+    trees : ndarray of int64
+        Trees holding such a leaf.
+    first_tree : ndarray of int64
+        Smallest index of such a tree.
+
+    Examples
+    --------
+    Two trees: a stump on feature 0, and a tree splitting on 0 then 1 on the left.
+
+    >>> from treeprobe.graph import ForestGraph
+    >>> graph = ForestGraph.from_arrays(
+    ...     feature=[0, -1, -1, 0, 1, -1, -1, -1], threshold=[0.5, 0, 0, 0.5, 2.0, 0, 0, 0],
+    ...     left=[1, -1, -1, 1, 2, -1, -1, -1], right=[2, -1, -1, 4, 3, -1, -1, -1],
+    ...     value=[0, 1.0, 2.0, 0, 0, 1.0, 2.0, 3.0], tree_offsets=[0, 3, 8], local_children=True)
+    >>> sets, leaves, trees, first_tree = path_set_counts(graph)
+    >>> sets.astype(int).tolist(), leaves.tolist(), trees.tolist(), first_tree.tolist()
+    ([[1, 0], [1, 1]], [3, 2], [2, 1], [0, 1])
+    """
+    tree_parts, mask_parts, leaf_parts = [np.zeros(0, np.int64)], [_no_masks(graph)], [np.zeros(0, np.int64)]
+    for leaf_tree, masks in _leaf_masks(graph, None):
+        # One row per (tree, set): chunks hold disjoint trees, so rows per set count its trees.
+        rows, counts = np.unique(np.column_stack([leaf_tree.astype(np.uint64), masks]), axis=0, return_counts=True)
+        tree_parts.append(rows[:, 0].astype(np.int64))
+        mask_parts.append(rows[:, 1:])
+        leaf_parts.append(counts.astype(np.int64))
+    masks, set_of_row = np.unique(np.concatenate(mask_parts), axis=0, return_inverse=True)
+    set_of_row = set_of_row.ravel()
+    leaves = np.bincount(set_of_row, weights=np.concatenate(leaf_parts), minlength=len(masks)).astype(np.int64)
+    trees = np.bincount(set_of_row, minlength=len(masks)).astype(np.int64)
+    first_tree = np.full(len(masks), graph.n_trees, dtype=np.int64)
+    np.minimum.at(first_tree, set_of_row, np.concatenate(tree_parts))
+    return mask_members(masks, graph.n_features), leaves, trees, first_tree
 
 
 def sets_on_paths(graph: ForestGraph, size: int, trees: np.ndarray | None = None) -> np.ndarray:

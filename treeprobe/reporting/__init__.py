@@ -31,6 +31,10 @@ Sections of the page, each an HTML ``<section>`` whose ``id`` is listed in
 ``constraints``
     Suggested interaction-constraint groups, the parameters and snippets to
     copy, and the cross-validated cost when a validation is given.
+``changes`` (only with ``compare_with``)
+    Changes since the previous version: pairs and features new, gone or
+    changed (:func:`treeprobe.compare.compare_models`), placed before the
+    cautions.
 ``cautions``
     What the numbers cannot say, and the thresholds used.
 
@@ -55,6 +59,7 @@ import numpy as np
 import pandas as pd
 
 from ..checks import check_int, check_progress
+from ..compare import TRIAGE_OPTIONS, ModelComparison, compare_models
 from ..constraints import ConstraintSuggestion, ValidationResult, suggest_constraints
 from ..data import model_matrix
 from ..errors import DataError, ParameterError
@@ -64,10 +69,10 @@ from ..output import atomic_write
 from ..progress import progress_bar
 from ..verdicts import TriageResult, triage
 from .figures import Canvas, arc_layout, dependence_svg, draw_arc_diagram, pair_map_svg, pyplot, rounds_svg
-from .page import SECTIONS, render_page
+from .page import CHANGES_SECTION, SECTIONS, render_page
 from .style import VERDICT_STYLES
 
-__all__ = ["report", "SECTIONS", "VERDICT_STYLES"]
+__all__ = ["report", "SECTIONS", "CHANGES_SECTION", "VERDICT_STYLES"]
 
 _MAX_LINKED_FEATURES = 60
 
@@ -153,6 +158,34 @@ def _figure_rows(matrix: np.ndarray, n_rows: int, random_state: int) -> np.ndarr
     return matrix[np.sort(np.random.default_rng(random_state).choice(matrix.shape[0], size=n_rows, replace=False))]
 
 
+def _check_same_new_version(comparison: ModelComparison, graph: ForestGraph) -> None:
+    """A given comparison must have this model as its new version: same library, trees and splits per feature."""
+    new = comparison.facts.get("new", {})
+    same = (new.get("library"), new.get("n_trees"), new.get("n_features")) == (graph.library, graph.n_trees,
+                                                                              graph.n_features)
+    if same and comparison.facts.get("output") is None:
+        splits = dict(zip(graph.feature_names, graph.feature_totals()["splits"], strict=True))
+        same = all(splits.get(f) == n for f, n in zip(comparison.features["feature"], comparison.features["splits_new"],
+                                                        strict=True))
+    if not same:
+        raise DataError(f"compare_with compares another new version ({new.get('source')}: {new.get('library')}, "
+                        f"{new.get('n_trees')} trees) than this model ({graph.source}: {graph.library}, "
+                        f"{graph.n_trees} trees)")
+
+
+def _comparison(steps: _Steps, compare_with: Any, graph: ForestGraph, X: Any, triage_options: dict | None,
+                progress: bool | None) -> ModelComparison | None:
+    """The comparison with the previous version: given, or computed on the report's data with its triage options."""
+    if compare_with is None:
+        return None
+    if isinstance(compare_with, ModelComparison):
+        _check_same_new_version(compare_with, graph)
+        return compare_with
+    options = {key: value for key, value in (triage_options or {}).items() if key in TRIAGE_OPTIONS}
+    return steps.run("comparison with the previous version", compare_models, compare_with, graph, X,
+                     output=(triage_options or {}).get("output"), triage_options=options, progress=progress)
+
+
 def _leading_pairs(pairs: pd.DataFrame, count: int) -> pd.DataFrame:
     """Interaction and dependent pairs by strength, then the other pairs sharing paths in triage order."""
     strong = pairs[pairs["verdict"].isin(["interaction", "dependent"])].sort_values("strength", ascending=False,
@@ -216,6 +249,7 @@ def report(
     top_pairs: int = 4,
     title: str | None = None,
     triage_options: dict | None = None,
+    compare_with: Any = None,
     progress: bool | None = None,
 ) -> Path:
     """Write one self-contained HTML page on the feature interactions of a fitted tree ensemble.
@@ -249,6 +283,13 @@ def report(
     triage_options : dict, optional
         Keyword arguments for :func:`treeprobe.verdicts.triage` (``sample``,
         ``resamples``, ``null_refits``, ...).
+    compare_with : model or ModelComparison, optional
+        The previous version of the model (anything
+        :func:`treeprobe.load_model` accepts) or a comparison from
+        :func:`treeprobe.compare_models` with this model as the new version.
+        Adds the section "Changes since the previous version". A model is
+        compared on ``X`` (both versions triaged without a target, with the
+        ``triage_options`` that need none).
     progress : bool, optional
         Progress bars on standard error; default only on a terminal.
 
@@ -314,6 +355,8 @@ def report(
     steps = _Steps()
     graph = steps.run("load the model", load_model, model)
     matrix = model_matrix(graph, _features_of(X, y))
+    # First of the data steps: a previous version the data do not fit stops the report before the long triage.
+    comparison = _comparison(steps, compare_with, graph, _features_of(X, y), triage_options, progress)
     if triage_result is None:
         options = {"progress": progress, **(triage_options or {})}
         triage_result = steps.run("triage: structure, H-statistics, interval, noise floor, dependence", triage,
@@ -329,5 +372,6 @@ def report(
     figures = _draw_figures(canvas, steps, graph, figure_rows, triage_result, suggestion, leading, progress)
     text = render_page(graph=graph, result=triage_result, suggestion=suggestion, validation=validation,
                        figures=figures, steps=steps.times, triage_origin=triage_origin, target_text=_target_text(y),
-                       rows_available=matrix.shape[0], n_figure_rows=figure_rows.shape[0], title=title)
+                       rows_available=matrix.shape[0], n_figure_rows=figure_rows.shape[0], title=title,
+                       comparison=comparison)
     return atomic_write(target, lambda handle: handle.write(text))

@@ -15,15 +15,18 @@ from collections.abc import Sequence
 from typing import Any
 
 import jinja2
+import numpy as np
 import pandas as pd
 from markupsafe import Markup
 
 from ..graph import ForestGraph
 from .style import VERDICT_STYLES, number_text
 
-__all__ = ["SECTIONS", "HEADINGS", "render_page"]
+__all__ = ["SECTIONS", "CHANGES_SECTION", "HEADINGS", "render_page"]
 
 SECTIONS = ("summary", "pairs", "pair-map", "links", "dependence", "rounds", "constraints", "cautions")
+# Shown, before the cautions, only when the report compares the model with a previous version.
+CHANGES_SECTION = "changes"
 HEADINGS = {
     "summary": "Summary",
     "pairs": "Feature pairs and verdicts",
@@ -32,6 +35,7 @@ HEADINGS = {
     "dependence": "How the leading pairs act together",
     "rounds": "When the pairs entered the model",
     "constraints": "Suggested interaction constraints",
+    "changes": "Changes since the previous version",
     "cautions": "Cautions",
 }
 _MAX_TABLE_PAIRS = 40
@@ -194,25 +198,75 @@ def _validation(validation: Any) -> dict | None:
     }
 
 
+def _change_rows(frame: pd.DataFrame, columns: Sequence[tuple[str, str]]) -> list[list[tuple[str, bool]]]:
+    """Cells (text, is a number) of the rows that changed: ``field`` is a column, or ``m:old-new`` both versions."""
+    rows = []
+    for row in frame[frame["status"] != "same"].head(_MAX_TABLE_PAIRS).to_dict(orient="records"):
+        cells = []
+        for field, _ in columns:
+            if field.endswith(":old-new"):
+                measure = field.split(":")[0]
+                cells.append((f"{number_text(row[f'{measure}_old'])} → {number_text(row[f'{measure}_new'])}", True))
+            elif isinstance(row[field], (bool, np.bool_)):
+                cells.append(("yes" if row[field] else "no", False))
+            elif isinstance(row[field], str):
+                cells.append((row[field], False))
+            else:
+                cells.append((number_text(row[field]), True))
+        rows.append(cells)
+    return rows
+
+
+def _changes(comparison: Any) -> dict | None:
+    """The values of the section comparing this model with its previous version."""
+    if comparison is None:
+        return None
+    facts = comparison.facts
+    pair_columns = [("feature_a", "Feature a"), ("feature_b", "Feature b"), ("status", "Status"),
+                    ("paths:old-new", "Paths, old → new"), ("cover_share:old-new", "Cover share, old → new"),
+                    ("cover_share_change", "Change")]
+    if facts.get("has_data"):
+        pair_columns += [("h2:old-new", "H², old → new"), ("verdict_old", "Verdict, old"), ("verdict_new", "Verdict, new"),
+                         ("verdict_changed", "Verdict changed")]
+    feature_columns = [("feature", "Feature"), ("status", "Status"), ("splits:old-new", "Splits, old → new"),
+                       ("gain_share:old-new", "Gain share, old → new"), ("gain_share_change", "Change")]
+    same = facts["counts"]["pairs"]["same"]
+    return {
+        "previous": f"{facts['old']['source']} ({facts['old']['library']}, {facts['old']['n_trees']:,} trees)",
+        "counts": facts["counts"],
+        "pairs": {"headers": [h for _, h in pair_columns], "rows": _change_rows(comparison.pairs, pair_columns)},
+        "features": {"headers": [h for _, h in feature_columns],
+                     "rows": _change_rows(comparison.features, feature_columns)},
+        "notes": ([f"{same} pair(s) with the same structure in both versions are left out."] if same else [])
+                 + list(facts.get("notes", [])),
+        "limits": comparison.limits,
+    }
+
+
 def render_page(*, graph: ForestGraph, result: Any, suggestion: Any, validation: Any, figures: dict,
                 steps: Sequence[tuple[str, float]], triage_origin: str | None, target_text: str, rows_available: int,
-                n_figure_rows: int, title: str | None) -> str:
+                n_figure_rows: int, title: str | None, comparison: Any = None) -> str:
     """The HTML text of the report.
 
     ``figures`` holds the SVG text drawn by :mod:`treeprobe.reporting.figures`:
     ``pair_map``, ``links``, ``links_note``, ``dependence`` (a list of
     (pair row, svg)), ``rounds`` (svg or None) and ``entries`` (DataFrame).
+    ``comparison`` (a :class:`treeprobe.compare.ModelComparison`) adds the
+    section ``CHANGES_SECTION`` before the cautions.
     """
     # Imported here: the package sets its version after importing this module.
     from .. import __version__
 
     source = graph.summary()["source"]
     rounds_svg = figures["rounds"]
+    sections = list(SECTIONS)
+    if comparison is not None:
+        sections.insert(sections.index("cautions"), CHANGES_SECTION)
     context = {
         "title": title if title is not None else f"Feature interactions of {source}",
         "version": __version__,
         "stamp": _datetime.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"),
-        "sections": [(key, HEADINGS[key]) for key in SECTIONS],
+        "sections": [(key, HEADINGS[key]) for key in sections],
         "summary": _summary(graph, result, rows_available=rows_available, target_text=target_text, steps=steps,
                             triage_origin=triage_origin),
         "pairs": _pairs(result),
@@ -227,6 +281,7 @@ def render_page(*, graph: ForestGraph, result: Any, suggestion: Any, validation:
         "suggestion": suggestion,
         "snippets": {library: suggestion.python_snippet(library) for library in ("xgboost", "lightgbm")},
         "validation": _validation(validation),
+        "changes": _changes(comparison),
         "thresholds": list(result.thresholds.items()),
         "limits": result.limits,
     }
