@@ -102,9 +102,8 @@ def test_recipe_from_a_parameter_dict():
 
 
 def test_thread_counts_reach_the_library(regression_data, monkeypatch):
-    """The thread count of a fit is what XGBoost's own train() receives: 1 in a worker, every core alone."""
-    import os
-
+    """The thread count of a fit is what XGBoost's own train() receives: 1 in a worker, every free core alone."""
+    import treeprobe.parallel
     from treeprobe.refit import fit
 
     X, y = regression_data
@@ -116,10 +115,11 @@ def test_thread_counts_reach_the_library(regression_data, monkeypatch):
         return real(params, *args, **kwargs)
 
     monkeypatch.setattr(xgb, "train", spy)
+    monkeypatch.setattr(treeprobe.parallel, "free_cores", lambda: 3)
     recipe = Recipe("xgboost", {"max_depth": 2}, 3, {"max_depth": "given", "rounds": "given"}, tuple(X.columns))
     fit(recipe, X.to_numpy(), y.to_numpy(), threads=1)
     fit(recipe, X.to_numpy(), y.to_numpy(), threads=0)
-    assert seen == [1, os.cpu_count()]
+    assert seen == [1, 3]
 
 
 def test_lightgbm_text_parameters_are_stored_origin():

@@ -243,10 +243,10 @@ def test_given_params_reach_the_refits(planted_diabetes):
 
 
 def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkeypatch):
-    """XGBoost's own train() receives nthread=1 for every refit inside workers; the lone additive fits get every core."""
-    import os
-
+    """XGBoost's own train() receives nthread=1 for every refit inside workers; the lone additive fits every free core."""
     import joblib
+
+    import treeprobe.parallel
 
     seen = []
     real = xgb.train
@@ -256,13 +256,14 @@ def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkey
         return real(params, *args, **kwargs)
 
     monkeypatch.setattr(xgb, "train", spy)
+    monkeypatch.setattr(treeprobe.parallel, "free_cores", lambda: 5)
     path, data, _ = planted_diabetes
     # The threading backend runs the workers in this process, so the spy sees their fits.
     with joblib.parallel_backend("threading"):
         result = triage(path, data, "target", sample=150, resamples=0, null_refits=3, n_jobs=2)
     # Two lone additive fits (early-stopped, then all rows at the best rounds), then three refits in workers.
-    assert seen[:2] == [os.cpu_count()] * 2 and seen[2:] == [1, 1, 1]
+    assert seen[:2] == [5, 5] and seen[2:] == [1, 1, 1]
     assert result.facts["refit_threads_per_fit"] == 1
     seen.clear()
     triage(path, data, "target", sample=150, resamples=0, null_refits=2, n_jobs=1)
-    assert seen == [os.cpu_count()] * 4
+    assert seen == [5, 5, 5, 5]

@@ -248,7 +248,11 @@ def _read_data(args: argparse.Namespace, ens: Any) -> pd.DataFrame:
     """The model's feature columns (and the target) of the data file, checked and coerced; notes to stderr."""
     from .data import load_data
 
-    frame, report = load_data(ens, args.data, target=getattr(args, "target", None))
+    target = getattr(args, "target", None)
+    if target is not None and target in ens.feature_names:
+        raise TreeprobeError(f"--target {target}: the target column {target!r} is one of the model's features; name "
+                             "the column the model was trained to predict")
+    frame, report = load_data(ens, args.data, target=target)
     if not getattr(args, "quiet", False):
         for note in report.coerced:
             print(f"treeprobe: note: {note}", file=sys.stderr)

@@ -98,6 +98,7 @@ from .refit import (
     PATIENCE,
     REGRESSION,
     Recipe,
+    calibrate_step,
     checked_target,
     constrained_substitute,
     design_matrix,
@@ -1026,6 +1027,7 @@ def validate_constraints(
     else:
         matrix, columns = model_matrix(graph, X), graph.feature_names
         target = checked_target(y, matrix.shape[0], recipe.task)
+        recipe = calibrate_step(recipe, graph, matrix, target, seed=random_state)
     index_groups = _index_groups(groups, columns)
     recipe, n_classes = _class_count(recipe, target)
     if matrix.shape[0] < 2 * folds:

@@ -40,6 +40,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from . import parallel
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 
@@ -64,6 +65,7 @@ __all__ = [
     "recover_xgboost_step",
     "training_recipe",
     "constrained_substitute",
+    "calibrate_step",
     "design_matrix",
     "round_budget",
     "fit",
@@ -111,9 +113,12 @@ _MIN_RECOVERY_NODES = 5
 # Native XGBoost parameter aliases: a given alias replaces whatever the model gave under another name.
 _XGBOOST_ALIASES = (frozenset({"eta", "learning_rate"}), frozenset({"lambda", "reg_lambda"}),
                     frozenset({"alpha", "reg_alpha"}), frozenset({"gamma", "min_split_loss"}))
-ORIGINS = ("stored", "given", "recovered", "default")
+ORIGINS = ("stored", "given", "recovered", "calibrated", "default")
 _ORIGIN_TEXT = {"stored": "stored in the model", "given": "given", "recovered": "recovered from the trees",
-                "default": "library default"}
+                "calibrated": "calibrated on the data", "default": "library default"}
+# Learning rates tried when eta can be neither read nor recovered (common values; our choice).
+_CALIBRATION_ETAS = (0.01, 0.02, 0.05, 0.1, 0.2, 0.3)
+_CALIBRATION_ROWS = 2000
 REGRESSION = "regression"
 BINARY = "binary"
 MULTICLASS = "multiclass"
@@ -421,8 +426,9 @@ def _xgboost_base(ensemble: ForestGraph, live: dict) -> tuple[dict, dict, list[s
         origins.update(eta="default", reg_lambda="default")
         notes.append(f"A saved XGBoost model does not store its training parameters, and eta and lambda could not "
                      f"be recovered from its trees ({n_splits} usable splits, spread of log eta {spread:.1e}; alpha "
-                     "or max_delta_step change the leaf formula): XGBoost's defaults eta 0.3 and lambda 1 were used. "
-                     "Give the real values with params (--param eta=...) for a trustworthy noise floor.")
+                     "or max_delta_step change the leaf formula): lambda is XGBoost's default 1, and eta its default 0.3 "
+                     "unless calibrated on the data. Give the real values with params (--param eta=...) for a "
+                     "trustworthy noise floor.")
     return base, origins, notes
 
 
@@ -767,7 +773,7 @@ def fit(recipe: Recipe, X: np.ndarray, y: np.ndarray, *, groups: list[list[int]]
     """Train the recipe's model on all of ``(X, y)`` for a fixed number of rounds (default the recipe's).
 
     ``groups``: interaction-constraint groups of feature indices (None: the
-    family's own setting). ``threads``: threads of this fit (0 = all cores).
+    family's own setting). ``threads``: threads of this fit (0 = every free core).
     """
     model, _ = _FITTERS[recipe.trainer](recipe, X, y, groups, _thread_count(threads), seed,
                                         recipe.rounds if rounds is None else rounds, None, _columns(recipe, X))
@@ -775,7 +781,7 @@ def fit(recipe: Recipe, X: np.ndarray, y: np.ndarray, *, groups: list[list[int]]
 
 
 def _thread_count(threads: int) -> int:
-    return threads if threads > 0 else (os.cpu_count() or 1)
+    return threads if threads > 0 else parallel.free_cores()
 
 
 def _held_out_split(n_rows: int, inner_fraction: float, seed: int,
@@ -858,3 +864,60 @@ def predict_response(recipe: Recipe, model: Any, X: np.ndarray) -> np.ndarray:
         return model.predict(X)
     probability = model.predict_proba(X)
     return probability[:, 1] if recipe.task == BINARY else probability
+
+
+def _training_loss(task: str, target: np.ndarray, predicted: np.ndarray) -> float:
+    """Mean squared error (regression) or mean log-loss (classifiers) of response-scale predictions."""
+    if task == REGRESSION:
+        return float(np.mean((target - predicted.ravel()) ** 2))
+    if task == BINARY:
+        p = np.clip(predicted.ravel(), 1e-12, 1 - 1e-12)
+        return float(-np.mean(target * np.log(p) + (1 - target) * np.log(1 - p)))
+    probability = np.clip(predicted.reshape(target.size, -1), 1e-12, 1.0)
+    return float(-np.mean(np.log(probability[np.arange(target.size), target.astype(int)])))
+
+
+def calibrate_step(recipe: Recipe, graph: ForestGraph, X: np.ndarray, y: np.ndarray, *, seed: int = 0) -> Recipe:
+    """Choose the learning rate of a recipe whose eta is only the library default, by matching the model on the data.
+
+    Parameters
+    ----------
+    recipe : Recipe
+        Returned unchanged unless it is an XGBoost recipe whose ``eta`` has
+        origin "default" (neither stored, given nor recovered from the trees).
+    graph : ForestGraph
+        The saved model, whose training loss on the rows is the reference.
+    X, y : ndarray
+        Coded design matrix and target (at most 2,000 rows are used, drawn with ``seed``).
+
+    Returns
+    -------
+    Recipe
+        With ``eta`` set to the grid value whose refit (the recipe's rounds,
+        all rows used) comes closest to the saved model's training loss, in
+        absolute log ratio; origin "calibrated", and a note with the figures.
+
+    Notes
+    -----
+    Training loss is mean squared error for regression, log-loss for
+    classifiers, of response-scale predictions. It falls as eta grows at a
+    fixed round count, so matching it pins the step size that reproduces
+    the model's fit to these rows. The grid (0.01, 0.02, 0.05, 0.1, 0.2,
+    0.3) holds common values; it is our choice.
+    """
+    if recipe.library != "xgboost" or recipe.origins.get("eta") != "default":
+        return recipe
+    rows = np.random.default_rng(seed).permutation(len(y))[:_CALIBRATION_ROWS]
+    X, y = X[rows], y[rows]
+    reference = _training_loss(recipe.task, y, graph.predict(X, checked=True))
+    gaps = []
+    for eta in _CALIBRATION_ETAS:
+        trial = replace(recipe, params={**recipe.params, "eta": eta})
+        loss = _training_loss(recipe.task, y, predict_response(trial, fit(trial, X, y, threads=0, seed=seed), X))
+        gaps.append((abs(np.log(max(loss, 1e-300) / max(reference, 1e-300))), eta, loss))
+    _, eta, loss = min(gaps)
+    note = (f"eta could not be recovered from the trees, so it was calibrated: of {', '.join(map(str, _CALIBRATION_ETAS))}, "
+            f"eta {eta} gives a refit whose training loss on {len(y)} rows ({loss:.4g}) comes closest to the saved "
+            f"model's ({reference:.4g}).")
+    return replace(recipe, params={**recipe.params, "eta": eta}, origins={**recipe.origins, "eta": "calibrated"},
+                   notes=[*recipe.notes, note])

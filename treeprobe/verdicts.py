@@ -90,6 +90,7 @@ from .refit import (
     BINARY,
     REGRESSION,
     Recipe,
+    calibrate_step,
     checked_target,
     constrained_substitute,
     fit,
@@ -227,7 +228,7 @@ class TriageResult:
         ``refit_notes``, ``refit_recipe`` (library, rounds and each training
         parameter's value and origin: stored, given, recovered or default;
         None without refits), ``refit_recipe_text`` (the same in one line) and
-        ``refit_threads_per_fit`` (1 inside parallel workers, 0 = all cores).
+        ``refit_threads_per_fit`` (1 inside parallel workers, 0 = every free core).
     """
 
     pairs: pd.DataFrame
@@ -754,6 +755,7 @@ def triage(
     matrix_all = model_matrix(graph, X)
     if recipe is not None:
         target = checked_target(target, matrix_all.shape[0], recipe.task)
+        recipe = calibrate_step(recipe, graph, matrix_all, target, seed=random_state)
     rng = np.random.default_rng(random_state)
     chosen = _sample_rows(matrix_all, sample, rng)
     rows, matrix = _take_rows(X, chosen), matrix_all[chosen]
