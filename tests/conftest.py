@@ -26,3 +26,18 @@ def planted_diabetes(tmp_path_factory):
     data = X.assign(target=target)
     data.to_csv(folder / "planted.csv", index=False)
     return path, data, folder / "planted.csv"
+
+
+@pytest.fixture
+def xgboost_threads(monkeypatch):
+    """The ``nthread`` of every ``xgboost.train`` call made during the test, in call order (XGBoost's own entry point)."""
+    xgb = pytest.importorskip("xgboost")
+    seen = []
+    real = xgb.train
+
+    def spy(params, *args, **kwargs):
+        seen.append(params["nthread"])
+        return real(params, *args, **kwargs)
+
+    monkeypatch.setattr(xgb, "train", spy)
+    return seen

@@ -101,20 +101,13 @@ def test_recipe_from_a_parameter_dict():
         training_recipe({"eta": 0.1}, library="xgboost")
 
 
-def test_thread_counts_reach_the_library(regression_data, monkeypatch):
+def test_thread_counts_reach_the_library(regression_data, monkeypatch, xgboost_threads):
     """The thread count of a fit is what XGBoost's own train() receives: 1 in a worker, every free core alone."""
     import treeprobe.parallel
     from treeprobe.refit import fit
 
     X, y = regression_data
-    seen = []
-    real = xgb.train
-
-    def spy(params, *args, **kwargs):
-        seen.append(params["nthread"])
-        return real(params, *args, **kwargs)
-
-    monkeypatch.setattr(xgb, "train", spy)
+    seen = xgboost_threads
     monkeypatch.setattr(treeprobe.parallel, "free_cores", lambda: 3)
     recipe = Recipe("xgboost", {"max_depth": 2}, 3, {"max_depth": "given", "rounds": "given"}, tuple(X.columns))
     fit(recipe, X.to_numpy(), y.to_numpy(), threads=1)

@@ -242,20 +242,13 @@ def test_given_params_reach_the_refits(planted_diabetes):
     assert params["eta"] == {"value": 0.3, "origin": "given"} and params["max_depth"] == {"value": 2, "origin": "given"}
 
 
-def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkeypatch):
+def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkeypatch, xgboost_threads):
     """XGBoost's own train() receives nthread=1 for every refit inside workers; the lone additive fits every free core."""
     import joblib
 
     import treeprobe.parallel
 
-    seen = []
-    real = xgb.train
-
-    def spy(params, *args, **kwargs):
-        seen.append(params["nthread"])
-        return real(params, *args, **kwargs)
-
-    monkeypatch.setattr(xgb, "train", spy)
+    seen = xgboost_threads
     monkeypatch.setattr(treeprobe.parallel, "free_cores", lambda: 5)
     path, data, _ = planted_diabetes
     # The threading backend runs the workers in this process, so the spy sees their fits.
