@@ -73,12 +73,12 @@ def test_categorical_splits_obey_interaction_constraints(dock_data, library):
 def test_triage_and_validation_of_categorical_models(dock_data, library, tmp_path):
     frame, y = dock_data
     if library == "xgboost":
-        model = xgb.XGBRegressor(n_estimators=60, max_depth=4, learning_rate=0.2, enable_categorical=True, n_jobs=1,
+        model = xgb.XGBRegressor(n_estimators=25, max_depth=4, learning_rate=0.3, enable_categorical=True, n_jobs=1,
                                  tree_method="hist").fit(frame, y)
         path = tmp_path / "dock.json"
         model.save_model(path)
     else:
-        model = lgb.LGBMRegressor(n_estimators=60, max_depth=4, learning_rate=0.2, n_jobs=1, verbose=-1).fit(frame, y)
+        model = lgb.LGBMRegressor(n_estimators=25, max_depth=4, learning_rate=0.3, n_jobs=1, verbose=-1).fit(frame, y)
         path = tmp_path / "dock.txt"
         model.booster_.save_model(path)
     result = treeprobe.triage(str(path), frame, y, sample=300, resamples=0, null_refits=2)
@@ -145,7 +145,7 @@ def test_text_labels_for_scikit_learn_classifiers(sklearn_data):
     labels = np.where(y > np.median(y), "late", "on_time")
     # A one-margin classifier describes its positive class (the second in sorted order); a forest's
     # probability outputs one class each, the first by default.
-    for model, named in ((HistGradientBoostingClassifier(max_iter=40, random_state=0),
+    for model, named in ((HistGradientBoostingClassifier(max_iter=20, random_state=0),
                           "class on_time (the positive class; log-odds margin)"),
                          (RandomForestClassifier(n_estimators=10, max_depth=5, random_state=0, n_jobs=1),
                           "class late (output 0 of 2)")):
