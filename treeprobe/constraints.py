@@ -464,7 +464,7 @@ class ConstraintSuggestion:
         if num_boost_round is not None:
             keyword = "max_iter" if library == "sklearn" else "num_boost_round"
             body.append(f"{keyword} = {num_boost_round}  # median best round count of the constrained fits "
-                        "(early stopping, treeprobe.validate_constraints)")
+                        "over cross-validation folds (early stopping)")
         return "\n".join(header + body) + "\n"
 
 
@@ -851,37 +851,37 @@ def fold_splits(context: FoldContext, folds: int) -> list[tuple[int, np.ndarray,
     return [(fold, train, test) for fold, (train, test) in enumerate(splitter.split(context.matrix, labels), start=1)]
 
 
-def _variant_on_fold(context: FoldContext,
-                     task: tuple[list[list[int]] | None, tuple[int, np.ndarray, np.ndarray]]) -> tuple[dict, int]:
+# A variant's groups (None: unconstrained) and one outer fold (fold number, train rows, test rows).
+FoldTask = tuple[list[list[int]] | None, tuple[int, np.ndarray, np.ndarray]]
+
+
+def _variant_on_fold(context: FoldContext, task: FoldTask) -> tuple[dict, int]:
     groups, (fold, train, test) = task
     return _variant_scores(context, groups, train, test, context.random_state + fold)
 
 
-def cross_validated_scores(context: FoldContext, variants: Sequence[list[list[int]] | None],
-                           splits: Sequence[tuple[int, np.ndarray, np.ndarray]], *, n_jobs: int,
-                           progress: bool | None, label: str = "constraint folds") -> list[list[tuple[dict, int]]]:
-    """Held-out scores and best rounds of each variant (groups, or None: unconstrained) on each split.
+def cross_validated_scores(context: FoldContext, tasks: Sequence[FoldTask], *, n_jobs: int, progress: bool | None,
+                           label: str = "constraint folds") -> list[tuple[dict, int]]:
+    """Held-out scores and best round count of each task: a variant (groups, or None: unconstrained) on one split.
 
-    One fit per (variant, split), all through :func:`treeprobe.parallel.run_tasks`.
+    One early-stopped fit per task, all through :func:`treeprobe.parallel.run_tasks`.
     Every variant uses the fold's seed (``random_state + fold``) for its inner
     early-stopping split, so variants on a fold differ by their groups only.
-    Returns, per variant, one ``(scores, best_rounds)`` per split in order.
     """
-    tasks = [(groups, split) for groups in variants for split in splits]
-    results = run_tasks(partial(_variant_on_fold, context), tasks, n_jobs=n_jobs, label=label, progress=progress)
-    return [results[i * len(splits):(i + 1) * len(splits)] for i in range(len(variants))]
+    return run_tasks(partial(_variant_on_fold, context), tasks, n_jobs=n_jobs, label=label, progress=progress)
 
 
 def _fold_scores(context: FoldContext, *, folds: int, n_jobs: int,
                  progress: bool | None) -> tuple[pd.DataFrame, float]:
     """Held-out scores and best rounds of both variants on each fold (numbered 1..K), and mean n_test / n_train."""
     items = fold_splits(context, folds)
-    free, bound = cross_validated_scores(context, [None, context.groups], items, n_jobs=n_jobs, progress=progress)
+    results = cross_validated_scores(context, [(groups, split) for split in items for groups in (None, context.groups)],
+                                     n_jobs=n_jobs, progress=progress)
     rows = [{"fold": fold, "metric": metric, "unconstrained": free_scores[metric], "constrained": bound_scores[metric],
              "difference": bound_scores[metric] - free_scores[metric], "unconstrained_rounds": free_rounds,
              "constrained_rounds": bound_rounds}
             for (fold, _, _), (free_scores, free_rounds), (bound_scores, bound_rounds)
-            in zip(items, free, bound, strict=True) for metric in free_scores]
+            in zip(items, results[0::2], results[1::2], strict=True) for metric in free_scores]
     return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS)), fold_size_ratio(items)
 
 
