@@ -186,7 +186,10 @@ def _moves(state: Groups, source: _Source, names: Sequence[str]) -> list[tuple[s
             (extra,) = outside
             grown = [g for g in state if g != group] + [group | {extra}]
             moves.append((f"add {names[extra]} to {_group_text(group, names)}", _normalised(grown)))
-    return moves
+    unique: dict[Groups, str] = {}
+    for text, groups in moves:
+        unique.setdefault(groups, text)
+    return [(text, groups) for groups, text in unique.items()]
 
 
 def _joins_any(groups: Groups, pairs: set[frozenset[int]]) -> bool:
