@@ -74,7 +74,6 @@ from .errors import DataError, ParameterError
 from .graph import ForestGraph
 from .output import dumps_json, to_jsonable
 from .parallel import threads_per_fit
-from .progress import bar_enabled
 from .refit import PATIENCE, REGRESSION, Recipe, checked_target, round_budget, xgboost_constraint_text
 
 __all__ = ["SearchResult", "search_constraints", "STEP_COLUMNS", "CANDIDATE_COLUMNS", "FOLD_COLUMNS",
@@ -269,8 +268,8 @@ class _Run:
 
 
 def _say(text: str, progress: bool | None) -> None:
-    """A line on standard error under the progress policy (the budget before the search starts)."""
-    if bar_enabled(progress):
+    """A line on standard error (the budget before the search starts) unless ``progress`` is False."""
+    if progress is not False:
         print(f"treeprobe: {text}", file=sys.stderr, flush=True)
 
 
@@ -570,8 +569,9 @@ def search_constraints(
         Dask backend the fits run on the cluster). One thread per fit in
         workers, every core for a lone fit.
     progress : bool, optional
-        Progress bars and the budget lines on standard error; default only on
-        a terminal.
+        Progress bars on standard error: None (default) on a terminal only,
+        True always, False never. The budget lines (fits and time estimate)
+        are printed on standard error unless ``progress`` is False.
 
     Returns
     -------
@@ -621,7 +621,7 @@ def search_constraints(
 
     Before the search starts the number of fits (at most
     ``K * (2 + min(max_steps, sources) * max_candidates)``) and one timed
-    fit, scaled to them, are printed under the progress policy.
+    fit, scaled to them, are printed (see ``progress``).
 
     References
     ----------
