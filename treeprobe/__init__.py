@@ -37,6 +37,8 @@ _HOMES = {
     "write_graphml": "constraints",
     "ConstraintSuggestion": "constraints",
     "ValidationResult": "constraints",
+    "search_constraints": "search",
+    "SearchResult": "search",
     "load_data": "data",
     "prepare_data": "data",
     "DataReport": "data",

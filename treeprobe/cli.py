@@ -600,8 +600,8 @@ def _cmd_constrain(args: argparse.Namespace) -> int:
 def _cmd_report(args: argparse.Namespace) -> int:
     from .reporting import report
 
-    if args.validate and args.target is None:
-        raise _UsageError("--validate retrains the model and needs --target")
+    if (args.validate or args.search) and args.target is None:
+        raise _UsageError(f"{'--validate' if args.validate else '--search'} retrains the model and needs --target")
     ens = _load(args)
     data = _read_data(args, ens)
     triage_result = _run_triage(args, ens, data)
@@ -609,8 +609,10 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
     suggestion = suggest_constraints(triage_result)
     validation = _validate(args, ens, data, suggestion) if args.validate else None
+    search = _search(args, ens, data, triage_result) if args.search else None
     path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result,
                   triage_origin="run by the treeprobe report command", suggestion=suggestion, validation=validation,
+                  search=search,
                   top_pairs=args.top_pairs, title=args.title, progress=False if args.quiet else None)
     print(f"wrote {path}", file=sys.stderr)
     return 0
@@ -719,6 +721,17 @@ def _triage_command_options(p: argparse.ArgumentParser) -> None:
     _add_table(p, ("pairs", "triples", "features"), "pairs, triples, features")
 
 
+def _add_search_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--search", action="store_true",
+                   help="choose the groups by held-out loss: forward search from every feature alone over the "
+                        "triaged pairs and triples, one-standard-error rule (needs --target; retrains many times: "
+                        "the number of fits and a time estimate are printed first)")
+    p.add_argument("--max-steps", type=int, default=10, metavar="S",
+                   help="most interactions --search adds (default 10)")
+    p.add_argument("--max-candidates", type=int, default=5, metavar="C",
+                   help="candidates --search scores per step, strongest first (default 5); fits = folds x C per step")
+
+
 def _constrain_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
@@ -730,14 +743,7 @@ def _constrain_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--non-overlapping", action="store_true",
                    help="validate the non-overlapping alternative when the groups overlap")
     p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate and --search (default 5)")
-    p.add_argument("--search", action="store_true",
-                   help="choose the groups by held-out loss: forward search from every feature alone over the "
-                        "triaged pairs and triples, one-standard-error rule (needs --target; retrains many times: "
-                        "the number of fits and a time estimate are printed first)")
-    p.add_argument("--max-steps", type=int, default=10, metavar="S",
-                   help="most interactions --search adds (default 10)")
-    p.add_argument("--max-candidates", type=int, default=5, metavar="C",
-                   help="candidates --search scores per step, strongest first (default 5); fits = folds x C per step")
+    _add_search_options(p)
     p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
     p.set_defaults(triples=True)
 
@@ -751,7 +757,8 @@ def _report_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--title", help="page title (default: from the model file name)")
     p.add_argument("--top-pairs", type=int, default=4, metavar="N", help="pairs drawn as partial dependence (default 4)")
     p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")
-    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
+    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate and --search (default 5)")
+    _add_search_options(p)
     _add_triage_options(p)
     p.set_defaults(triples=True)
 
