@@ -248,14 +248,16 @@ class _Run:
     def ratio(self) -> float:
         return fold_size_ratio(self.splits)
 
-    def score(self, variants: Sequence[Groups | None], label: str, splits: list | None = None) -> list[_Scored]:
+    def score(self, variants: Sequence[Groups | None], label: str, splits: list | None = None,
+              n_jobs: int | None = None) -> list[_Scored]:
         """Fold losses of each variant (None: unconstrained) on ``splits`` (default all folds)."""
         splits = self.splits if splits is None else splits
         n_features = self.context.matrix.shape[1]
         todo = [(variant, split) for variant in dict.fromkeys(variants) for split in splits
                 if (variant, split[0]) not in self.done]
         tasks = [(None if variant is None else _fit_groups(variant, n_features), split) for variant, split in todo]
-        results = cross_validated_scores(self.context, tasks, n_jobs=self.n_jobs, progress=self.progress, label=label)
+        results = cross_validated_scores(self.context, tasks, n_jobs=self.n_jobs if n_jobs is None else n_jobs,
+                                         progress=self.progress, label=label)
         self.fits += len(todo)
         for (variant, split), (scores, rounds) in zip(todo, results, strict=True):
             self.done[(variant, split[0])] = (scores[self.metric], rounds)
@@ -502,7 +504,8 @@ def _budget(run: _Run, start: Groups, n_sources: int, max_steps: int, max_candid
     _say(f"search: at most {estimated} early-stopped fits ({folds} folds x (start + unconstrained + up to "
          f"{min(max_steps, n_sources)} steps x {max_candidates} candidates))", run.progress)
     started = time.perf_counter()
-    run.score([start], "search: timing one fit", splits=run.splits[:1])
+    # In this process (with the workers' thread count), so that starting the worker pool is not timed as a fit.
+    run.score([start], "search: timing one fit", splits=run.splits[:1], n_jobs=1)
     per_fit = time.perf_counter() - started
     workers = max(1, effective_n_jobs(run.n_jobs))
     seconds = per_fit * estimated / workers
