@@ -416,7 +416,7 @@ def test_constrain_search_prints_the_curve_json_and_csv(saved_regressor, tmp_pat
     assert "<- chosen" in out and "start: every feature alone" in out
     assert "Chosen groups (step 1): {oven_temp, dough_age}" in out
     assert "num_boost_round = " in out and "Unconstrained: rmse" in out
-    assert "treeprobe: search: at most" in proc.stderr and "one fit took" in proc.stderr
+    assert "treeprobe: search: at most" in proc.stderr and "one unconstrained fit took" in proc.stderr
     payload = json.loads(run_on_one_core(*options, "--format", "json", "--quiet").stdout)
     assert payload["schema"] == "treeprobe.constrain/2"
     steps = payload["search"]["steps"]

@@ -114,11 +114,12 @@ def test_search_keeps_the_true_interactions_and_beats_no_constraints(one_thread_
     chosen_loss = float(result.steps.loc[result.steps["step"] == result.chosen_step, "loss"].iloc[0])
     assert chosen_loss <= 1.02 * true_loss
     assert chosen_loss < result.unconstrained["loss"]
-    assert result.unconstrained["chosen_minus_unconstrained"] + result.unconstrained["chosen_minus_unconstrained_se"] < 0
+    free = result.unconstrained
+    assert free["chosen_minus_unconstrained"] + free["chosen_minus_unconstrained_se"] < 0
     # Each variant at its own best rounds: the rounds differ between the structures.
     chosen_rounds = result.folds.loc[result.folds["step"] == result.chosen_step, "rounds"].to_numpy()
     assert result.recommended_rounds == int(round(float(np.median(chosen_rounds))))
-    assert len({int(np.median(chosen_rounds)), result.unconstrained["rounds"], int(result.steps["rounds"].iloc[0])}) == 3
+    assert len({int(np.median(chosen_rounds)), free["rounds"], int(result.steps["rounds"].iloc[0])}) == 3
     assert result.facts["fits"] == 3 * (2 + len(result.candidates))
     assert result.facts["fits"] <= result.facts["estimated_fits"]
 
@@ -220,7 +221,7 @@ def test_forward_search_follows_the_known_losses(pottery, known_losses, capsys):
     assert result.facts["fits"] == 3 * (2 + len(result.candidates))
     assert result.facts["estimated_fits"] == 3 * (2 + 4 * 4)
     err = capsys.readouterr().err
-    assert "search: at most 54 early-stopped fits (3 folds" in err and "one fit took" in err
+    assert "search: at most 54 early-stopped fits (3 folds" in err and "one unconstrained fit took" in err
     # The unused feature shelf stays alone in the export; unused features are listed for both libraries.
     assert result.suggestion.unused == ["shelf"]
     assert result.suggestion.xgboost_param == "[[2, 3], [3, 4], [0, 1], [5]]"
@@ -302,7 +303,8 @@ def test_json_has_the_curve_and_the_chosen_groups(pottery, known_losses):
     search = payload["search"]
     assert [row["step"] for row in search["steps"]] == [0, 1, 2]
     assert search["steps"][2]["groups"] == [["kiln_temp", "glaze_mix"], ["clay_batch", "humidity"]]
-    assert search["chosen"]["groups"] == result.chosen_groups == [["kiln_temp", "glaze_mix"], ["clay_batch", "humidity"]]
+    assert search["chosen"]["groups"] == result.chosen_groups
+    assert result.chosen_groups == [["kiln_temp", "glaze_mix"], ["clay_batch", "humidity"]]
     assert search["chosen"]["num_boost_round"] == result.recommended_rounds == 20  # median of 15, 20, 25
     assert search["chosen"]["xgboost_param"] == result.suggestion.xgboost_param
     assert "num_boost_round = 20" in search["chosen"]["snippets"]["xgboost"]
@@ -318,8 +320,8 @@ def test_triples_are_tried_when_their_pairs_share_paths(pottery, known_losses):
     pairs = [*PAIRS, ("clay_batch", "firing_hours", "co-split", 0.05, 4)]
     result = search_constraints(model, X, y, triage_result=_stand_in(model, pairs, triples), folds=3,
                                 max_candidates=3, max_steps=1, progress=False)
-    assert result.candidates["source"].tolist()[:3] == ["kiln_temp × glaze_mix", "clay_batch × humidity × firing_hours",
-                                                        "clay_batch × humidity"]
+    assert result.candidates["source"].tolist()[:3] == [
+        "kiln_temp × glaze_mix", "clay_batch × humidity × firing_hours", "clay_batch × humidity"]
 
 
 # --------------------------------------------------------------------- families and bad input

@@ -129,7 +129,8 @@ def _triple_sources(triage_result: Any, known: dict[str, int], sharing: set[froz
     _check_members(triples, members, known, "triples")
     strength = _check_strength(triples, "triples")
     sources = []
-    for (a, b, c), verdict, s in zip(triples[members].astype(str).to_numpy(), triples["verdict"], strength, strict=True):
+    rows = zip(triples[members].astype(str).to_numpy(), triples["verdict"], strength, strict=True)
+    for (a, b, c), verdict, s in rows:
         if verdict in SOURCE_VERDICTS and all(frozenset(p) in sharing for p in combinations((a, b, c), 2)):
             sources.append(_Source(frozenset((known[a], known[b], known[c])), float(s), f"{a} × {b} × {c}"))
     return sources
@@ -279,7 +280,8 @@ def _say(text: str, progress: bool | None) -> None:
 def _step_row(step: int, added: str, state: Groups, scored: _Scored, gain: np.ndarray | None, tried: int,
               run: _Run, names: Sequence[str]) -> dict:
     return {"step": step, "added": added, "groups": [[names[j] for j in sorted(g)] for g in state],
-            "allowed_pairs": _allowed_pairs(state), "loss": float(scored.losses.mean()), "loss_se": run.se(scored.losses),
+            "allowed_pairs": _allowed_pairs(state), "loss": float(scored.losses.mean()),
+            "loss_se": run.se(scored.losses),
             "gain": math.nan if gain is None else float(gain.mean()),
             "gain_se": math.nan if gain is None else run.se(gain),
             "rounds": int(round(float(np.median(scored.rounds)))), "tried": tried}
@@ -315,7 +317,7 @@ def _try_step(run: _Run, step: int, state: Groups, current: _Scored,
 
 def _forward(run: _Run, start: Groups, first: _Scored, space: _Space,
              max_steps: int) -> tuple[list[dict], list[dict], list[Groups], str]:
-    """The forward search: rows of the kept steps and of every candidate, the groups of each step, and why it stopped."""
+    """The forward search: rows of the kept steps and of all candidates, each step's groups, and why it stopped."""
     steps = [_step_row(0, "start: every feature alone", start, first, None, 0, run, space.names)]
     states, tried, state, current = [start], [], start, first
     reason = "max_steps"
@@ -413,7 +415,7 @@ class SearchResult:
         ``stop_text``, ``interrupted``, ``best_step``, ``threshold``
         (lowest loss + its standard error), ``variance_factor``
         (``1/K + n_test/n_train``), ``fits``, ``estimated_fits``,
-        ``seconds_per_fit`` (the timed first fit), ``estimated_seconds``,
+        ``seconds_per_fit`` (the timed first fit, unconstrained), ``estimated_seconds``,
         ``seconds``, ``threads_per_fit``, ``max_rounds``, ``patience``,
         ``recipe`` and ``recipe_text``.
     notes : list of str
@@ -497,20 +499,21 @@ def _dependent_note(triage_result: Any) -> list[str]:
     return [f"Pairs the triage calls dependent are not tried (their H extrapolates): {named}{more}."]
 
 
-def _budget(run: _Run, start: Groups, n_sources: int, max_steps: int, max_candidates: int) -> dict:
-    """Fits at most, and the time of one fit (the start on the first fold, kept) scaled to them."""
+def _budget(run: _Run, n_sources: int, max_steps: int, max_candidates: int) -> dict:
+    """Fits at most, and the time of one fit (the unconstrained model on the first fold, kept) scaled to them."""
     folds = len(run.splits)
     estimated = folds * (2 + min(max_steps, n_sources) * max_candidates)
     _say(f"search: at most {estimated} early-stopped fits ({folds} folds x (start + unconstrained + up to "
          f"{min(max_steps, n_sources)} steps x {max_candidates} candidates))", run.progress)
     started = time.perf_counter()
     # In this process (with the workers' thread count), so that starting the worker pool is not timed as a fit.
-    run.score([start], "search: timing one fit", splits=run.splits[:1], n_jobs=1)
+    run.score([None], "search: timing one fit", splits=run.splits[:1], n_jobs=1)
     per_fit = time.perf_counter() - started
     workers = max(1, effective_n_jobs(run.n_jobs))
     seconds = per_fit * estimated / workers
-    _say(f"search: one fit took {per_fit:.2f} s; at most about {seconds:.0f} s on {workers} worker(s) "
-         "(fits with more rounds take longer; Ctrl-C stops and keeps the finished steps)", run.progress)
+    _say(f"search: one unconstrained fit took {per_fit:.2f} s, so at most about {seconds:.0f} s on {workers} "
+         "worker(s) (a rough guide: constrained fits often need more rounds; Ctrl-C stops and keeps the finished "
+         "steps)", run.progress)
     return {"estimated_fits": estimated, "seconds_per_fit": per_fit, "estimated_seconds": seconds}
 
 
@@ -624,7 +627,8 @@ def search_constraints(
 
     Before the search starts the number of fits (at most
     ``K * (2 + min(max_steps, sources) * max_candidates)``) and one timed
-    fit, scaled to them, are printed (see ``progress``).
+    fit (unconstrained, first fold), scaled to them, are printed (see
+    ``progress``).
 
     References
     ----------
@@ -656,7 +660,7 @@ def search_constraints(
     run = _Run(context, fold_splits(context, folds), "rmse" if recipe.task == REGRESSION else "log_loss", n_jobs,
                progress)
     start: Groups = ()
-    budget = _budget(run, start, len(space.sources), max_steps, max_candidates)
+    budget = _budget(run, len(space.sources), max_steps, max_candidates)
     first, free = run.score([start, None], "search: start and unconstrained")
     steps_rows, tried_rows, states, reason = _forward(run, start, first, space, max_steps)
     return _result(run, graph, recipe, triage_result, steps_rows, tried_rows, states, free, used, reason,

@@ -350,6 +350,7 @@ def report(
                                       search.unconstrained, search.chosen_step, search.facts["threshold"],
                                       search.facts["metric"])
     text = render_page(graph=graph, result=triage_result, suggestion=suggestion, validation=validation,
-                       search=search, figures=figures, steps=steps.times, triage_origin=triage_origin, target_text=_target_text(y),
+                       search=search, figures=figures, steps=steps.times,
+                       triage_origin=triage_origin, target_text=_target_text(y),
                        rows_available=matrix.shape[0], n_figure_rows=figure_rows.shape[0], title=title)
     return atomic_write(target, lambda handle: handle.write(text))
