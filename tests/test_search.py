@@ -369,3 +369,19 @@ def test_bad_options_and_data(pottery):
     broken = SimpleNamespace(**{**vars(stand_in), "pairs": stand_in.pairs.assign(feature_b="kiln_tmp")})
     with pytest.raises(DataError, match="kiln_tmp"):
         search_constraints(model, X, y, triage_result=broken)
+
+
+def test_search_fits_run_on_a_dask_cluster(pottery):
+    """With joblib's Dask backend active every fit of the search goes to the cluster, one thread each."""
+    distributed = pytest.importorskip("distributed")
+    import joblib
+
+    model, X, y = pottery
+    with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=2) as cluster, \
+            distributed.Client(cluster) as client, joblib.parallel_config(backend="dask"), \
+            distributed.get_task_stream(client) as stream:
+        result = search_constraints(model, X, y, triage_result=_stand_in(model, PAIRS), folds=2, max_steps=1,
+                                    max_candidates=1, progress=False)
+    assert result.facts["threads_per_fit"] == 1
+    assert result.facts["fits"] == 2 * (2 + len(result.candidates)) == 6
+    assert len(stream.data) > 0  # tasks ran on the cluster (joblib may batch several fits into one task)
