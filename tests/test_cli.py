@@ -292,8 +292,9 @@ def test_constrain_json_has_a_schema_and_fixed_keys(saved_regressor):
     path, data, _ = saved_regressor
     payload = json.loads(run("constrain", path, "--data", data, "--target", "waste_kg", "--sample", "120",
                              "--resamples", "2", "--null-refits", "0", "--format", "json").stdout)
-    assert payload["schema"] == "treeprobe.constrain/1"
-    assert list(payload) == ["schema", "suggestion", "triage", "validation"] and payload["validation"] is None
+    assert payload["schema"] == "treeprobe.constrain/2"
+    assert list(payload) == ["schema", "suggestion", "triage", "validation", "search"]
+    assert payload["validation"] is None and payload["search"] is None
     assert payload["suggestion"]["schema"].startswith("treeprobe.") and payload["triage"]["schema"].startswith("treeprobe.triage/")
 
 
@@ -389,3 +390,44 @@ def test_triage_and_validation_with_text_class_labels(tmp_path):
                              "--resamples", "2", "--validate", "--folds", "3", "--format", "json").stdout)
     assert payload["triage"]["facts"]["null_refits"] == 2
     assert payload["validation"]["folds"]
+
+
+# ------------------------------------------------------- constraint search
+def run_on_one_core(*args, check_code=0):
+    """``run`` with the process pinned to one core, so that each fit gets one thread (the machine is shared)."""
+    import os
+
+    core = min(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None
+    pin = (lambda: os.sched_setaffinity(0, {core})) if core is not None else None
+    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", *map(str, args)], capture_output=True, text=True,
+                          preexec_fn=pin)
+    assert proc.returncode == check_code, (proc.returncode, proc.stdout, proc.stderr)
+    return proc
+
+
+def test_constrain_search_prints_the_curve_json_and_csv(saved_regressor, tmp_path):
+    # Reference: the planted oven_temp x dough_age interaction of saved_regressor (humidity is additive).
+    path, data, _ = saved_regressor
+    options = ["constrain", path, "--data", data, "--target", "waste_kg", "--sample", "120", "--resamples", "0",
+               "--null-refits", "0", "--search", "--folds", "2", "--max-steps", "2", "--max-candidates", "2"]
+    proc = run_on_one_core(*options)
+    out = proc.stdout
+    assert "Constraint search by held-out rmse (2 folds, xgboost;" in out
+    assert "<- chosen" in out and "start: every feature alone" in out
+    assert "Chosen groups (step 1): {oven_temp, dough_age}" in out
+    assert "num_boost_round = " in out and "Unconstrained: rmse" in out
+    assert "treeprobe: search: at most" in proc.stderr and "one unconstrained fit took" in proc.stderr
+    payload = json.loads(run_on_one_core(*options, "--format", "json", "--quiet").stdout)
+    assert payload["schema"] == "treeprobe.constrain/2"
+    steps = payload["search"]["steps"]
+    assert [row["step"] for row in steps][:2] == [0, 1] and steps[1]["groups"] == [["oven_temp", "dough_age"]]
+    assert payload["search"]["chosen"]["groups"] == [["oven_temp", "dough_age"]]
+    assert steps[1]["loss"] < steps[0]["loss"]
+    csv_file = tmp_path / "curve.csv"
+    run_on_one_core(*options, "--format", "csv", "--out", csv_file, "--quiet")
+    curve = pd.read_csv(csv_file)
+    assert list(curve.columns[:4]) == ["step", "added", "groups", "allowed_pairs"]
+    assert curve["chosen"].tolist() == [row["step"] == payload["search"]["chosen"]["step"] for row in steps]
+    refused = run(*options, "--validate", check_code=2)
+    assert "use --search or --validate, not both" in refused.stderr
+    assert "--max-steps must be an integer >= 1" in run(*options[:-3], "0", check_code=2).stderr

@@ -467,3 +467,35 @@ def test_report_loads_the_model_once(fitted, monkeypatch, tmp_path):
     report(model, X, y, out=tmp_path / "once.html", top_pairs=1,
            triage_options={"sample": 100, "resamples": 0, "null_refits": 0})
     assert calls == [model]
+
+
+def test_search_curve_table_and_chosen_groups_appear(fitted, triaged, tmp_path, monkeypatch):
+    """A constraint search (one thread per fit) passed to the report: its curve, steps and chosen groups.
+
+    Reference: the generating formula, whose one interaction is fuel_price x shift_length.
+    """
+    from treeprobe import search as search_module
+
+    monkeypatch.setattr(search_module, "threads_per_fit", lambda n_jobs: 1)
+    model, X, y = fitted
+    ens, result = triaged
+    searched = search_module.search_constraints(model, X, y, triage_result=result, folds=2, max_steps=2,
+                                                max_candidates=2, progress=False)
+    path = report(ens, X, y, out=tmp_path / "searched.html", triage_result=result, search=searched, top_pairs=1)
+    page = path.read_text(encoding="utf-8")
+    constraints = _sections(page)["constraints"]
+    assert constraints.count("<svg") == 1
+    assert "Groups chosen by held-out loss" in constraints and "one standard error" in constraints
+    steps = re.findall(r'<tr><td class="num">(\d+)</td><td>(start: every feature alone|join [^<]+|add [^<]+)</td>',
+                       constraints)
+    assert [int(step) for step, _ in steps] == searched.steps["step"].tolist()
+    assert steps[1][1] == "join fuel_price, shift_length"
+    assert searched.chosen_groups[0] == ["fuel_price", "shift_length"]
+    assert f"Chosen groups (step {searched.chosen_step}):" in constraints
+    assert f"num_boost_round = {searched.recommended_rounds}" in constraints
+    assert html.escape(searched.suggestion.xgboost_param) in constraints
+    ids = Counter(re.findall(r'\sid="([^"]+)"', page))
+    assert max(ids.values()) == 1
+    with pytest.raises(ParameterError, match="search must be a SearchResult"):
+        report(ens, X, y, out=tmp_path / "never.html", triage_result=result, search="steps")
+    assert not (tmp_path / "never.html").exists()

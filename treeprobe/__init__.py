@@ -41,6 +41,8 @@ _HOMES = {
     "PolicyResult": "policy",
     "compare_models": "compare",
     "ModelComparison": "compare",
+    "search_constraints": "search",
+    "SearchResult": "search",
     "load_data": "data",
     "prepare_data": "data",
     "DataReport": "data",

@@ -115,6 +115,8 @@ _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
     "max_dependence": lambda v: check_float("--max-dependence", v, low=0, high=1),
     "min_strength": lambda v: check_float("--min-strength", v, low=0),
     "folds": lambda v: check_int("--folds", v, low=2),
+    "max_steps": lambda v: check_int("--max-steps", v, low=1),
+    "max_candidates": lambda v: check_int("--max-candidates", v, low=1),
     "top_pairs": lambda v: check_int("--top-pairs", v, low=0),
     "param": _parse_param_pairs,
 }
@@ -465,7 +467,8 @@ def _triage_each_class(args: argparse.Namespace, ens: Any, data: pd.DataFrame) -
 
 
 # ---------------------------------------------------------------- constrain
-_CONSTRAIN_SCHEMA = "treeprobe.constrain/1"
+# /2: the key "search" (null without --search) holds the "search" object of treeprobe.search/1.
+_CONSTRAIN_SCHEMA = "treeprobe.constrain/2"
 
 
 def _validate(args: argparse.Namespace, ens: Any, data: pd.DataFrame, groups: Any):
@@ -509,33 +512,62 @@ def _suggestion_lines(suggestion: Any, library: str) -> list[str]:
     return lines
 
 
-def _cmd_constrain(args: argparse.Namespace) -> int:
+def _search(args: argparse.Namespace, ens: Any, data: pd.DataFrame, triage_result: Any):
+    from .search import search_constraints
+
+    return search_constraints(
+        getattr(args, "model_object", None) or ens, data.drop(columns=[args.target]), data[args.target].to_numpy(),
+        triage_result=triage_result, folds=args.folds, max_steps=args.max_steps, max_candidates=args.max_candidates,
+        params=_training_params(args), random_state=args.seed, n_jobs=args.jobs, progress=False if args.quiet else None,
+    )
+
+
+def _groups_text(groups: Sequence[Sequence[str]]) -> str:
+    return "; ".join("{" + ", ".join(group) + "}" for group in groups) or "-"
+
+
+def _search_curve(search: Any) -> pd.DataFrame:
+    """The steps as printed and written as CSV: groups as text, the chosen step marked."""
+    curve = search.steps.assign(groups=search.steps["groups"].map(_groups_text))
+    return curve.assign(chosen=["<- chosen" if step == search.chosen_step else "" for step in curve["step"]])
+
+
+def _search_lines(search: Any, library: str) -> list[str]:
+    facts, free = search.facts, search.unconstrained
+    title = (f"Constraint search by held-out {facts['metric']} ({facts['n_folds']} folds, {facts['family']}; "
+             f"{facts['fits']} early-stopped fits in {facts['seconds']:.1f} s, estimated at most "
+             f"{facts['estimated_fits']}); stopped: {facts['stop_text']}")
+    lines = [_table(_search_curve(search).drop(columns=["groups"]), title), "",
+             f"Unconstrained: {facts['metric']} {free['loss']:.4g} ± {free['loss_se']:.2g}, {free['rounds']} rounds; "
+             f"the chosen step differs by {free['chosen_minus_unconstrained']:+.4g} ± "
+             f"{free['chosen_minus_unconstrained_se']:.2g} (paired over folds; ± one corrected standard error)",
+             "", f"Chosen groups (step {search.chosen_step}): {_groups_text(search.chosen_groups)}",
+             f"XGBoost   interaction_constraints = {search.suggestion.xgboost_param}",
+             f"LightGBM  interaction_constraints = {search.suggestion.lightgbm_param}",
+             f"num_boost_round = {search.recommended_rounds} (median best round count of the chosen step's folds)",
+             "", "Python (" + library + "):", search.python_snippet(library).rstrip()]
+    return lines + [_wrap(note) for note in search.notes]
+
+
+def _constrain_output(args: argparse.Namespace, ens: Any, result: Any, suggestion: Any, validation: Any,
+                      search: Any) -> int:
     import pandas as pd
 
-    from .constraints import interaction_graph, suggest_constraints, write_graphml
-
-    if args.target is None:
-        raise _UsageError("constrain needs --target: its noise floor and --validate retrain the model")
-    ens = _load(args)
-    data = _read_data(args, ens)
-    result = _run_triage(args, ens, data)
-    suggestion = suggest_constraints(result, min_strength=args.min_strength)
     library = args.library or ens.library
-    validation = None
-    if args.validate:
-        groups = suggestion.alternative if (suggestion.overlapping and args.non_overlapping) else suggestion.groups
-        validation = _validate(args, ens, data, groups)
-    if args.graph:
-        write_graphml(interaction_graph(result), args.graph)
-        print(f"wrote {args.graph}", file=sys.stderr)
     if args.format == "json":
         return _emit_json({"schema": _CONSTRAIN_SCHEMA, "suggestion": suggestion.to_dict(), "triage": result.to_dict(),
-                           "validation": None if validation is None else validation.to_dict()}, args)
+                           "validation": None if validation is None else validation.to_dict(),
+                           "search": None if search is None else search.to_dict()["search"]}, args)
     if args.format == "csv":
+        if search is not None:
+            _emit(_csv_text(_search_curve(search).drop(columns=["chosen"]).assign(
+                chosen=lambda f: f["step"] == search.chosen_step)), args.out)
+            return 0
         rows = [{"group": i, "feature": name} for i, group in enumerate(suggestion.groups) for name in group]
         _emit(_csv_text(pd.DataFrame(rows, columns=["group", "feature"])), args.out)
         return 0
-    lines = [_model_line(ens), "", *_suggestion_lines(suggestion, library)]
+    lines = [_model_line(ens), ""]
+    lines += _search_lines(search, library) if search is not None else _suggestion_lines(suggestion, library)
     if validation is not None:
         lines += _validation_lines(validation, args.folds)
     lines += ["", _wrap(result.limits)]
@@ -677,14 +709,39 @@ def _cmd_diff(args: argparse.Namespace) -> int:
     for flag, count in hits.items():
         print(f"treeprobe: diff: --fail-on {flag}: {count} pair(s); exit code {EXIT_VIOLATION}", file=sys.stderr)
     return EXIT_VIOLATION if hits else 0
+def _cmd_constrain(args: argparse.Namespace) -> int:
+    from .constraints import interaction_graph, suggest_constraints, write_graphml
+
+    if args.target is None:
+        raise _UsageError("constrain needs --target: its noise floor, --validate and --search retrain the model")
+    if args.search and args.validate:
+        raise _UsageError("--search already compares every step with the unconstrained model on held-out folds; "
+                          "use --search or --validate, not both")
+    ens = _load(args)
+    data = _read_data(args, ens)
+    result = _run_triage(args, ens, data)
+    suggestion = suggest_constraints(result, min_strength=args.min_strength)
+    validation = None
+    if args.validate:
+        groups = suggestion.alternative if (suggestion.overlapping and args.non_overlapping) else suggestion.groups
+        validation = _validate(args, ens, data, groups)
+    search = _search(args, ens, data, result) if args.search else None
+    if args.graph:
+        write_graphml(interaction_graph(result), args.graph)
+        print(f"wrote {args.graph}", file=sys.stderr)
+    code = _constrain_output(args, ens, result, suggestion, validation, search)
+    if search is not None and search.facts["interrupted"]:
+        print("treeprobe: interrupted; the finished steps of the search are shown", file=sys.stderr)
+        return 130
+    return code
 
 
 # ------------------------------------------------------------------- report
 def _cmd_report(args: argparse.Namespace) -> int:
     from .reporting import report
 
-    if args.validate and args.target is None:
-        raise _UsageError("--validate retrains the model and needs --target")
+    if (args.validate or args.search) and args.target is None:
+        raise _UsageError(f"{'--validate' if args.validate else '--search'} retrains the model and needs --target")
     ens = _load(args)
     data = _read_data(args, ens)
     triage_result = _run_triage(args, ens, data)
@@ -692,8 +749,10 @@ def _cmd_report(args: argparse.Namespace) -> int:
 
     suggestion = suggest_constraints(triage_result)
     validation = _validate(args, ens, data, suggestion) if args.validate else None
+    search = _search(args, ens, data, triage_result) if args.search else None
     path = report(ens, data, args.target, out=args.out_html, triage_result=triage_result,
                   triage_origin="run by the treeprobe report command", suggestion=suggestion, validation=validation,
+                  search=search,
                   top_pairs=args.top_pairs, title=args.title, progress=False if args.quiet else None)
     print(f"wrote {path}", file=sys.stderr)
     return 0
@@ -802,6 +861,17 @@ def _triage_command_options(p: argparse.ArgumentParser) -> None:
     _add_table(p, ("pairs", "triples", "features"), "pairs, triples, features")
 
 
+def _add_search_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--search", action="store_true",
+                   help="choose the groups by held-out loss: forward search from every feature alone over the "
+                        "triaged pairs and triples, one-standard-error rule (needs --target; retrains many times: "
+                        "the number of fits and a time estimate are printed first)")
+    p.add_argument("--max-steps", type=int, default=10, metavar="S",
+                   help="most interactions --search adds (default 10)")
+    p.add_argument("--max-candidates", type=int, default=5, metavar="C",
+                   help="candidates --search scores per step, strongest first (default 5); fits = folds x C per step")
+
+
 def _constrain_options(p: argparse.ArgumentParser) -> None:
     _add_common(p)
     _add_triage_options(p)
@@ -812,7 +882,8 @@ def _constrain_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--validate", action="store_true", help="cross-validate with and without the groups (needs --target)")
     p.add_argument("--non-overlapping", action="store_true",
                    help="validate the non-overlapping alternative when the groups overlap")
-    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
+    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate and --search (default 5)")
+    _add_search_options(p)
     p.add_argument("--graph", metavar="FILE", help="write the interaction graph as GraphML")
     p.set_defaults(triples=True)
 
@@ -869,7 +940,8 @@ def _report_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--title", help="page title (default: from the model file name)")
     p.add_argument("--top-pairs", type=int, default=4, metavar="N", help="pairs drawn as partial dependence (default 4)")
     p.add_argument("--validate", action="store_true", help="also cross-validate the suggested constraints (needs --target)")
-    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate (default 5)")
+    p.add_argument("--folds", type=int, default=5, metavar="K", help="folds for --validate and --search (default 5)")
+    _add_search_options(p)
     _add_triage_options(p)
     p.set_defaults(triples=True)
 
@@ -895,9 +967,10 @@ _COMMANDS: tuple[tuple[str, Callable[[argparse.Namespace], int], Callable[[argpa
      "Tell real interactions from structural co-splits and dependence artefacts: path structure, H-statistics with "
      "a resampling interval and a refit noise floor, and the dependence of each pair in the data."),
     ("constrain", _cmd_constrain, _constrain_options,
-     "suggest interaction-constraint groups, export them, validate by retraining",
+     "suggest interaction-constraint groups, export them, validate or search by retraining",
      "Suggest groups of features allowed to interact (from the triage), print them as XGBoost and LightGBM "
-     "interaction_constraints, and optionally cross-validate the constrained model against the unconstrained one."),
+     "interaction_constraints, and optionally cross-validate the constrained model against the unconstrained one "
+     "(--validate) or let held-out loss choose the groups (--search)."),
     ("check", _cmd_check, _check_command_options,
      "gate: does every root-to-leaf path keep the feature groups and forbidden pairs?",
      "Check every root-to-leaf path of a saved model against feature groups (the JSON that constrain writes, or a "

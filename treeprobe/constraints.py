@@ -464,7 +464,7 @@ class ConstraintSuggestion:
         if num_boost_round is not None:
             keyword = "max_iter" if library == "sklearn" else "num_boost_round"
             body.append(f"{keyword} = {num_boost_round}  # median best round count of the constrained fits "
-                        "(early stopping, treeprobe.validate_constraints)")
+                        "over cross-validation folds (early stopping)")
         return "\n".join(header + body) + "\n"
 
 
@@ -698,10 +698,23 @@ def _corrected_interval(differences: np.ndarray, test_to_train: float) -> tuple[
     paired interval uses ``sd^2 / K``; the added ``n_test/n_train`` accounts
     for the overlap of the training parts.
     """
-    k = len(differences)
-    mean, variance = float(differences.mean()), float(differences.var(ddof=1))
-    half = _t_quantile(k - 1) * math.sqrt((1.0 / k + test_to_train) * variance)
+    mean = float(differences.mean())
+    half = _t_quantile(len(differences) - 1) * corrected_standard_error(differences, test_to_train)
     return mean - half, mean + half
+
+
+def corrected_standard_error(values: np.ndarray, test_to_train: float) -> float:
+    """Standard error of a mean over K folds by the corrected variance of Nadeau and Bengio (2003, section 4).
+
+    ``sqrt((1/K + n_test/n_train) * s^2)`` with ``s^2`` the sample variance of
+    the K values: the naive ``s^2 / K`` ignores that the folds' training parts overlap.
+    """
+    return math.sqrt((1.0 / len(values) + test_to_train) * float(np.var(values, ddof=1)))
+
+
+def fold_size_ratio(splits: Sequence[tuple[int, np.ndarray, np.ndarray]]) -> float:
+    """Mean ``n_test / n_train`` over the folds of :func:`fold_splits`."""
+    return float(np.mean([len(test) / len(train) for _, train, test in splits]))
 
 
 @dataclass(frozen=True, eq=False)
@@ -790,7 +803,7 @@ def _class_count(recipe: Recipe, target: np.ndarray) -> tuple[Recipe, int]:
 
 
 @dataclass(frozen=True)
-class _FoldContext:
+class FoldContext:
     """What every fold's fits share (sent once to each worker)."""
 
     recipe: Recipe
@@ -802,7 +815,7 @@ class _FoldContext:
     threads: int
 
 
-def _variant_scores(context: _FoldContext, chosen: list[list[int]] | None, train: np.ndarray, test: np.ndarray,
+def _variant_scores(context: FoldContext, chosen: list[list[int]] | None, train: np.ndarray, test: np.ndarray,
                     seed: int) -> tuple[dict[str, float], int]:
     """Held-out scores of one variant, early-stopped on an inner split of the training part, and its best rounds."""
     model, best_rounds = fit_early_stopped(context.recipe, context.matrix[train], context.target[train], groups=chosen,
@@ -811,29 +824,47 @@ def _variant_scores(context: _FoldContext, chosen: list[list[int]] | None, train
     return _scores(context.recipe.task, context.target[test], predicted, context.n_classes), best_rounds
 
 
-def _one_fold(context: _FoldContext, item: tuple[int, np.ndarray, np.ndarray]) -> list[dict]:
-    """Rows of one outer fold: both variants, sharing the inner split so that they differ by the groups only."""
-    fold, train, test = item
-    seed = context.random_state + fold
-    free, free_rounds = _variant_scores(context, None, train, test, seed)
-    bound, bound_rounds = _variant_scores(context, context.groups, train, test, seed)
-    return [{"fold": fold, "metric": metric, "unconstrained": free[metric], "constrained": bound[metric],
-             "difference": bound[metric] - free[metric], "unconstrained_rounds": free_rounds,
-             "constrained_rounds": bound_rounds} for metric in free]
-
-
-def _fold_scores(context: _FoldContext, *, folds: int, n_jobs: int,
-                 progress: bool | None) -> tuple[pd.DataFrame, float]:
-    """Held-out scores and best rounds of both variants on each fold (numbered 1..K), and mean n_test / n_train."""
+def fold_splits(context: FoldContext, folds: int) -> list[tuple[int, np.ndarray, np.ndarray]]:
+    """Outer folds ``(fold, train rows, test rows)`` numbered 1..K, seeded shuffle, stratified for classifiers."""
     task = context.recipe.task
     splitter = (StratifiedKFold if task != REGRESSION else KFold)(n_splits=folds, shuffle=True,
                                                                    random_state=context.random_state)
     labels = context.target.astype(int) if task != REGRESSION else None
-    items = [(fold, train, test) for fold, (train, test) in enumerate(splitter.split(context.matrix, labels), start=1)]
-    rows = [row for part in run_tasks(partial(_one_fold, context), items, n_jobs=n_jobs, label="constraint folds",
-                                      progress=progress) for row in part]
-    ratios = [len(test) / len(train) for _, train, test in items]
-    return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS)), float(np.mean(ratios))
+    return [(fold, train, test) for fold, (train, test) in enumerate(splitter.split(context.matrix, labels), start=1)]
+
+
+# A variant's groups (None: unconstrained) and one outer fold (fold number, train rows, test rows).
+FoldTask = tuple[list[list[int]] | None, tuple[int, np.ndarray, np.ndarray]]
+
+
+def _variant_on_fold(context: FoldContext, task: FoldTask) -> tuple[dict, int]:
+    groups, (fold, train, test) = task
+    return _variant_scores(context, groups, train, test, context.random_state + fold)
+
+
+def cross_validated_scores(context: FoldContext, tasks: Sequence[FoldTask], *, n_jobs: int, progress: bool | None,
+                           label: str = "constraint folds") -> list[tuple[dict, int]]:
+    """Held-out scores and best round count of each task: a variant (groups, or None: unconstrained) on one split.
+
+    One early-stopped fit per task, all through :func:`treeprobe.parallel.run_tasks`.
+    Every variant uses the fold's seed (``random_state + fold``) for its inner
+    early-stopping split, so variants on a fold differ by their groups only.
+    """
+    return run_tasks(partial(_variant_on_fold, context), tasks, n_jobs=n_jobs, label=label, progress=progress)
+
+
+def _fold_scores(context: FoldContext, *, folds: int, n_jobs: int,
+                 progress: bool | None) -> tuple[pd.DataFrame, float]:
+    """Held-out scores and best rounds of both variants on each fold (numbered 1..K), and mean n_test / n_train."""
+    items = fold_splits(context, folds)
+    results = cross_validated_scores(context, [(groups, split) for split in items for groups in (None, context.groups)],
+                                     n_jobs=n_jobs, progress=progress)
+    rows = [{"fold": fold, "metric": metric, "unconstrained": free_scores[metric], "constrained": bound_scores[metric],
+             "difference": bound_scores[metric] - free_scores[metric], "unconstrained_rounds": free_rounds,
+             "constrained_rounds": bound_rounds}
+            for (fold, _, _), (free_scores, free_rounds), (bound_scores, bound_rounds)
+            in zip(items, results[0::2], results[1::2], strict=True) for metric in free_scores]
+    return pd.DataFrame(rows, columns=list(_FOLD_COLUMNS)), fold_size_ratio(items)
 
 
 def _budget_notes(per_fold: pd.DataFrame, budget: int) -> list[str]:
@@ -1032,7 +1063,7 @@ def validate_constraints(
     recipe, n_classes = _class_count(recipe, target)
     if matrix.shape[0] < 2 * folds:
         raise DataError(f"X has {matrix.shape[0]} rows, too few for {folds} folds")
-    context = _FoldContext(recipe, matrix, target, index_groups, n_classes, random_state, threads_per_fit(n_jobs))
+    context = FoldContext(recipe, matrix, target, index_groups, n_classes, random_state, threads_per_fit(n_jobs))
     table, test_to_train = _fold_scores(context, folds=folds, n_jobs=n_jobs, progress=progress)
     per_fold = table.drop_duplicates("fold")
     recommended = int(round(float(np.median(per_fold["constrained_rounds"]))))

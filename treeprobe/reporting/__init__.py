@@ -30,7 +30,8 @@ Sections of the page, each an HTML ``<section>`` whose ``id`` is listed in
     boosting rounds.
 ``constraints``
     Suggested interaction-constraint groups, the parameters and snippets to
-    copy, and the cross-validated cost when a validation is given.
+    copy, the cross-validated cost when a validation is given, and the curve,
+    table and chosen groups of a constraint search when one is given.
 ``changes`` (only with ``compare_with``)
     Changes since the previous version: pairs and features new, gone or
     changed (:func:`treeprobe.compare.compare_models`), placed before the
@@ -67,8 +68,18 @@ from ..graph import ForestGraph
 from ..io import load_model
 from ..output import atomic_write
 from ..progress import progress_bar
+from ..search import SearchResult
 from ..verdicts import TriageResult, triage
-from .figures import Canvas, arc_layout, dependence_svg, draw_arc_diagram, pair_map_svg, pyplot, rounds_svg
+from .figures import (
+    Canvas,
+    arc_layout,
+    dependence_svg,
+    draw_arc_diagram,
+    pair_map_svg,
+    pyplot,
+    rounds_svg,
+    search_curve_svg,
+)
 from .page import CHANGES_SECTION, SECTIONS, render_page
 from .style import VERDICT_STYLES
 
@@ -96,7 +107,7 @@ def _check_optional(name: str, value: Any, kind: type) -> None:
 
 
 def _check_options(out: Any, *, top_pairs: Any, title: Any, triage_result: Any, triage_origin: Any,
-                   suggestion: Any, validation: Any, triage_options: Any, progress: Any) -> Path:
+                   suggestion: Any, validation: Any, search: Any, triage_options: Any, progress: Any) -> Path:
     """Every option checked before any work; returns the output path."""
     if not isinstance(out, (str, os.PathLike)) or not str(out):
         raise ParameterError(f"out must be a file path, got {out!r}")
@@ -108,6 +119,7 @@ def _check_options(out: Any, *, top_pairs: Any, title: Any, triage_result: Any, 
     _check_optional("triage_result", triage_result, TriageResult)
     _check_optional("suggestion", suggestion, ConstraintSuggestion)
     _check_optional("validation", validation, ValidationResult)
+    _check_optional("search", search, SearchResult)
     if triage_result is not None and triage_options:
         raise ParameterError("triage_options has no effect when triage_result is given; pass one or the other")
     if triage_result is None and triage_origin is not None:
@@ -246,6 +258,7 @@ def report(
     triage_origin: str | None = None,
     suggestion: ConstraintSuggestion | None = None,
     validation: ValidationResult | None = None,
+    search: SearchResult | None = None,
     top_pairs: int = 4,
     title: str | None = None,
     triage_options: dict | None = None,
@@ -276,6 +289,11 @@ def report(
         By default ``suggest_constraints(triage_result)``.
     validation : ValidationResult, optional
         Shown when given; computing it retrains the model, so the caller decides.
+    search : SearchResult, optional
+        A constraint search (:func:`treeprobe.search.search_constraints`):
+        its loss curve is drawn and its steps, chosen groups and parameters
+        are shown in the constraints section. Computed by the caller (it
+        retrains many times).
     top_pairs : int, default 4
         Number of leading pairs drawn in the dependence and rounds sections.
     title : str, optional
@@ -350,7 +368,7 @@ def report(
     """
     target = _check_options(out, top_pairs=top_pairs, title=title, triage_result=triage_result,
                             triage_origin=triage_origin, suggestion=suggestion, validation=validation,
-                            triage_options=triage_options, progress=progress)
+                            search=search, triage_options=triage_options, progress=progress)
     canvas = Canvas(pyplot())
     steps = _Steps()
     graph = steps.run("load the model", load_model, model)
@@ -370,8 +388,13 @@ def report(
     figure_rows = _figure_rows(matrix, n_rows, int((triage_options or {}).get("random_state", 0)))
     leading = _leading_pairs(triage_result.pairs, top_pairs)
     figures = _draw_figures(canvas, steps, graph, figure_rows, triage_result, suggestion, leading, progress)
+    if search is not None:
+        figures["search"] = steps.run("figure: constraint search curve", search_curve_svg, canvas, search.steps,
+                                      search.unconstrained, search.chosen_step, search.facts["threshold"],
+                                      search.facts["metric"])
     text = render_page(graph=graph, result=triage_result, suggestion=suggestion, validation=validation,
-                       figures=figures, steps=steps.times, triage_origin=triage_origin, target_text=_target_text(y),
+                       search=search, figures=figures, steps=steps.times,
+                       triage_origin=triage_origin, target_text=_target_text(y),
                        rows_available=matrix.shape[0], n_figure_rows=figure_rows.shape[0], title=title,
                        comparison=comparison)
     return atomic_write(target, lambda handle: handle.write(text))

@@ -13,7 +13,9 @@ Four drawings:
   other (Friedman 2001 [1]_, eq. 9) and the two-way surface, in the
   'cividis' colour map, which reads the same with colour-vision deficiency
   and in greyscale [2]_;
-* cumulative nested gain of the leading pairs over boosting rounds.
+* cumulative nested gain of the leading pairs over boosting rounds;
+* the curve of a constraint search: held-out loss against the step, with
+  one standard error, the unconstrained model and the one-standard-error line.
 
 matplotlib is optional (the ``treeprobe[plot]`` extra), so it is imported
 only when a figure is drawn. Data for the figures (:func:`pair_map_marks`,
@@ -56,6 +58,7 @@ __all__ = [
     "draw_arc_diagram",
     "dependence_svg",
     "rounds_svg",
+    "search_curve_svg",
 ]
 
 _MAP_LABELS = 6
@@ -556,3 +559,32 @@ def rounds_svg(canvas: Canvas, graph: ForestGraph, leading: pd.DataFrame, output
     ax.legend(fontsize=8, frameon=False, loc="upper left", bbox_to_anchor=(0.0, -0.14), ncol=2)
     columns = ["feature_a", "feature_b", "verdict", "first_round", "half_round", "final_gain"]
     return canvas.svg(fig), pd.DataFrame(entries, columns=columns)
+
+
+# ------------------------------------------------------------------ constraint search
+def search_curve_svg(canvas: Canvas, steps: pd.DataFrame, unconstrained: dict, chosen_step: int, threshold: float,
+                     metric: str) -> str:
+    """Held-out loss of each kept step (± one standard error), the unconstrained model and the chosen step.
+
+    ``steps`` has the columns ``step``, ``loss``, ``loss_se`` of
+    :class:`treeprobe.search.SearchResult`; ``threshold`` is the lowest loss
+    plus its standard error (the one-standard-error rule).
+    """
+    fig, ax = canvas.figure(figsize=(8.4, 4.4))
+    x, loss, se = steps["step"].to_numpy(), steps["loss"].to_numpy(), steps["loss_se"].to_numpy()
+    free, free_se = float(unconstrained["loss"]), float(unconstrained["loss_se"])
+    ax.axhspan(free - free_se, free + free_se, color=SERIES_COLOURS[1], alpha=0.12, linewidth=0)
+    ax.axhline(free, color=SERIES_COLOURS[1], linestyle="dashed", linewidth=1.4,
+               label=f"unconstrained model ({free:.4g} ± {free_se:.2g})")
+    ax.axhline(threshold, color=_INK, linestyle=(0, (1, 2)), linewidth=1.0,
+               label=f"lowest loss + one standard error ({threshold:.4g})")
+    ax.errorbar(x, loss, yerr=se, color=SERIES_COLOURS[0], marker="o", markersize=5, linewidth=1.8, capsize=3,
+                label="groups of the step (± one standard error)")
+    chosen = steps["step"] == chosen_step
+    ax.scatter(x[chosen], loss[chosen], s=170, marker="D", facecolors="none", edgecolors=_INK, linewidths=1.6, zorder=4,
+               label=f"chosen: step {chosen_step}")
+    ax.set_xticks(x)
+    ax.set_xlabel("step (0 = every feature alone; each step allows one more interaction)")
+    ax.set_ylabel(f"held-out {metric} (mean over folds)")
+    ax.legend(fontsize=8, frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=2)
+    return canvas.svg(fig)

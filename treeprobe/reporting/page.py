@@ -243,16 +243,41 @@ def _changes(comparison: Any) -> dict | None:
     }
 
 
+def _search(search: Any, figures: dict) -> dict | None:
+    """The constraint search's curve, table rows, chosen groups, parameters and snippets."""
+    if search is None:
+        return None
+    facts, free = search.facts, search.unconstrained
+    rows = [{"step": row["step"], "added": row["added"],
+             "groups": "; ".join("{" + ", ".join(group) + "}" for group in row["groups"]) or "-",
+             "allowed_pairs": row["allowed_pairs"], "loss": row["loss"], "loss_se": row["loss_se"],
+             "gain": row["gain"], "gain_se": row["gain_se"], "rounds": row["rounds"], "tried": row["tried"],
+             "chosen": row["step"] == search.chosen_step} for row in search.steps.to_dict(orient="records")]
+    return {
+        "svg": Markup(figures["search"]), "metric": facts["metric"], "n_folds": facts["n_folds"],
+        "family": facts["family"], "fits": facts["fits"], "seconds": _seconds(facts["seconds"]),
+        "estimated_fits": facts["estimated_fits"], "stop_text": facts["stop_text"], "rows": rows,
+        "chosen_step": search.chosen_step, "threshold": facts["threshold"],
+        "chosen_groups": search.chosen_groups, "rounds": search.recommended_rounds,
+        "free_loss": free["loss"], "free_se": free["loss_se"], "free_rounds": free["rounds"],
+        "difference": free["chosen_minus_unconstrained"], "difference_se": free["chosen_minus_unconstrained_se"],
+        "xgboost_param": search.suggestion.xgboost_param, "lightgbm_param": search.suggestion.lightgbm_param,
+        "snippets": {library: search.python_snippet(library) for library in ("xgboost", "lightgbm")},
+        "notes": list(search.notes),
+    }
+
+
 def render_page(*, graph: ForestGraph, result: Any, suggestion: Any, validation: Any, figures: dict,
                 steps: Sequence[tuple[str, float]], triage_origin: str | None, target_text: str, rows_available: int,
-                n_figure_rows: int, title: str | None, comparison: Any = None) -> str:
+                n_figure_rows: int, title: str | None, comparison: Any = None, search: Any = None) -> str:
     """The HTML text of the report.
 
     ``figures`` holds the SVG text drawn by :mod:`treeprobe.reporting.figures`:
     ``pair_map``, ``links``, ``links_note``, ``dependence`` (a list of
-    (pair row, svg)), ``rounds`` (svg or None) and ``entries`` (DataFrame).
-    ``comparison`` (a :class:`treeprobe.compare.ModelComparison`) adds the
-    section ``CHANGES_SECTION`` before the cautions.
+    (pair row, svg)), ``rounds`` (svg or None), ``entries`` (DataFrame) and,
+    with a ``search``, its curve ``search``. ``comparison`` (a
+    :class:`treeprobe.compare.ModelComparison`) adds the section
+    ``CHANGES_SECTION`` before the cautions.
     """
     # Imported here: the package sets its version after importing this module.
     from .. import __version__
@@ -282,6 +307,7 @@ def render_page(*, graph: ForestGraph, result: Any, suggestion: Any, validation:
         "snippets": {library: suggestion.python_snippet(library) for library in ("xgboost", "lightgbm")},
         "validation": _validation(validation),
         "changes": _changes(comparison),
+        "search": _search(search, figures),
         "thresholds": list(result.thresholds.items()),
         "limits": result.limits,
     }
