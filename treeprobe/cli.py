@@ -770,11 +770,15 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
 
 # ------------------------------------------------------------------- parser
+def _add_trust_pickle(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--trust-pickle", action="store_true",
+                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+
+
 def _add_model(p: argparse.ArgumentParser) -> None:
     p.add_argument("model", metavar="MODEL", help="saved model: XGBoost .json/.ubj, LightGBM model text, or a pickle "
                    "(with --trust-pickle)")
-    p.add_argument("--trust-pickle", action="store_true",
-                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+    _add_trust_pickle(p)
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:
@@ -906,8 +910,7 @@ def _check_command_options(p: argparse.ArgumentParser) -> None:
 def _diff_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("old", metavar="OLD", help="the previous version of the model (any format inspect reads)")
     p.add_argument("new", metavar="NEW", help="the new version; it may come from another library")
-    p.add_argument("--trust-pickle", action="store_true",
-                   help="allow loading pickle/joblib files; unpickling runs code from the file, so only for files you trust")
+    _add_trust_pickle(p)
     p.add_argument("--data", metavar="FILE",
                    help="CSV (or Parquet) with the input columns of both versions: adds H², h and the verdict of "
                         "each version (triage without target)")
