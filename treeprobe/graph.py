@@ -82,7 +82,8 @@ UNSEEN_CATEGORY_RULES = ("missing", "unlisted")
 NEGATIVE_CATEGORY_RULES = ("none", "truncate")
 IMPORTANCE_POOLINGS = ("", "normalised_per_tree", "raw_per_tree")
 MAX_DEPTH = 512
-_ZERO_THRESHOLD = 1e-35
+# |v| at or below this is missing at a zero_as_missing split (LightGBM's kZeroThreshold); read by the exact engine too.
+ZERO_MISSING_BOUND = 1e-35
 _ROW_BLOCK_CELLS = 4_000_000
 # Values (rows x feature slots) of one block of the fast walk: keeps its lookup table in cache.
 _FAST_BLOCK_VALUES = 1 << 19
@@ -330,7 +331,7 @@ class _Routing:
         """The four copies of every column, slot-major and flattened: ``table[slot * n_rows + row]``."""
         columns = arr.T.astype(self.table_dtype)
         missing = np.isnan(columns)
-        zero = missing | (np.abs(columns) <= _ZERO_THRESHOLD)
+        zero = missing | (np.abs(columns) <= ZERO_MISSING_BOUND)
         table = np.empty((4, columns.shape[0], columns.shape[1]), dtype=self.table_dtype)
         for variant, (absent, fill) in enumerate([(missing, -np.inf), (missing, np.inf), (zero, -np.inf),
                                                   (zero, np.inf)]):
@@ -839,7 +840,7 @@ class ForestGraph:
         thr = self.threshold[node]
         with np.errstate(invalid="ignore"):
             numeric_left = (x < thr) if self.threshold_rule == "<" else (x <= thr)
-        missing = np.isnan(x) | (self.zero_as_missing[node] & (np.abs(x) <= _ZERO_THRESHOLD))
+        missing = np.isnan(x) | (self.zero_as_missing[node] & (np.abs(x) <= ZERO_MISSING_BOUND))
         go_left = np.where(missing, self.missing_left[node], numeric_left)
         cat = self.is_categorical[node]
         if cat.any():

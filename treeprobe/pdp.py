@@ -58,20 +58,19 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
-from scipy.sparse import csr_matrix
 
 from .checks import check_choice, check_int
 from .data import model_matrix, numeric_array
 from .errors import DataError, ParameterError
-from .graph import ForestGraph
+from .graph import ZERO_MISSING_BOUND, ForestGraph
 from .io import load_model
-from .paths import encode_sets, leaf_steps, parent_links, tree_nodes
+from .paths import decode_sets, encode_sets, leaf_steps, parent_links, tree_nodes
 from .progress import progress_bar
 
 __all__ = ["partial_dependence"]
 
 # Cells (rows x columns) of one working matrix: bounds the memory of every chunk.
-CELL_BUDGET = 2**23
+CELL_BUDGET = 2**25
 # Bytes of modified rows one brute-force batch may hold.
 BRUTE_BATCH_BYTES = 256 * 1024**2
 
@@ -207,6 +206,7 @@ class PathTable:
     """
 
     leaf_value: np.ndarray        # (n_leaves,) weighted leaf value for the chosen output
+    leaf_node: np.ndarray         # (n_leaves,) global node index of each leaf
     used_nodes: np.ndarray        # (n_used,) internal nodes on the paths
     step_node: np.ndarray         # (n_steps,) position of the step's node in used_nodes
     step_left: np.ndarray         # (n_steps,) whether the path goes left there
@@ -236,7 +236,7 @@ def path_table(
     leaves = leaf_nodes[parent[leaf_nodes] >= 0]
     if not leaves.size:
         empty = np.zeros(0, dtype=np.int64)
-        return PathTable(np.zeros(0), empty, empty, np.zeros(0, bool), empty, empty, empty, empty,
+        return PathTable(np.zeros(0), empty, empty, empty, np.zeros(0, bool), empty, empty, empty, empty,
                          float(node_value[single].sum()))
     leaf_of_step, node_of_step, left_of_step = leaf_steps(parent, is_left, leaves)
     feature_of_step = ens.feature[node_of_step].astype(np.int64)
@@ -249,6 +249,7 @@ def path_table(
     used_nodes, node_position = np.unique(node_of_step, return_inverse=True)
     return PathTable(
         leaf_value=node_value[leaves],
+        leaf_node=leaves,
         used_nodes=used_nodes,
         step_node=node_position.ravel(),
         step_left=left_of_step,
@@ -303,6 +304,214 @@ def _sum_rows_by(values: np.ndarray, group: np.ndarray, into: np.ndarray) -> Non
     into[sorted_group[starts]] += np.add.reduceat(values[np.flatnonzero(keep)[order]], starts, axis=0)
 
 
+# --------------------------------------------------------------------------- row cells and bit sets
+def _popcount(words: np.ndarray) -> np.ndarray:
+    """Set bits of every row of a uint64 matrix (``np.bitwise_count`` from numpy 2.0, else by bytes)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(words).sum(axis=-1, dtype=np.int64)
+    return _popcount_by_bytes(words)
+
+
+def _popcount_by_bytes(words: np.ndarray) -> np.ndarray:
+    return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1).sum(axis=-1, dtype=np.int64)
+
+
+def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
+    """Boolean (k, n_rows) matrix of uint64 row sets (bit ``i % 64`` of word ``i // 64`` is row ``i``)."""
+    return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1, count=n_rows, bitorder="little")
+
+
+@dataclass(frozen=True)
+class RowCells:
+    """The rows binned per feature so that one cell's rows go the same way at every split on the feature.
+
+    Regular cells ``0..K_j`` lie between the sorted distinct thresholds ``T_j``
+    of the numeric splits on feature ``j``: value ``v`` is in cell ``c(v)``, the
+    number of thresholds at which it goes right, and a split at ``T_j[k]`` sends
+    it left exactly when ``c(v) <= k``, so a path's conditions on ``j`` keep an
+    interval of regular cells. Special values (missing, read as missing by a
+    ``zero_as_missing`` split, or any value of a feature with categorical
+    splits) get one cell per distinct value, numbered after the regular ones and
+    routed by the graph's own rule. ``prefix`` holds, per feature and ``k``, the
+    set of rows in cells below ``k`` as uint64 words, so the rows of any cell
+    interval cost two lookups.
+    """
+
+    n_rows: int
+    n_regular: np.ndarray        # (p,) K_j + 1 (0 for features routed by value only)
+    n_cells: np.ndarray          # (p,) regular plus special cells
+    node_rank: np.ndarray        # (n_nodes,) index of the node's threshold in T_j, -1 where not regular
+    special_offset: np.ndarray   # (p + 1,) CSR offsets of special_values
+    special_values: np.ndarray   # distinct special values per feature (in split precision)
+    cell: np.ndarray             # (p, n_rows) cell of every row
+    rank: np.ndarray             # (p, n_rows) position of the row's cell among the occupied cells
+    snap_offset: np.ndarray      # (p + 1,) CSR offsets of snap
+    snap: np.ndarray             # per feature and cell bound k: occupied cells below k
+    prefix_offset: np.ndarray    # (p + 1,) first row of each feature's prefix sets
+    prefix: np.ndarray           # (sum(n_cells + 1), n_words) rows with cell < k
+    valid: np.ndarray            # (n_words,) the bits that stand for rows
+
+    @property
+    def n_words(self) -> int:
+        return int(self.valid.shape[0])
+
+
+def _routed_by_value(ens: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
+    """Features whose every value is special (categorical or non-numeric thresholds), and features with a
+    ``zero_as_missing`` split."""
+    inner = ens.feature >= 0
+    feature = ens.feature[inner]
+    whole = np.zeros(ens.n_features, dtype=bool)
+    whole[feature[ens.is_categorical[inner] | np.isnan(ens.threshold[inner])]] = True
+    zero = np.zeros(ens.n_features, dtype=bool)
+    zero[feature[ens.zero_as_missing[inner]]] = True
+    return whole, zero
+
+
+def _feature_cells(column: np.ndarray, thresholds: np.ndarray, special: np.ndarray, n_regular: int, side: str):
+    """Cells of one column: regular by threshold count, special by distinct value after the regular ones."""
+    cell = np.empty(column.shape[0], dtype=np.int64)
+    cell[~special] = np.searchsorted(thresholds, column[~special], side=side)
+    values, inverse = np.unique(column[special], return_inverse=True)
+    cell[special] = n_regular + inverse.ravel()
+    return cell, values
+
+
+def _prefix_sets(cell: np.ndarray, n_cells: int, n_words: int) -> np.ndarray:
+    """(n_cells + 1, n_words) uint64: row ``i`` is in set ``k`` when ``cell[i] < k``."""
+    rows = np.arange(cell.shape[0])
+    own = np.zeros((n_cells + 1, n_words), dtype=np.uint64)
+    np.bitwise_or.at(own, (cell + 1, rows >> 6), np.left_shift(np.uint64(1), (rows & 63).astype(np.uint64)))
+    return np.bitwise_or.accumulate(own, axis=0)
+
+
+def row_cells(ens: ForestGraph, matrix: np.ndarray) -> RowCells:
+    """:class:`RowCells` of the rows of ``matrix`` (the model's float matrix) for the splits of ``ens``."""
+    n_rows, p = matrix.shape
+    n_words = max(1, -(-n_rows // 64))
+    values = matrix.astype(ens.split_dtype, copy=False).astype(np.float64)
+    whole, zero = _routed_by_value(ens)
+    side = "right" if ens.threshold_rule == "<" else "left"
+    node_rank = np.full(ens.n_nodes, -1, dtype=np.int64)
+    by_feature = np.argsort(ens.feature, kind="stable")
+    bounds = np.searchsorted(ens.feature[by_feature], np.arange(p + 1))
+    cells, specials, prefixes, snaps, ranks = [], [], [], [], []
+    n_regular = np.zeros(p, dtype=np.int64)
+    for j in range(p):
+        nodes = by_feature[bounds[j]:bounds[j + 1]]
+        column = values[:, j]
+        if whole[j]:
+            thresholds = np.zeros(0)
+            special = np.ones(n_rows, dtype=bool)
+        else:
+            thresholds, node_rank[nodes] = np.unique(ens.threshold[nodes], return_inverse=True)
+            n_regular[j] = thresholds.size + 1
+            special = np.isnan(column) | (zero[j] & (np.abs(column) <= ZERO_MISSING_BOUND))
+        cell, special_values = _feature_cells(column, thresholds, special, int(n_regular[j]), side)
+        n_cells = int(n_regular[j]) + special_values.size
+        occupied = np.unique(cell)
+        cells.append(cell)
+        specials.append(special_values)
+        ranks.append(np.searchsorted(occupied, cell))
+        snaps.append(np.searchsorted(occupied, np.arange(n_cells + 1)))
+        prefixes.append(_prefix_sets(cell, n_cells, n_words))
+    valid = np.zeros(n_words, dtype=np.uint64)
+    valid[: n_rows // 64] = ~np.uint64(0)
+    if n_rows % 64:
+        valid[n_rows // 64] = (np.uint64(1) << np.uint64(n_rows % 64)) - np.uint64(1)
+    n_cells = np.array([prefix.shape[0] - 1 for prefix in prefixes], dtype=np.int64)
+    return RowCells(
+        n_rows=n_rows,
+        n_regular=n_regular,
+        n_cells=n_cells,
+        node_rank=node_rank,
+        special_offset=np.r_[0, np.cumsum([s.size for s in specials])].astype(np.int64),
+        special_values=np.concatenate(specials) if specials else np.zeros(0),
+        cell=np.array(cells).reshape(p, n_rows),
+        rank=np.array(ranks).reshape(p, n_rows),
+        snap_offset=np.r_[0, np.cumsum(n_cells + 1)].astype(np.int64),
+        snap=np.concatenate(snaps) if snaps else np.zeros(0, np.int64),
+        prefix_offset=np.r_[0, np.cumsum(n_cells + 1)].astype(np.int64),
+        prefix=np.concatenate(prefixes) if prefixes else np.zeros((0, n_words), np.uint64),
+        valid=valid,
+    )
+
+
+@dataclass(frozen=True)
+class EntryCells:
+    """The cells each path entry (one leaf's conditions on one feature) lets through, as cell intervals.
+
+    Intervals are sorted by entry and every entry has at least one (its regular
+    interval, possibly empty); each special cell it passes adds a one-cell interval.
+    """
+
+    entry: np.ndarray   # (n_intervals,)
+    low: np.ndarray     # (n_intervals,) first cell
+    high: np.ndarray    # (n_intervals,) one past the last cell
+    start: np.ndarray   # (n_entries,) first interval of each entry
+    count: np.ndarray   # (n_entries,)
+
+
+def _special_passes(ens: ForestGraph, table: PathTable, cells: RowCells, step_nodes: np.ndarray,
+                    entry_steps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Entries and special cells where the entry's conditions hold, by the graph's routing rule."""
+    n_special = np.diff(cells.special_offset)[table.entry_feature]
+    pair_entry = np.repeat(np.arange(table.n_entries), n_special)
+    pair_special = np.arange(pair_entry.size) - np.repeat(np.cumsum(n_special) - n_special, n_special)
+    if not pair_entry.size:
+        return pair_entry, pair_special
+    steps = entry_steps[pair_entry]
+    step = np.repeat(table.entry_step_start[pair_entry], steps)
+    step += np.arange(step.size) - np.repeat(np.cumsum(steps) - steps, steps)
+    value = cells.special_values[cells.special_offset[table.entry_feature[pair_entry]] + pair_special]
+    value = np.repeat(value, steps).astype(ens.split_dtype)
+    fails = ens._goes_left(step_nodes[step], value) != table.step_left[step]
+    failed = np.logical_or.reduceat(fails, np.cumsum(steps) - steps)
+    keep = ~failed
+    return pair_entry[keep], cells.n_regular[table.entry_feature[pair_entry[keep]]] + pair_special[keep]
+
+
+def entry_cells(ens: ForestGraph, table: PathTable, cells: RowCells) -> EntryCells:
+    """:class:`EntryCells` of a path table: a regular interval from threshold ranks, special cells one by one."""
+    step_nodes = table.used_nodes[table.step_node]
+    entry_steps = np.diff(np.r_[table.entry_step_start, step_nodes.size])
+    bound = cells.node_rank[step_nodes] + 1
+    regular = bound > 0
+    low = np.maximum.reduceat(np.where(table.step_left | ~regular, 0, bound), table.entry_step_start)
+    high = np.minimum.reduceat(np.where(table.step_left & regular, bound, np.iinfo(np.int64).max),
+                               table.entry_step_start)
+    high = np.minimum(high, cells.n_regular[table.entry_feature])
+    empty = low >= high
+    low[empty], high[empty] = 0, 0
+    special_entry, special_cell = _special_passes(ens, table, cells, step_nodes, entry_steps)
+    entry = np.r_[np.arange(table.n_entries), special_entry]
+    order = np.argsort(entry, kind="stable")
+    count = np.bincount(entry, minlength=table.n_entries)
+    return EntryCells(entry=entry[order], low=np.r_[low, special_cell][order],
+                      high=np.r_[high, special_cell + 1][order], start=np.cumsum(count) - count, count=count)
+
+
+def _entry_rows(table: PathTable, cells: RowCells, intervals: EntryCells) -> np.ndarray:
+    """(n_entries, n_words) rows meeting each entry's conditions (the union of its intervals)."""
+    base = cells.prefix_offset[table.entry_feature[intervals.entry]]
+    rows = cells.prefix[base + intervals.high] & ~cells.prefix[base + intervals.low]
+    return np.bitwise_or.reduceat(rows, intervals.start, axis=0)
+
+
+def _failure_counts(table: PathTable, fail: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per leaf, the rows failing at least one, two and three of its entries (bit-sliced counting)."""
+    counts = np.diff(np.r_[table.leaf_entry_start, table.n_entries])
+    shape = (table.n_leaves, fail.shape[1])
+    ones, twos, threes = np.zeros(shape, np.uint64), np.zeros(shape, np.uint64), np.zeros(shape, np.uint64)
+    for position in range(int(counts.max(initial=0))):
+        leaves = np.flatnonzero(counts > position)
+        failed = fail[table.leaf_entry_start[leaves] + position]
+        threes[leaves] |= twos[leaves] & failed
+        twos[leaves] |= ones[leaves] & failed
+        ones[leaves] |= failed
+    return ones, twos, threes
+
+
 # --------------------------------------------------------------------------- exact engine (H-statistics)
 def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None) -> list:
     """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar."""
@@ -347,125 +556,117 @@ def _lookup(keys: np.ndarray, known: np.ndarray) -> np.ndarray:
     return np.where(known[position] == keys, position, -1)
 
 
-def _exact_sums(
+def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For items with ``counts`` members each: the item and the member's position, one entry per member."""
+    item = np.repeat(np.arange(counts.size), counts)
+    return item, np.arange(item.size) - np.repeat(np.cumsum(counts) - counts, counts)
+
+
+def _pair_boxes(intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray], full: tuple[np.ndarray, np.ndarray]) -> dict:
+    """Cell boxes (first feature x second feature) of the pair terms of entry pairs, with their weights.
+
+    ``weights`` are the product term's and the two linear terms' weights per
+    entry pair; a linear term spans every cell of the other feature (``full``).
+    """
+    both, alone_first, alone_second = weights
+    n_first, n_second = intervals.count[first], intervals.count[second]
+    combo, k = _expand(n_first * n_second)
+    i_first = intervals.start[first][combo] + k // n_second[combo]
+    i_second = intervals.start[second][combo] + k % n_second[combo]
+    combo_a, k_a = _expand(n_first)
+    i_a = intervals.start[first][combo_a] + k_a
+    combo_b, k_b = _expand(n_second)
+    i_b = intervals.start[second][combo_b] + k_b
+    low, high = intervals.low, intervals.high
+    boxes = {
+        "pair": np.r_[target[combo], target[combo_a], target[combo_b]],
+        "a_low": np.r_[low[i_first], low[i_a], np.zeros(combo_b.size, np.int64)],
+        "a_high": np.r_[high[i_first], high[i_a], full[0][combo_b]],
+        "b_low": np.r_[low[i_second], np.zeros(combo_a.size, np.int64), low[i_b]],
+        "b_high": np.r_[high[i_second], full[1][combo_a], high[i_b]],
+        "weight": np.r_[both[combo], alone_first[combo_a], alone_second[combo_b]],
+    }
+    keep = (boxes["a_low"] < boxes["a_high"]) & (boxes["b_low"] < boxes["b_high"]) & (boxes["weight"] != 0)
+    return {name: values[keep] for name, values in boxes.items()}
+
+
+def _exact_chunk(
     ens: ForestGraph,
-    matrix: np.ndarray,
+    cells: RowCells,
     trees: np.ndarray,
     output: int,
     pair_keys: np.ndarray,
     triple_keys: np.ndarray,
     want_against_rest: bool,
-) -> dict[str, np.ndarray]:
-    """Leaf-wise sums of one group of trees (see the module docstring); all are additive over trees.
+) -> dict[str, Any]:
+    """Leaf-wise pieces of one group of trees (see the module docstring); every piece adds up over groups.
 
-    Returns, one row per function and one column per data row: ``main`` (p, n),
-    the uncentred ``F_j``; ``pair`` (n_pairs, n) and ``triple`` (n_triples, n), the
-    interaction parts; ``prediction`` (n,) and ``rest`` (p, n), ``F`` and
-    ``F - F_notj`` (``rest`` only when ``want_against_rest``); all up to constants.
+    Shares ``w_L(S)`` come from bit-packed row sets: per leaf, the rows failing
+    at least one, two and three of its path features (bit-sliced counting), so
+    the rows failing nothing but a given entry or pair of entries are a few
+    AND/popcount steps. Per-row functions come back as weighted cell intervals
+    (``main``) and cell boxes (``pair``), evaluated once for all groups, and as
+    dense sums where they need whole rows (``rest``, ``triple``).
     """
-    n_rows, n_features = matrix.shape[0], ens.n_features
+    n_rows, n_features = cells.n_rows, ens.n_features
     _, node_value = leaf_value_column(ens, output)
-    links = parent_links(ens)
-    sums = {
-        "main": np.zeros((n_features, n_rows)),
-        "pair": np.zeros((pair_keys.size, n_rows)),
-        "triple": np.zeros((triple_keys.size, n_rows)),
-        "prediction": np.zeros(n_rows),
-        "rest": np.zeros((n_features, n_rows)),
-    }
-    block = max(1, CELL_BUDGET // max(n_rows, 1))
-    for chunk in tree_chunks(ens, trees, n_rows):
-        table = path_table(ens, chunk, node_value, links)
-        if not table.n_leaves:
-            continue
-        fail, n_failed = failed_conditions(ens, table, matrix)
-        entry_value = table.leaf_value[table.entry_leaf]
-        reach_apart = (n_failed[table.entry_leaf] - fail) == 0
-        share_one = reach_apart.mean(axis=1)
-        passed = (~fail).astype(np.float64)
-        sums["main"] += _grouping(table.entry_feature, entry_value * share_one, n_features) @ passed
-        sums["prediction"] += table.leaf_value @ (n_failed == 0)
-        if want_against_rest:
-            centred_pass = reach_apart * (passed - passed.mean(axis=1, keepdims=True))
-            sums["rest"] += _grouping(table.entry_feature, entry_value, n_features) @ centred_pass
-            del centred_pass
-        del reach_apart
-        if pair_keys.size:
-            _add_pair_terms(table, fail, n_failed, passed, share_one, pair_keys, n_features, block, sums["pair"])
-        if triple_keys.size:
-            combos = _entry_combos(table, 3)
-            target = _lookup(_combo_keys(table, combos, n_features), triple_keys)
-            wanted = np.flatnonzero(target >= 0)
-            for start in range(0, wanted.size, block):
-                pick = wanted[start:start + block]
-                term = _interaction_term(table, fail, n_failed, share_one, [c[pick] for c in combos])
-                _sum_rows_by(term, target[pick], sums["triple"])
-    return sums
-
-
-def _grouping(group: np.ndarray, weight: np.ndarray, n_groups: int) -> csr_matrix:
-    """Sparse (n_groups, n_members) matrix: ``matrix @ values`` sums weighted rows by group."""
-    return csr_matrix((weight, (group, np.arange(group.size))), shape=(n_groups, group.size))
-
-
-def _double_failure_share(
-    table: PathTable, fail: np.ndarray, n_failed: np.ndarray, first: np.ndarray, second: np.ndarray
-) -> np.ndarray:
-    """Share of rows failing exactly the two entries ``first`` and ``second`` of their leaf, and nothing else.
-
-    Such rows are few, so they are counted from the sparse set of (entry, row)
-    failures on leaves failed twice, grouped by (row, leaf).
-    """
-    entries, rows = np.nonzero(fail & (n_failed[table.entry_leaf] == 2))
-    order = np.lexsort((entries, rows * table.n_leaves + table.entry_leaf[entries]))
-    entries = entries[order]
-    n_entries = table.n_entries
-    keys, counts = np.unique(entries[0::2] * n_entries + entries[1::2], return_counts=True)
-    position = _lookup(first * n_entries + second, keys)
-    return np.where(position >= 0, counts[np.maximum(position, 0)], 0) / fail.shape[1]
-
-
-def _add_pair_terms(
-    table: PathTable,
-    fail: np.ndarray,
-    n_failed: np.ndarray,
-    passed: np.ndarray,
-    share_one: np.ndarray,
-    pair_keys: np.ndarray,
-    n_features: int,
-    block: int,
-    into: np.ndarray,
-) -> None:
-    """Add ``v_L [C_a C_b w_L(ab) - C_a w_L(a) - C_b w_L(b)]`` of every leaf into its pair's row.
-
-    ``w_L(ab) = w_L(a) + w_L(b) - w_L(none) + share failing exactly a and b``
-    (rows whose failures lie inside {a, b}). The linear terms are one sparse
-    product; only the product ``C_a C_b`` needs a pass per leaf and pair.
-    """
-    first, second = _entry_combos(table, 2)
-    target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
-    order = np.flatnonzero(target >= 0)
-    order = order[np.argsort(target[order], kind="stable")]
-    first, second, target = first[order], second[order], target[order]
-    if not target.size:
-        return
-    leaf = table.entry_leaf[first]
+    table = path_table(ens, trees, node_value, parent_links(ens))
+    parts: dict[str, Any] = {"main": None, "boxes": None, "rest_leaf": None, "rest": None, "triple": None}
+    if not table.n_leaves:
+        return parts
+    intervals = entry_cells(ens, table, cells)
+    passes = _entry_rows(table, cells, intervals)
+    fail = passes ^ cells.valid
+    ones, twos, threes = _failure_counts(table, fail)
+    leaf = table.entry_leaf
+    none = _popcount(~ones & cells.valid)
+    exactly = ~twos[leaf] & fail
+    exactly_count = _popcount(exactly)
+    share_one = (none[leaf] + exactly_count) / n_rows
     value = table.leaf_value[leaf]
-    share_none = (n_failed == 0).mean(axis=1)[leaf]
-    share_two = share_one[first] + share_one[second] - share_none + _double_failure_share(
-        table, fail, n_failed, first, second)
-    linear = csr_matrix(
-        (-np.r_[value * share_one[first], value * share_one[second]], (np.r_[target, target], np.r_[first, second])),
-        shape=(pair_keys.size, table.n_entries),
-    )
-    into += linear @ passed
-    weight = (value * share_two)[:, None]
-    for start in range(0, target.size, block):
-        stop = min(start + block, target.size)
-        both = ~(fail[first[start:stop]] | fail[second[start:stop]])
-        piece_target = target[start:stop]
-        starts = np.flatnonzero(np.r_[True, piece_target[1:] != piece_target[:-1]])
-        into[piece_target[starts]] += np.add.reduceat(both * weight[start:stop], starts, axis=0)
+    parts["main"] = (table.entry_feature[intervals.entry], intervals.low, intervals.high,
+                     (value * share_one)[intervals.entry])
+    if want_against_rest:
+        passing = _popcount(passes) / n_rows
+        parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
+        rows_exactly = _unpack(exactly, n_rows)
+        entry, row = np.nonzero(rows_exactly)
+        del rows_exactly
+        parts["rest"] = np.bincount(table.entry_feature[entry] * n_rows + row, weights=(-value * passing)[entry],
+                                    minlength=n_features * n_rows).reshape(n_features, n_rows)
+    if pair_keys.size:
+        first, second = _entry_combos(table, 2)
+        target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
+        wanted = target >= 0
+        first, second, target = first[wanted], second[wanted], target[wanted]
+        combo_leaf = leaf[first]
+        double = _popcount(~threes[combo_leaf] & fail[first] & fail[second])
+        share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_rows
+        leaf_value = table.leaf_value[combo_leaf]
+        full = (cells.n_cells[table.entry_feature[first]], cells.n_cells[table.entry_feature[second]])
+        parts["boxes"] = _pair_boxes(intervals, first, second, target, (leaf_value * share_two,
+                                     -leaf_value * share_one[first], -leaf_value * share_one[second]), full)
+    if triple_keys.size:
+        parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one, triple_keys,
+                                       n_features)
+    return parts
+
+
+def _triple_sums(table: PathTable, fail: np.ndarray, share_one: np.ndarray, triple_keys: np.ndarray,
+                 n_features: int) -> np.ndarray:
+    """Per-row triple terms (:func:`_interaction_term`) of the leaves splitting on each requested triple."""
+    n_failed = np.add.reduceat(fail, table.leaf_entry_start, axis=0, dtype=np.int16)
+    out = np.zeros((triple_keys.size, fail.shape[1]))
+    combos = _entry_combos(table, 3)
+    target = _lookup(_combo_keys(table, combos, n_features), triple_keys)
+    wanted = np.flatnonzero(target >= 0)
+    block = max(1, CELL_BUDGET // max(fail.shape[1], 1))
+    for start in range(0, wanted.size, block):
+        pick = wanted[start:start + block]
+        term = _interaction_term(table, fail, n_failed, share_one, [c[pick] for c in combos])
+        _sum_rows_by(term, target[pick], out)
+    return out
 
 
 def _interaction_term(
@@ -498,6 +699,66 @@ def _interaction_term(
             term += inside * (sign * share)[:, None]
     return term * table.leaf_value[leaf][:, None]
 
+
+def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: np.ndarray,
+                   weight: np.ndarray) -> np.ndarray:
+    """(p, n_rows): per feature, the summed weights of the cell intervals holding each row's cell."""
+    base = cells.prefix_offset[feature]
+    steps = np.bincount(np.r_[base + low, base + high], weights=np.r_[weight, -weight],
+                        minlength=int(cells.prefix_offset[-1]))
+    out = np.empty((cells.n_cells.size, cells.n_rows))
+    for j in range(out.shape[0]):
+        out[j] = np.cumsum(steps[cells.prefix_offset[j]:cells.prefix_offset[j + 1]])[cells.cell[j]]
+    return out
+
+
+def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
+    """(n_pairs, n_rows): per pair, the summed weights of its cell boxes holding each row's two cells.
+
+    Box corners are snapped to the cells the rows occupy, so a pair's grid has
+    at most ``(occupied_a + 1) * (occupied_b + 1)`` points; a 2-D running sum of
+    the corner weights gives every box sum at once.
+    """
+    n_pairs = members.shape[0]
+    out = np.zeros((n_pairs, cells.n_rows))
+    a, b = members[boxes["pair"], 0], members[boxes["pair"], 1]
+    snapped = [cells.snap[cells.snap_offset[f] + boxes[name]] for f, name in
+               ((a, "a_low"), (a, "a_high"), (b, "b_low"), (b, "b_high"))]
+    order = np.argsort(boxes["pair"], kind="stable")
+    bounds = np.searchsorted(boxes["pair"][order], np.arange(n_pairs + 1))
+    occupied = cells.snap[cells.snap_offset[1:] - 1]
+    for pair in np.flatnonzero(np.diff(bounds)):
+        pick = order[bounds[pair]:bounds[pair + 1]]
+        fa, fb = members[pair]
+        width = int(occupied[fb]) + 1
+        a_low, a_high, b_low, b_high = (s[pick] for s in snapped)
+        weight = boxes["weight"][pick]
+        corners = np.r_[a_low * width + b_low, a_high * width + b_low, a_low * width + b_high, a_high * width + b_high]
+        grid = np.bincount(corners, weights=np.r_[weight, -weight, -weight, weight],
+                           minlength=(int(occupied[fa]) + 1) * width).reshape(-1, width)
+        np.cumsum(grid, axis=0, out=grid)
+        np.cumsum(grid, axis=1, out=grid)
+        out[pair] = grid[cells.rank[fa], cells.rank[fb]]
+    return out
+
+
+def _reached_leaf_sums(leaves: np.ndarray, leaf_node: np.ndarray, feature: np.ndarray, weight: np.ndarray,
+                       n_features: int) -> np.ndarray:
+    """(p, n_rows): per row, the weights of the entries of the leaves it reaches (``leaves`` from apply)."""
+    n_rows = leaves.shape[0]
+    order = np.argsort(leaf_node, kind="stable")
+    leaf_node, feature, weight = leaf_node[order], feature[order], weight[order]
+    start = np.searchsorted(leaf_node, leaves.ravel())
+    count = np.searchsorted(leaf_node, leaves.ravel(), side="right") - start
+    item, k = _expand(count)
+    entry = start[item] + k
+    row = item // leaves.shape[1]
+    return np.bincount(feature[entry] * n_rows + row, weights=weight[entry],
+                       minlength=n_features * n_rows).reshape(n_features, n_rows)
+
+
+def _joined(pieces: list, width: int) -> list[np.ndarray]:
+    return [np.concatenate([piece[i] for piece in pieces]) for i in range(width)]
 
 
 @dataclass(frozen=True)
@@ -543,26 +804,38 @@ def exact_parts(
 
     ``matrix`` is both the background and the evaluation points (as for
     H-statistics); ``pairs`` and ``triples`` hold feature indices in ascending
-    order. Tree chunks run in ``n_jobs`` joblib workers; their sums add up.
+    order. Tree chunks run in ``n_jobs`` joblib workers; their pieces add up.
     """
-    p = ens.n_features
-    pair_keys = encode_sets(np.array(pairs, dtype=np.int64).reshape(-1, 2), p)
+    p, n_rows = ens.n_features, matrix.shape[0]
+    pair_members = np.array(pairs, dtype=np.int64).reshape(-1, 2)
+    pair_keys = encode_sets(pair_members, p)
     triple_keys = encode_sets(np.array(triples, dtype=np.int64).reshape(-1, 3), p)
     sorted_pairs, sorted_triples = np.unique(pair_keys), np.unique(triple_keys)
-    chunks = tree_chunks(ens, ens.trees_of_output(output), matrix.shape[0])
-    tasks = [(ens, matrix, chunk, output, sorted_pairs, sorted_triples, bool(against_rest)) for chunk in chunks]
-    n_rows = matrix.shape[0]
-    total = {"main": np.zeros((p, n_rows)), "pair": np.zeros((sorted_pairs.size, n_rows)),
-             "triple": np.zeros((sorted_triples.size, n_rows)), "prediction": np.zeros(n_rows),
-             "rest": np.zeros((p, n_rows))}
-    for part in _run_tasks(_exact_sums, tasks, n_jobs, f"H-statistics (exact, output {output})", progress):
-        total = {name: total[name] + part[name] for name in total}
+    trees, node_value = leaf_value_column(ens, output)
+    cells = row_cells(ens, matrix)
+    tasks = [(ens, cells, chunk, output, sorted_pairs, sorted_triples, bool(against_rest))
+             for chunk in tree_chunks(ens, trees, n_rows)]
+    pieces = [part for part in _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})",
+                                          progress) if part["main"] is not None]
+    leaves = ens.apply(matrix, checked=True)[:, trees]
+    main = _interval_sums(cells, *_joined([part["main"] for part in pieces], 4)) if pieces else np.zeros((p, n_rows))
+    pair = np.zeros((sorted_pairs.size, n_rows))
+    if sorted_pairs.size and pieces:
+        boxes = {name: np.concatenate([part["boxes"][name] for part in pieces]) for name in pieces[0]["boxes"]}
+        pair = _box_sums(cells, decode_sets(sorted_pairs, p, 2), boxes)
+    rest = np.zeros((p, n_rows))
+    if against_rest and pieces:
+        rest = _reached_leaf_sums(leaves, *_joined([part["rest_leaf"] for part in pieces], 3), p)
+        rest += sum(part["rest"] for part in pieces)
+    triple = np.zeros((sorted_triples.size, n_rows))
+    if sorted_triples.size and pieces:
+        triple = sum(part["triple"] for part in pieces)
     return ExactParts(
-        main=total["main"].T,
-        pair=total["pair"].T[:, np.searchsorted(sorted_pairs, pair_keys)],
-        triple=total["triple"].T[:, np.searchsorted(sorted_triples, triple_keys)],
-        prediction=total["prediction"],
-        rest=total["rest"].T,
+        main=main.T,
+        pair=pair.T[:, np.searchsorted(sorted_pairs, pair_keys)],
+        triple=triple.T[:, np.searchsorted(sorted_triples, triple_keys)],
+        prediction=node_value[leaves].sum(axis=1),
+        rest=rest.T,
     )
 
 
