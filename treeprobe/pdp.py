@@ -58,6 +58,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
+from scipy.sparse import csr_matrix
 
 from .checks import check_choice, check_int
 from .data import model_matrix, numeric_array
@@ -316,6 +317,32 @@ def _popcount_by_bytes(words: np.ndarray) -> np.ndarray:
     return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1).sum(axis=-1, dtype=np.int64)
 
 
+# Bit r of byte b, as floats: turns per-byte weight sums into per-row sums with one small product.
+_BYTE_BITS = np.unpackbits(np.arange(256, dtype=np.uint8)[:, None], axis=1, bitorder="little").astype(np.float64)
+
+
+def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray, n_groups: int,
+                       n_rows: int) -> np.ndarray:
+    """(n_groups, n_rows): ``out[g, i] = sum of weight[k] over row sets k of group g holding row i``.
+
+    Works a byte (8 rows) at a time: the weights are first summed per (group,
+    byte position, byte value), then each of the 256 byte values spreads its sum
+    over its set bits, so the cost follows the non-zero bytes, not the bits.
+    """
+    as_bytes = np.ascontiguousarray(words).view(np.uint8)
+    n_bytes = as_bytes.shape[1]
+    out = np.zeros((n_groups, n_bytes * 8))
+    block = max(1, CELL_BUDGET // (256 * max(n_groups, 1)))
+    for start in range(0, n_bytes, block):
+        piece = as_bytes[:, start:start + block]
+        width = piece.shape[1]
+        item, position = np.nonzero(piece)
+        index = (group[item] * width + position) * 256 + piece[item, position]
+        sums = np.bincount(index, weights=weight[item], minlength=n_groups * width * 256)
+        out[:, start * 8:(start + width) * 8] = (sums.reshape(-1, 256) @ _BYTE_BITS).reshape(n_groups, width * 8)
+    return out[:, :n_rows]
+
+
 def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
     """Boolean (k, n_rows) matrix of uint64 row sets (bit ``i % 64`` of word ``i // 64`` is row ``i``)."""
     return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1, count=n_rows, bitorder="little")
@@ -563,11 +590,12 @@ def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _pair_boxes(intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
-                weights: tuple[np.ndarray, np.ndarray, np.ndarray], full: tuple[np.ndarray, np.ndarray]) -> dict:
-    """Cell boxes (first feature x second feature) of the pair terms of entry pairs, with their weights.
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> dict:
+    """Cell boxes of the product terms and cell intervals of the linear terms of entry pairs.
 
-    ``weights`` are the product term's and the two linear terms' weights per
-    entry pair; a linear term spans every cell of the other feature (``full``).
+    ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
+    and ``C_b`` alone. Boxes: first feature's interval x second feature's;
+    linear intervals carry ``side`` 0 (first feature) or 1 (second).
     """
     both, alone_first, alone_second = weights
     n_first, n_second = intervals.count[first], intervals.count[second]
@@ -575,20 +603,18 @@ def _pair_boxes(intervals: EntryCells, first: np.ndarray, second: np.ndarray, ta
     i_first = intervals.start[first][combo] + k // n_second[combo]
     i_second = intervals.start[second][combo] + k % n_second[combo]
     combo_a, k_a = _expand(n_first)
-    i_a = intervals.start[first][combo_a] + k_a
     combo_b, k_b = _expand(n_second)
-    i_b = intervals.start[second][combo_b] + k_b
+    i_alone = np.r_[intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b]
     low, high = intervals.low, intervals.high
-    boxes = {
-        "pair": np.r_[target[combo], target[combo_a], target[combo_b]],
-        "a_low": np.r_[low[i_first], low[i_a], np.zeros(combo_b.size, np.int64)],
-        "a_high": np.r_[high[i_first], high[i_a], full[0][combo_b]],
-        "b_low": np.r_[low[i_second], np.zeros(combo_a.size, np.int64), low[i_b]],
-        "b_high": np.r_[high[i_second], full[1][combo_a], high[i_b]],
-        "weight": np.r_[both[combo], alone_first[combo_a], alone_second[combo_b]],
-    }
+    boxes = {"pair": target[combo], "a_low": low[i_first], "a_high": high[i_first], "b_low": low[i_second],
+             "b_high": high[i_second], "weight": both[combo]}
     keep = (boxes["a_low"] < boxes["a_high"]) & (boxes["b_low"] < boxes["b_high"]) & (boxes["weight"] != 0)
-    return {name: values[keep] for name, values in boxes.items()}
+    linear = {"pair": np.r_[target[combo_a], target[combo_b]],
+              "side": np.r_[np.zeros(combo_a.size, np.int64), np.ones(combo_b.size, np.int64)],
+              "low": low[i_alone], "high": high[i_alone], "weight": np.r_[alone_first[combo_a], alone_second[combo_b]]}
+    kept = (linear["low"] < linear["high"]) & (linear["weight"] != 0)
+    return {**{name: values[keep] for name, values in boxes.items()},
+            **{f"linear_{name}": values[kept] for name, values in linear.items()}}
 
 
 def _exact_chunk(
@@ -630,11 +656,7 @@ def _exact_chunk(
     if want_against_rest:
         passing = _popcount(passes) / n_rows
         parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
-        rows_exactly = _unpack(exactly, n_rows)
-        entry, row = np.nonzero(rows_exactly)
-        del rows_exactly
-        parts["rest"] = np.bincount(table.entry_feature[entry] * n_rows + row, weights=(-value * passing)[entry],
-                                    minlength=n_features * n_rows).reshape(n_features, n_rows)
+        parts["rest"] = _weighted_row_sums(exactly, table.entry_feature, -value * passing, n_features, n_rows)
     if pair_keys.size:
         first, second = _entry_combos(table, 2)
         target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
@@ -644,9 +666,8 @@ def _exact_chunk(
         double = _popcount(~threes[combo_leaf] & fail[first] & fail[second])
         share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_rows
         leaf_value = table.leaf_value[combo_leaf]
-        full = (cells.n_cells[table.entry_feature[first]], cells.n_cells[table.entry_feature[second]])
         parts["boxes"] = _pair_boxes(intervals, first, second, target, (leaf_value * share_two,
-                                     -leaf_value * share_one[first], -leaf_value * share_one[second]), full)
+                                     -leaf_value * share_one[first], -leaf_value * share_one[second]))
     if triple_keys.size:
         parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one, triple_keys,
                                        n_features)
@@ -712,6 +733,21 @@ def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: 
     return out
 
 
+def _linear_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
+    """(n_pairs, n_rows): the linear terms of each pair, a step function of each of its two features."""
+    segment_feature = members.ravel()
+    size = cells.n_cells[segment_feature] + 1
+    offset = np.cumsum(size) - size
+    base = offset[2 * boxes["linear_pair"] + boxes["linear_side"]]
+    steps = np.bincount(np.r_[base + boxes["linear_low"], base + boxes["linear_high"]],
+                        weights=np.r_[boxes["linear_weight"], -boxes["linear_weight"]], minlength=int(size.sum()))
+    # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
+    running = np.cumsum(steps)
+    running -= np.repeat(np.r_[0.0, running[offset[1:] - 1]], size)
+    values = running[offset[:, None] + cells.cell[segment_feature]]
+    return values[0::2] + values[1::2]
+
+
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
     """(n_pairs, n_rows): per pair, the summed weights of its cell boxes holding each row's two cells.
 
@@ -720,7 +756,7 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
     the corner weights gives every box sum at once.
     """
     n_pairs = members.shape[0]
-    out = np.zeros((n_pairs, cells.n_rows))
+    out = _linear_sums(cells, members, boxes)
     a, b = members[boxes["pair"], 0], members[boxes["pair"], 1]
     snapped = [cells.snap[cells.snap_offset[f] + boxes[name]] for f, name in
                ((a, "a_low"), (a, "a_high"), (b, "b_low"), (b, "b_high"))]
@@ -738,23 +774,21 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
                            minlength=(int(occupied[fa]) + 1) * width).reshape(-1, width)
         np.cumsum(grid, axis=0, out=grid)
         np.cumsum(grid, axis=1, out=grid)
-        out[pair] = grid[cells.rank[fa], cells.rank[fb]]
+        out[pair] += grid[cells.rank[fa], cells.rank[fb]]
     return out
 
 
 def _reached_leaf_sums(leaves: np.ndarray, leaf_node: np.ndarray, feature: np.ndarray, weight: np.ndarray,
                        n_features: int) -> np.ndarray:
     """(p, n_rows): per row, the weights of the entries of the leaves it reaches (``leaves`` from apply)."""
-    n_rows = leaves.shape[0]
-    order = np.argsort(leaf_node, kind="stable")
-    leaf_node, feature, weight = leaf_node[order], feature[order], weight[order]
-    start = np.searchsorted(leaf_node, leaves.ravel())
-    count = np.searchsorted(leaf_node, leaves.ravel(), side="right") - start
-    item, k = _expand(count)
-    entry = start[item] + k
-    row = item // leaves.shape[1]
-    return np.bincount(feature[entry] * n_rows + row, weights=weight[entry],
-                       minlength=n_features * n_rows).reshape(n_features, n_rows)
+    n_rows, n_trees = leaves.shape
+    known, leaf_index = np.unique(leaf_node, return_inverse=True)
+    position = np.minimum(np.searchsorted(known, leaves.ravel()), known.size - 1)
+    hit = known[position] == leaves.ravel()
+    reached = csr_matrix((np.ones(int(hit.sum())), (np.repeat(np.arange(n_rows), n_trees)[hit], position[hit])),
+                         shape=(n_rows, known.size))
+    entries = csr_matrix((weight, (leaf_index.ravel(), feature)), shape=(known.size, n_features))
+    return (reached @ entries).toarray().T
 
 
 def _joined(pieces: list, width: int) -> list[np.ndarray]:
