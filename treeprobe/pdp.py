@@ -749,11 +749,13 @@ def _linear_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarra
 
 
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
-    """(n_pairs, n_rows): per pair, the summed weights of its cell boxes holding each row's two cells.
+    """(n_pairs, n_rows): per pair, its linear terms plus the summed weights of its boxes holding each row.
 
-    Box corners are snapped to the cells the rows occupy, so a pair's grid has
-    at most ``(occupied_a + 1) * (occupied_b + 1)`` points; a 2-D running sum of
-    the corner weights gives every box sum at once.
+    Box corners are snapped to the cells the rows occupy and then numbered
+    among the pair's own distinct corners, so a pair's grid has one point per
+    distinct corner coordinate on each axis (plus a zero row and column); a
+    2-D running sum of the corner weights gives every box sum at once, read at
+    each row's position (the number of corners at or below its cell).
     """
     n_pairs = members.shape[0]
     out = _linear_sums(cells, members, boxes)
@@ -762,19 +764,22 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
                ((a, "a_low"), (a, "a_high"), (b, "b_low"), (b, "b_high"))]
     order = np.argsort(boxes["pair"], kind="stable")
     bounds = np.searchsorted(boxes["pair"][order], np.arange(n_pairs + 1))
-    occupied = cells.snap[cells.snap_offset[1:] - 1]
     for pair in np.flatnonzero(np.diff(bounds)):
         pick = order[bounds[pair]:bounds[pair + 1]]
         fa, fb = members[pair]
-        width = int(occupied[fb]) + 1
         a_low, a_high, b_low, b_high = (s[pick] for s in snapped)
+        a_axis, b_axis = np.unique(np.r_[a_low, a_high]), np.unique(np.r_[b_low, b_high])
+        width = b_axis.size + 1
+        a_low, a_high = np.searchsorted(a_axis, a_low) + 1, np.searchsorted(a_axis, a_high) + 1
+        b_low, b_high = np.searchsorted(b_axis, b_low) + 1, np.searchsorted(b_axis, b_high) + 1
         weight = boxes["weight"][pick]
         corners = np.r_[a_low * width + b_low, a_high * width + b_low, a_low * width + b_high, a_high * width + b_high]
         grid = np.bincount(corners, weights=np.r_[weight, -weight, -weight, weight],
-                           minlength=(int(occupied[fa]) + 1) * width).reshape(-1, width)
+                           minlength=(a_axis.size + 1) * width).reshape(-1, width)
         np.cumsum(grid, axis=0, out=grid)
         np.cumsum(grid, axis=1, out=grid)
-        out[pair] += grid[cells.rank[fa], cells.rank[fb]]
+        out[pair] += grid[np.searchsorted(a_axis, cells.rank[fa], side="right"),
+                          np.searchsorted(b_axis, cells.rank[fb], side="right")]
     return out
 
 
