@@ -51,6 +51,9 @@ References
 from __future__ import annotations
 
 import itertools
+import os
+import time
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -74,6 +77,8 @@ __all__ = ["partial_dependence"]
 CELL_BUDGET = 2**25
 # Bytes of modified rows one brute-force batch may hold.
 BRUTE_BATCH_BYTES = 256 * 1024**2
+# Estimated brute-force time above which a warning states the estimate before the work starts.
+BRUTE_NOTICE_SECONDS = 60.0
 
 
 # --------------------------------------------------------------------------- models
@@ -957,6 +962,32 @@ def ensemble_predictor(ens: ForestGraph, scale: str) -> Callable[[np.ndarray], n
 
 
 
+def _duration_text(seconds: float) -> str:
+    """A duration for people: ``"45 s"``, ``"12 min"``, ``"3 h 05 min"``."""
+    if seconds < 60:
+        return f"{seconds:.0f} s"
+    if seconds < 3600:
+        return f"{seconds / 60:.0f} min"
+    hours, minutes = divmod(round(seconds / 60), 60)
+    return f"{hours} h {minutes:02d} min"
+
+
+def _warn_long_brute_force(n_sets: int, n_rows: int, seconds_for_rows: float, n_jobs: int) -> None:
+    """Warn before starting when brute force is expected to take over :data:`BRUTE_NOTICE_SECONDS`.
+
+    The estimate scales the time of predicting the rows once: every function
+    predicts ``n_rows`` modified copies of the rows (``n_rows**2`` predictions),
+    spread over ``n_jobs`` workers (negative counts as joblib reads them).
+    """
+    workers = max(1, (os.cpu_count() or 1) + 1 + n_jobs) if n_jobs < 0 else n_jobs
+    estimate = seconds_for_rows * n_rows * n_sets / workers
+    if estimate > BRUTE_NOTICE_SECONDS:
+        warnings.warn(
+            f"brute-force partial dependence: {n_sets:,} functions of {n_rows:,}² predictions each, estimated "
+            f"{_duration_text(estimate)} on this machine (probability scale and callables have no exact form; a "
+            "smaller sample shortens it quadratically)", UserWarning, stacklevel=4)
+
+
 def brute_parts(
     fitted: FittedModel,
     data: PreparedData,
@@ -976,7 +1007,9 @@ def brute_parts(
     """
     predict = ensemble_predictor(fitted.ensemble, scale) if fitted.is_tree else fitted.predict
     row_bytes = predictor_row_bytes(fitted.ensemble, data.matrix.shape[1])
+    started = time.perf_counter()
     prediction = model_output(predict(data.frame if data.frame is not None else data.matrix), data.n_rows, output)
+    _warn_long_brute_force(len(sets), data.n_rows, time.perf_counter() - started, n_jobs)
     tasks = [(predict, data, data, list(s), output, row_bytes) for s in sets]
     return prediction, _run_tasks(brute_partial_dependence, tasks, n_jobs, "H-statistics (brute)", progress)
 
