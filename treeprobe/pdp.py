@@ -545,17 +545,22 @@ def _failure_counts(table: PathTable, fail: np.ndarray) -> tuple[np.ndarray, np.
 
 
 # --------------------------------------------------------------------------- exact engine (H-statistics)
-def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None) -> list:
-    """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar."""
-    results = []
+def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None,
+               consume: Callable[[Any], None] | None = None) -> list:
+    """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar.
+
+    Results are returned as a list, or handed to ``consume`` one by one as they arrive (then the list is empty).
+    """
+    results: list = []
+    keep = consume if consume is not None else results.append
     with progress_bar(len(tasks), label, enabled=progress) as bar:
         if n_jobs == 1:
             for task in tasks:
-                results.append(function(*task))
+                keep(function(*task))
                 bar.update()
             return results
         for result in Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(*task) for task in tasks):
-            results.append(result)
+            keep(result)
             bar.update()
     return results
 
@@ -859,21 +864,29 @@ def exact_parts(
     cells = row_cells(ens, matrix)
     tasks = [(ens, cells, chunk, output, sorted_pairs, sorted_triples, bool(against_rest))
              for chunk in tree_chunks(ens, trees, n_rows)]
-    pieces = [part for part in _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})",
-                                          progress) if part["main"] is not None]
+    rest = np.zeros((p, n_rows))
+    triple = np.zeros((sorted_triples.size, n_rows))
+    pieces = []
+
+    def consume(part: dict) -> None:
+        # Dense per-row pieces are added as they come, so memory does not grow with the number of chunks.
+        if part["main"] is None:
+            return
+        if part["rest"] is not None:
+            rest[:] += part.pop("rest")
+        if part["triple"] is not None:
+            triple[:] += part.pop("triple")
+        pieces.append(part)
+
+    _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})", progress, consume=consume)
     leaves = ens.apply(matrix, checked=True)[:, trees]
     main = _interval_sums(cells, *_joined([part["main"] for part in pieces], 4)) if pieces else np.zeros((p, n_rows))
     pair = np.zeros((sorted_pairs.size, n_rows))
     if sorted_pairs.size and pieces:
         boxes = {name: np.concatenate([part["boxes"][name] for part in pieces]) for name in pieces[0]["boxes"]}
         pair = _box_sums(cells, decode_sets(sorted_pairs, p, 2), boxes)
-    rest = np.zeros((p, n_rows))
     if against_rest and pieces:
-        rest = _reached_leaf_sums(leaves, *_joined([part["rest_leaf"] for part in pieces], 3), p)
-        rest += sum(part["rest"] for part in pieces)
-    triple = np.zeros((sorted_triples.size, n_rows))
-    if sorted_triples.size and pieces:
-        triple = sum(part["triple"] for part in pieces)
+        rest += _reached_leaf_sums(leaves, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
         main=main.T,
         pair=pair.T[:, np.searchsorted(sorted_pairs, pair_keys)],
