@@ -42,6 +42,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 from itertools import combinations
+from weakref import WeakKeyDictionary
 
 import numpy as np
 
@@ -63,6 +64,8 @@ __all__ = [
 
 # Nodes per chunk of :func:`leaf_feature_sets`: bounds the (nodes x words) masks.
 _CHUNK_NODES = 1 << 16
+# Path feature sets of live graphs, by tree selection (see leaf_feature_sets).
+_FEATURE_SETS: WeakKeyDictionary = WeakKeyDictionary()
 
 
 def parent_links(graph: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
@@ -235,9 +238,21 @@ def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np
     """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix.
 
     ``trees`` restricts the walk to those tree indices (default: every tree).
-    A single-leaf tree contributes the empty set.
+    A single-leaf tree contributes the empty set. Graphs are immutable, so the
+    result is kept (read-only) for as long as the graph lives: repeated
+    H-statistics on one model, as triage's resamples do, walk it once.
     """
     trees = np.arange(graph.n_trees) if trees is None else np.asarray(trees, dtype=np.int64)
+    known = _FEATURE_SETS.setdefault(graph, {})
+    key = trees.tobytes()
+    if key not in known:
+        sets = _leaf_feature_sets(graph, trees)
+        sets.setflags(write=False)
+        known[key] = sets
+    return known[key]
+
+
+def _leaf_feature_sets(graph: ForestGraph, trees: np.ndarray) -> np.ndarray:
     parent, _ = parent_links(graph)
     sizes = (graph.tree_offsets[trees + 1] - graph.tree_offsets[trees]).astype(np.int64)
     chunk_of_tree = np.cumsum(sizes) // _CHUNK_NODES
