@@ -758,38 +758,57 @@ def _linear_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarra
     return values[0::2] + values[1::2]
 
 
+def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n_pairs: int) -> np.ndarray:
+    """(n_pairs, span): for each pair and coordinate ``c``, how many of the pair's distinct corner
+    coordinates on this axis (``low`` and ``high`` of its boxes) are at most ``c``."""
+    present = np.zeros(n_pairs * span, dtype=bool)
+    present[pair * span + low] = True
+    present[pair * span + high] = True
+    return np.cumsum(present.reshape(n_pairs, span), axis=1)
+
+
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
     """(n_pairs, n_rows): per pair, its linear terms plus the summed weights of its boxes holding each row.
 
-    Box corners are snapped to the cells the rows occupy and then numbered
-    among the pair's own distinct corners, so a pair's grid has one point per
-    distinct corner coordinate on each axis (plus a zero row and column); a
-    2-D running sum of the corner weights gives every box sum at once, read at
-    each row's position (the number of corners at or below its cell).
+    Box corners are snapped to the cells the rows occupy and numbered among
+    the pair's own distinct corners, so a pair's grid has one line per distinct
+    corner coordinate on each axis, after a leading zero line; a 2-D running sum
+    of the corner weights gives every box sum at once, read at each row's grid
+    point (the number of the pair's corners at or below its cell on each axis).
     """
     n_pairs = members.shape[0]
     out = _linear_sums(cells, members, boxes)
-    a, b = members[boxes["pair"], 0], members[boxes["pair"], 1]
+    pair = boxes["pair"]
+    if not pair.size:
+        return out
+    a, b = members[pair, 0], members[pair, 1]
     snapped = [cells.snap[cells.snap_offset[f] + boxes[name]] for f, name in
                ((a, "a_low"), (a, "a_high"), (b, "b_low"), (b, "b_high"))]
-    order = np.argsort(boxes["pair"], kind="stable")
-    bounds = np.searchsorted(boxes["pair"][order], np.arange(n_pairs + 1))
-    for pair in np.flatnonzero(np.diff(bounds)):
-        pick = order[bounds[pair]:bounds[pair + 1]]
-        fa, fb = members[pair]
-        a_low, a_high, b_low, b_high = (s[pick] for s in snapped)
-        a_axis, b_axis = np.unique(np.r_[a_low, a_high]), np.unique(np.r_[b_low, b_high])
-        width = b_axis.size + 1
-        a_low, a_high = np.searchsorted(a_axis, a_low) + 1, np.searchsorted(a_axis, a_high) + 1
-        b_low, b_high = np.searchsorted(b_axis, b_low) + 1, np.searchsorted(b_axis, b_high) + 1
-        weight = boxes["weight"][pick]
-        corners = np.r_[a_low * width + b_low, a_high * width + b_low, a_low * width + b_high, a_high * width + b_high]
-        grid = np.bincount(corners, weights=np.r_[weight, -weight, -weight, weight],
-                           minlength=(a_axis.size + 1) * width).reshape(-1, width)
+    # Snapped coordinates run from 0 to the occupied cell count of the feature.
+    span = int(cells.snap[cells.snap_offset[1:] - 1].max()) + 1
+    a_count = _pair_axes(pair, snapped[0], snapped[1], span, n_pairs)
+    b_count = _pair_axes(pair, snapped[2], snapped[3], span, n_pairs)
+    # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
+    a_low, a_high = a_count[pair, snapped[0]], a_count[pair, snapped[1]]
+    b_low, b_high = b_count[pair, snapped[2]], b_count[pair, snapped[3]]
+    height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
+    line_width = width[pair]
+    order = np.argsort(pair, kind="stable")
+    corner = np.stack([a_low * line_width + b_low, a_high * line_width + b_low,
+                       a_low * line_width + b_high, a_high * line_width + b_high], axis=1)
+    corner = corner[order].ravel()
+    weight = boxes["weight"][order]
+    weight = np.stack([weight, -weight, -weight, weight], axis=1).ravel()
+    bounds = 4 * np.searchsorted(pair[order], np.arange(n_pairs + 1))
+    pair_index = np.arange(n_pairs)[:, None]
+    point = (a_count[pair_index, cells.rank[members[:, 0]]] * width[:, None]
+             + b_count[pair_index, cells.rank[members[:, 1]]])
+    for k in np.flatnonzero(np.diff(bounds)):
+        grid = np.bincount(corner[bounds[k]:bounds[k + 1]], weights=weight[bounds[k]:bounds[k + 1]],
+                           minlength=int(height[k] * width[k])).reshape(height[k], width[k])
         np.cumsum(grid, axis=0, out=grid)
         np.cumsum(grid, axis=1, out=grid)
-        out[pair] += grid[np.searchsorted(a_axis, cells.rank[fa], side="right"),
-                          np.searchsorted(b_axis, cells.rank[fb], side="right")]
+        out[k] += grid.ravel()[point[k]]
     return out
 
 
