@@ -540,8 +540,10 @@ def h_statistic(
     unnormalised statistic advocated by [2]_; H2 is NaN when the denominator is 0.
 
     Memory: the exact path keeps ``8 * n_rows * (n_pairs + n_triples + 2 * n_features)``
-    bytes of per-row sums plus a working set of a few times ``CELL_BUDGET`` cells per
-    tree chunk; the brute path holds about 256 MB of modified rows per batch.
+    bytes of per-row sums, about 40 bytes per (leaf, pair of its path features), and a
+    working set of a few times ``CELL_BUDGET`` bits per tree chunk; the brute path holds
+    about 256 MB of modified rows per batch and, when its estimated duration exceeds a
+    minute, warns with the estimate before it starts.
 
     H-statistics extrapolate when features are dependent, describe the model
     rather than the world, and say nothing about causation (see ``LIMITS``).

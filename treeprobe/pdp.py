@@ -27,11 +27,21 @@ the path have ``C_Lj = 1``. By linearity::
 
 Call ``fail(i, L)`` the set of path features whose condition row ``i`` fails.
 Then ``w_L(S)`` is the share of background rows with ``fail(i, L)`` a subset of
-``S``, i.e. with ``|fail(i, L)| - |fail(i, L) & S| == 0``. One pass that records
-``fail`` for every row and every (leaf, path feature) gives every ``w_L(S)``.
-The engine below computes, per chunk of trees, the boolean matrix ``fail`` of
-shape (rows, path entries), one column per (leaf, distinct path feature), and the
-per-leaf failure counts; everything else is sums over those columns.
+``S``. For H-statistics (background = evaluation rows) the engine keeps, per
+chunk of trees, the rows passing each (leaf, path feature) *entry* as bit-packed
+row sets (64 rows a word), and per leaf the rows failing at least one, two and
+three entries (bit-sliced counting). The rows failing nothing but entry ``e``
+are ``~twos & fail_e``, those failing exactly ``{a, b}`` are
+``~threes & fail_a & fail_b``, so every share needed is a few AND and popcount
+steps. The per-row functions use that ``C_Lj`` reads feature ``j`` alone:
+between consecutive thresholds of the splits on ``j`` every value goes the same
+way (:class:`RowCells`), so an entry passes an interval of such *cells* and
+``F_j`` is a sum of weighted cell intervals, and the product terms of a pair a
+sum of weighted cell boxes, added up once for all trees with running sums.
+Only ``F - F_notj`` needs whole rows (the rows failing exactly one entry);
+those sums are taken a byte of rows at a time. Partial dependence at points
+other than the background (:func:`partial_dependence`) counts the failures of
+the points and of the background directly (:func:`failed_conditions`).
 
 This module owns both engines. :func:`partial_dependence` is the public entry
 point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
