@@ -609,43 +609,64 @@ def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return item, np.arange(item.size) - np.repeat(np.cumsum(counts) - counts, counts)
 
 
-def _pair_boxes(intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
-                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> dict:
-    """Cell boxes of the product terms and cell intervals of the linear terms of entry pairs.
+@dataclass(frozen=True)
+class _ExactJob:
+    """What every tree chunk of one exact run shares: the graph, the rows' cells and the sums asked for."""
+
+    ens: ForestGraph
+    cells: RowCells
+    node_value: np.ndarray       # weighted leaf value of every node for the output
+    links: tuple[np.ndarray, np.ndarray]
+    pair_keys: np.ndarray        # sorted encode_sets keys of the pairs
+    pair_members: np.ndarray     # (n_pairs, 2) their features
+    triple_keys: np.ndarray
+    against_rest: bool
+
+    @property
+    def segment_offset(self) -> np.ndarray:
+        """Start of each (pair, side) step function of the linear terms, plus the total size (n_cells + 1 each)."""
+        size = self.cells.n_cells[self.pair_members.ravel()] + 1
+        return np.r_[0, np.cumsum(size)]
+
+
+def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, np.ndarray]:
+    """Cell boxes of the product terms and the step functions of the linear terms of entry pairs.
 
     ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
-    and ``C_b`` alone. Boxes: first feature's interval x second feature's;
-    linear intervals carry ``side`` 0 (first feature) or 1 (second).
+    and ``C_b`` alone. Boxes (first feature's interval x second feature's) are
+    returned with corners snapped to the occupied cells (:attr:`RowCells.snap`);
+    the linear terms come back already summed as jumps of the per (pair, side)
+    step functions laid out at :attr:`_ExactJob.segment_offset`.
     """
+    cells = job.cells
     both, alone_first, alone_second = weights
     n_first, n_second = intervals.count[first], intervals.count[second]
     combo, k = _expand(n_first * n_second)
     i_first = intervals.start[first][combo] + k // n_second[combo]
     i_second = intervals.start[second][combo] + k % n_second[combo]
+    low, high = intervals.low, intervals.high
+    keep = (low[i_first] < high[i_first]) & (low[i_second] < high[i_second]) & (both[combo] != 0)
+    combo, i_first, i_second = combo[keep], i_first[keep], i_second[keep]
+    pair = target[combo]
+    snap_a = cells.snap_offset[job.pair_members[pair, 0]]
+    snap_b = cells.snap_offset[job.pair_members[pair, 1]]
+    boxes = {"pair": pair.astype(np.int32), "weight": both[combo],
+             "a_low": cells.snap[snap_a + low[i_first]].astype(np.int32),
+             "a_high": cells.snap[snap_a + high[i_first]].astype(np.int32),
+             "b_low": cells.snap[snap_b + low[i_second]].astype(np.int32),
+             "b_high": cells.snap[snap_b + high[i_second]].astype(np.int32)}
     combo_a, k_a = _expand(n_first)
     combo_b, k_b = _expand(n_second)
-    i_alone = np.r_[intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b]
-    low, high = intervals.low, intervals.high
-    boxes = {"pair": target[combo], "a_low": low[i_first], "a_high": high[i_first], "b_low": low[i_second],
-             "b_high": high[i_second], "weight": both[combo]}
-    keep = (boxes["a_low"] < boxes["a_high"]) & (boxes["b_low"] < boxes["b_high"]) & (boxes["weight"] != 0)
-    linear = {"pair": np.r_[target[combo_a], target[combo_b]],
-              "side": np.r_[np.zeros(combo_a.size, np.int64), np.ones(combo_b.size, np.int64)],
-              "low": low[i_alone], "high": high[i_alone], "weight": np.r_[alone_first[combo_a], alone_second[combo_b]]}
-    kept = (linear["low"] < linear["high"]) & (linear["weight"] != 0)
-    return {**{name: values[keep] for name, values in boxes.items()},
-            **{f"linear_{name}": values[kept] for name, values in linear.items()}}
+    alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
+    base = job.segment_offset[np.concatenate((2 * target[combo_a], 2 * target[combo_b] + 1))]
+    weight = np.concatenate((alone_first[combo_a], alone_second[combo_b]))
+    steps = np.bincount(np.concatenate((base + low[alone], base + high[alone])),
+                        weights=np.concatenate((weight, -weight)), minlength=int(job.segment_offset[-1]))
+    return boxes, steps
 
 
-def _exact_chunk(
-    ens: ForestGraph,
-    cells: RowCells,
-    trees: np.ndarray,
-    output: int,
-    pair_keys: np.ndarray,
-    triple_keys: np.ndarray,
-    want_against_rest: bool,
-) -> dict[str, Any]:
+def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     """Leaf-wise pieces of one group of trees (see the module docstring); every piece adds up over groups.
 
     Shares ``w_L(S)`` come from bit-packed row sets: per leaf, the rows failing
@@ -655,10 +676,11 @@ def _exact_chunk(
     (``main``) and cell boxes (``pair``), evaluated once for all groups, and as
     dense sums where they need whole rows (``rest``, ``triple``).
     """
+    ens, cells, pair_keys, triple_keys = job.ens, job.cells, job.pair_keys, job.triple_keys
     n_rows, n_features = cells.n_rows, ens.n_features
-    _, node_value = leaf_value_column(ens, output)
-    table = path_table(ens, trees, node_value, parent_links(ens))
-    parts: dict[str, Any] = {"main": None, "boxes": None, "rest_leaf": None, "rest": None, "triple": None}
+    table = path_table(ens, trees, job.node_value, job.links)
+    parts: dict[str, Any] = {"main": None, "boxes": None, "linear": None, "rest_leaf": None, "rest": None,
+                             "triple": None}
     if not table.n_leaves:
         return parts
     intervals = entry_cells(ens, table, cells)
@@ -673,7 +695,7 @@ def _exact_chunk(
     value = table.leaf_value[leaf]
     parts["main"] = (table.entry_feature[intervals.entry], intervals.low, intervals.high,
                      (value * share_one)[intervals.entry])
-    if want_against_rest:
+    if job.against_rest:
         passing = _popcount(passes) / n_rows
         parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
         parts["rest"] = _weighted_row_sums(exactly, table.entry_feature, -value * passing, n_features, n_rows)
@@ -686,8 +708,8 @@ def _exact_chunk(
         double = _popcount(~threes[combo_leaf] & fail[first] & fail[second])
         share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_rows
         leaf_value = table.leaf_value[combo_leaf]
-        parts["boxes"] = _pair_boxes(intervals, first, second, target, (leaf_value * share_two,
-                                     -leaf_value * share_one[first], -leaf_value * share_one[second]))
+        parts["boxes"], parts["linear"] = _pair_boxes(job, intervals, first, second, target, (
+            leaf_value * share_two, -leaf_value * share_one[first], -leaf_value * share_one[second]))
     if triple_keys.size:
         parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one, triple_keys,
                                        n_features)
@@ -753,18 +775,14 @@ def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: 
     return out
 
 
-def _linear_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
-    """(n_pairs, n_rows): the linear terms of each pair, a step function of each of its two features."""
-    segment_feature = members.ravel()
-    size = cells.n_cells[segment_feature] + 1
-    offset = np.cumsum(size) - size
-    base = offset[2 * boxes["linear_pair"] + boxes["linear_side"]]
-    steps = np.bincount(np.r_[base + boxes["linear_low"], base + boxes["linear_high"]],
-                        weights=np.r_[boxes["linear_weight"], -boxes["linear_weight"]], minlength=int(size.sum()))
+def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """(n_pairs, n_rows): the linear terms of each pair, a step function of each of its two features,
+    from their summed jumps (``steps``, segments starting at ``offset``)."""
+    size = np.diff(offset)
     # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
     running = np.cumsum(steps)
-    running -= np.repeat(np.r_[0.0, running[offset[1:] - 1]], size)
-    values = running[offset[:, None] + cells.cell[segment_feature]]
+    running -= np.repeat(np.r_[0.0, running[offset[1:-1] - 1]], size)
+    values = running[offset[:-1, None] + cells.cell[members.ravel()]]
     return values[0::2] + values[1::2]
 
 
@@ -772,67 +790,83 @@ def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n
     """(n_pairs, span): for each pair and coordinate ``c``, how many of the pair's distinct corner
     coordinates on this axis (``low`` and ``high`` of its boxes) are at most ``c``."""
     present = np.zeros(n_pairs * span, dtype=bool)
+    pair = pair.astype(np.int64)
     present[pair * span + low] = True
     present[pair * span + high] = True
     return np.cumsum(present.reshape(n_pairs, span), axis=1)
 
 
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
-    """(n_pairs, n_rows): per pair, its linear terms plus the summed weights of its boxes holding each row.
+    """(n_pairs, n_rows): per pair, the summed weights of its boxes holding each row.
 
-    Box corners are snapped to the cells the rows occupy and numbered among
+    Box corners, snapped to the cells the rows occupy, are numbered among
     the pair's own distinct corners, so a pair's grid has one line per distinct
     corner coordinate on each axis, after a leading zero line; a 2-D running sum
     of the corner weights gives every box sum at once, read at each row's grid
     point (the number of the pair's corners at or below its cell on each axis).
     """
     n_pairs = members.shape[0]
-    out = _linear_sums(cells, members, boxes)
+    out = np.zeros((n_pairs, cells.n_rows))
     pair = boxes["pair"]
     if not pair.size:
         return out
-    a, b = members[pair, 0], members[pair, 1]
-    snapped = [cells.snap[cells.snap_offset[f] + boxes[name]] for f, name in
-               ((a, "a_low"), (a, "a_high"), (b, "b_low"), (b, "b_high"))]
     # Snapped coordinates run from 0 to the occupied cell count of the feature.
     span = int(cells.snap[cells.snap_offset[1:] - 1].max()) + 1
-    a_count = _pair_axes(pair, snapped[0], snapped[1], span, n_pairs)
-    b_count = _pair_axes(pair, snapped[2], snapped[3], span, n_pairs)
-    # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
-    a_low, a_high = a_count[pair, snapped[0]], a_count[pair, snapped[1]]
-    b_low, b_high = b_count[pair, snapped[2]], b_count[pair, snapped[3]]
+    a_count = _pair_axes(pair, boxes["a_low"], boxes["a_high"], span, n_pairs)
+    b_count = _pair_axes(pair, boxes["b_low"], boxes["b_high"], span, n_pairs)
     height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
-    line_width = width[pair]
-    order = np.argsort(pair, kind="stable")
-    corner = np.stack([a_low * line_width + b_low, a_high * line_width + b_low,
-                       a_low * line_width + b_high, a_high * line_width + b_high], axis=1)
-    corner = corner[order].ravel()
-    weight = boxes["weight"][order]
-    weight = np.stack([weight, -weight, -weight, weight], axis=1).ravel()
-    bounds = 4 * np.searchsorted(pair[order], np.arange(n_pairs + 1))
     pair_index = np.arange(n_pairs)[:, None]
     point = (a_count[pair_index, cells.rank[members[:, 0]]] * width[:, None]
              + b_count[pair_index, cells.rank[members[:, 1]]])
-    for k in np.flatnonzero(np.diff(bounds)):
-        grid = np.bincount(corner[bounds[k]:bounds[k + 1]], weights=weight[bounds[k]:bounds[k + 1]],
-                           minlength=int(height[k] * width[k])).reshape(height[k], width[k])
-        np.cumsum(grid, axis=0, out=grid)
-        np.cumsum(grid, axis=1, out=grid)
-        out[k] += grid.ravel()[point[k]]
+    order = np.argsort(pair, kind="stable")
+    bounds = np.searchsorted(pair[order], np.arange(n_pairs + 1))
+    # Corners are built for batches of pairs holding about CELL_BUDGET / 32 boxes (~100 bytes each at work).
+    per_batch = max(1, CELL_BUDGET // 32)
+    cuts = np.unique(np.r_[np.searchsorted(bounds, np.arange(per_batch, bounds[-1], per_batch)), n_pairs])
+    first = 0
+    for last in cuts[cuts > 0]:
+        pick = order[bounds[first]:bounds[last]]
+        box_pair = pair[pick]
+        # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
+        a_low, a_high = a_count[box_pair, boxes["a_low"][pick]], a_count[box_pair, boxes["a_high"][pick]]
+        b_low, b_high = b_count[box_pair, boxes["b_low"][pick]], b_count[box_pair, boxes["b_high"][pick]]
+        line = width[box_pair]
+        corner = np.stack([a_low * line + b_low, a_high * line + b_low, a_low * line + b_high,
+                           a_high * line + b_high], axis=1).ravel()
+        weight = boxes["weight"][pick]
+        weight = np.stack([weight, -weight, -weight, weight], axis=1).ravel()
+        local = 4 * (bounds[first:last + 1] - bounds[first])
+        for k in np.flatnonzero(np.diff(local)):
+            grid = np.bincount(corner[local[k]:local[k + 1]], weights=weight[local[k]:local[k + 1]],
+                               minlength=int(height[first + k] * width[first + k])).reshape(-1, width[first + k])
+            np.cumsum(grid, axis=0, out=grid)
+            np.cumsum(grid, axis=1, out=grid)
+            out[first + k] += grid.ravel()[point[first + k]]
+        first = last
     return out
 
 
-def _reached_leaf_sums(leaves: np.ndarray, leaf_node: np.ndarray, feature: np.ndarray, weight: np.ndarray,
-                       n_features: int) -> np.ndarray:
-    """(p, n_rows): per row, the weights of the entries of the leaves it reaches (``leaves`` from apply)."""
+def _reached_leaf_sums(leaves: np.ndarray, n_nodes: int, leaf_node: np.ndarray, feature: np.ndarray,
+                       weight: np.ndarray, n_features: int) -> np.ndarray:
+    """(p, n_rows): per row, the weights of the entries of the leaves it reaches (``leaves`` from apply).
+
+    One sparse product (rows x leaves reached) @ (leaves x features), taken over
+    blocks of rows to bound the memory of the reached-leaf matrix.
+    """
     n_rows, n_trees = leaves.shape
     known, leaf_index = np.unique(leaf_node, return_inverse=True)
-    position = np.minimum(np.searchsorted(known, leaves.ravel()), known.size - 1)
-    hit = known[position] == leaves.ravel()
-    reached = csr_matrix((np.ones(int(hit.sum())), (np.repeat(np.arange(n_rows), n_trees)[hit], position[hit])),
-                         shape=(n_rows, known.size))
+    index_of_node = np.full(n_nodes, -1, dtype=np.int64)
+    index_of_node[known] = np.arange(known.size)
     entries = csr_matrix((weight, (leaf_index.ravel(), feature)), shape=(known.size, n_features))
-    return (reached @ entries).toarray().T
+    out = np.zeros((n_features, n_rows))
+    # About 40 bytes per reached leaf at work: blocks of CELL_BUDGET / 8 of them.
+    block = max(1, CELL_BUDGET // 8 // max(n_trees, 1))
+    for start in range(0, n_rows, block):
+        index = index_of_node[leaves[start:start + block]]
+        row, column = np.nonzero(index >= 0)
+        reached = csr_matrix((np.ones(row.size), (row, index[row, column])), shape=(index.shape[0], known.size))
+        out[:, start:start + index.shape[0]] = (reached @ entries).toarray().T
+    return out
 
 
 def _joined(pieces: list, width: int) -> list[np.ndarray]:
@@ -890,32 +924,37 @@ def exact_parts(
     triple_keys = encode_sets(np.array(triples, dtype=np.int64).reshape(-1, 3), p)
     sorted_pairs, sorted_triples = np.unique(pair_keys), np.unique(triple_keys)
     trees, node_value = leaf_value_column(ens, output)
-    cells = row_cells(ens, matrix)
-    tasks = [(ens, cells, chunk, output, sorted_pairs, sorted_triples, bool(against_rest))
-             for chunk in tree_chunks(ens, trees, n_rows)]
+    job = _ExactJob(ens=ens, cells=row_cells(ens, matrix), node_value=node_value, links=parent_links(ens),
+                    pair_keys=sorted_pairs, pair_members=decode_sets(sorted_pairs, p, 2), triple_keys=sorted_triples,
+                    against_rest=bool(against_rest))
+    tasks = [(job, chunk) for chunk in tree_chunks(ens, trees, n_rows)]
     rest = np.zeros((p, n_rows))
     triple = np.zeros((sorted_triples.size, n_rows))
+    linear = np.zeros(int(job.segment_offset[-1]))
     pieces = []
 
     def consume(part: dict) -> None:
-        # Dense per-row pieces are added as they come, so memory does not grow with the number of chunks.
+        # Dense pieces are added as they come, so memory does not grow with the number of chunks.
         if part["main"] is None:
             return
-        if part["rest"] is not None:
-            rest[:] += part.pop("rest")
-        if part["triple"] is not None:
-            triple[:] += part.pop("triple")
+        for name, total in (("rest", rest), ("triple", triple), ("linear", linear)):
+            if part[name] is not None:
+                total += part.pop(name)
         pieces.append(part)
 
     _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})", progress, consume=consume)
     leaves = ens.apply(matrix, checked=True)[:, trees]
-    main = _interval_sums(cells, *_joined([part["main"] for part in pieces], 4)) if pieces else np.zeros((p, n_rows))
+    main = _interval_sums(job.cells, *_joined([part.pop("main") for part in pieces], 4)) if pieces else np.zeros(
+        (p, n_rows))
     pair = np.zeros((sorted_pairs.size, n_rows))
     if sorted_pairs.size and pieces:
-        boxes = {name: np.concatenate([part["boxes"][name] for part in pieces]) for name in pieces[0]["boxes"]}
-        pair = _box_sums(cells, decode_sets(sorted_pairs, p, 2), boxes)
+        # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
+        boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
+                 for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
+        pair = _box_sums(job.cells, job.pair_members, boxes) + _linear_sums(job.cells, job.pair_members,
+                                                                            job.segment_offset, linear)
     if against_rest and pieces:
-        rest += _reached_leaf_sums(leaves, *_joined([part["rest_leaf"] for part in pieces], 3), p)
+        rest += _reached_leaf_sums(leaves, ens.n_nodes, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
         main=main.T,
         pair=pair.T[:, np.searchsorted(sorted_pairs, pair_keys)],
