@@ -13,10 +13,11 @@ keeps the script to a few minutes.
 * rows 100 to 100,000 (100 trees, 50 features): exact H and triage on every
   row (``sample=None``): at default settings both sample 1000 rows, so their
   cost stops growing at 1000 rows; load and structure do not read rows;
-* features 10 to 500 (200 trees): all four steps at default settings.
+* features 10 to 500 (200 trees, each trained on its own data, so node
+  counts differ and are shown): all four steps at default settings.
 
 A size whose time, extrapolated at the order measured so far, would exceed
-``--budget`` seconds is skipped and shown as such. Prints a Markdown table
+``--budget`` seconds (default 90) is skipped and shown as such. Prints a Markdown table
 per dimension (the README's scaling table) and the load average.
 
 Usage::
@@ -76,14 +77,14 @@ def _rows(n_rows: int, n_features: int) -> np.ndarray:
     return make_friedman1(n_samples=n_rows, n_features=n_features, random_state=1)[0]
 
 
-def _steps(path: Path, X: np.ndarray, sample: int | None) -> dict[str, Callable[[], object]]:
+def _steps(path: Path, X: np.ndarray, sample: int | None) -> tuple[int, dict[str, Callable[[], object]]]:
     from treeprobe import load_model
     from treeprobe.cooccurrence import structure
     from treeprobe.measure import h_statistic
     from treeprobe.verdicts import triage
 
     ensemble = load_model(path)
-    return {
+    return ensemble.n_nodes, {
         "load": lambda: load_model(path),
         "structure": lambda: structure(ensemble, max_order=3),
         "exact H": lambda: h_statistic(ensemble, X, sample=sample, progress=False),
@@ -99,19 +100,21 @@ def _too_long(sizes: list[int], times: list[float], size: int, budget: float) ->
     return times[-1] * (size / sizes[-1]) ** max(order, 1.0) > budget
 
 
-def _order(sizes: list[int], times: list[float]) -> float:
+def _order(sizes: list[int], times: list[float]) -> str:
     if len(times) < 2:
-        return float("nan")
-    return float(np.polyfit(np.log(sizes), np.log(times), 1)[0])
+        return "—"
+    return f"{np.polyfit(np.log(sizes), np.log(times), 1)[0]:.2f}"
 
 
 def _grow(name: str, sizes: list[int], make: Callable[[int], tuple[Path, np.ndarray, int | None]],
           steps: tuple[str, ...], args: argparse.Namespace) -> None:
     measured: dict[str, tuple[list[int], list[float]]] = {step: ([], []) for step in steps}
     cells: dict[str, list[str]] = {step: [] for step in steps}
+    nodes = []
     for size in sizes:
         path, X, sample = make(size)
-        funcs = _steps(path, X, sample)
+        n_nodes, funcs = _steps(path, X, sample)
+        nodes.append(f"{n_nodes:,}")
         for step in steps:
             done_sizes, done_times = measured[step]
             if _too_long(done_sizes, done_times, size, args.budget):
@@ -124,14 +127,15 @@ def _grow(name: str, sizes: list[int], make: Callable[[int], tuple[Path, np.ndar
             print(f"  {name} {size:,}: {step} {seconds:.3g} s", file=sys.stderr)
     print(f"\n| step | {' | '.join(f'{size:,} {name}' for size in sizes)} | growth order |")
     print("|" + "---|" * (len(sizes) + 2))
+    print(f"| (model nodes) | {' | '.join(nodes)} | |")
     for step in steps:
-        print(f"| {step} | {' | '.join(cells[step])} | {_order(*measured[step]):.2f} |")
+        print(f"| {step} | {' | '.join(cells[step])} | {_order(*measured[step])} |")
 
 
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=1, help="timing rounds per cell; the best is kept (default 1)")
-    parser.add_argument("--budget", type=float, default=60.0, help="skip a cell expected to take longer (s, default 60)")
+    parser.add_argument("--budget", type=float, default=90.0, help="skip a cell expected to take longer (s, default 90)")
     parser.add_argument("--train-trees", type=int, default=1000, help="trees actually trained (default 1000)")
     args = parser.parse_args()
     print(f"bench_scaling: {load_average()}")
@@ -151,9 +155,9 @@ def main() -> int:
             path, X = _model_file(workdir, 200, n_features, args.train_trees)
             return path, X, 1000
 
-        _grow("trees", [100, 1000, 10_000], by_trees, STEPS, args)
+        _grow("trees", [100, 300, 1000, 3000, 10_000], by_trees, STEPS, args)
         _grow("rows", [100, 1000, 10_000, 100_000], by_rows, ("exact H", "triage"), args)
-        _grow("features", [10, 50, 500], by_features, STEPS, args)
+        _grow("features", [10, 50, 150, 500], by_features, STEPS, args)
     print(f"\n{time.perf_counter() - started:.0f} s in all; {load_average()}")
     return 0
 
