@@ -96,14 +96,17 @@ def _too_long(sizes: list[int], times: list[float], size: int, budget: float) ->
     """Whether ``size`` would take over ``budget`` seconds, extrapolating the last two measured sizes."""
     if not times:
         return False
-    order = _order(sizes[-2:], times[-2:]) if len(times) >= 2 else 1.0
+    order = _slope(sizes[-2:], times[-2:]) if len(times) >= 2 else 1.0
     return times[-1] * (size / sizes[-1]) ** max(order, 1.0) > budget
 
 
+def _slope(sizes: list[int], times: list[float]) -> float:
+    """Least-squares slope of log(time) on log(size): the growth order."""
+    return float(np.polyfit(np.log(sizes), np.log(times), 1)[0])
+
+
 def _order(sizes: list[int], times: list[float]) -> str:
-    if len(times) < 2:
-        return "—"
-    return f"{np.polyfit(np.log(sizes), np.log(times), 1)[0]:.2f}"
+    return f"{_slope(sizes, times):.2f}" if len(times) >= 2 else "—"
 
 
 def _grow(name: str, sizes: list[int], make: Callable[[int], tuple[Path, np.ndarray, int | None]],
