@@ -186,13 +186,14 @@ def test_popcount_fallback_counts_like_bitwise_count():
     np.testing.assert_array_equal(pdp._popcount(words), expected)
 
 
-def test_weighted_row_sums_match_a_dense_product():
-    """The byte-table sums of weighted row sets equal the plain product of unpacked bits and weights."""
+@pytest.mark.parametrize("n_sets", [40, 3000])  # few non-zero bytes (spread one by one), many (byte tables)
+def test_weighted_row_sums_match_a_dense_product(n_sets):
+    """The byte-wise sums of weighted row sets equal the plain product of unpacked bits and weights."""
     from treeprobe import pdp
 
     rng = np.random.default_rng(4)
-    bits = rng.random((40, 150)) < 0.3
+    bits = rng.random((n_sets, 150)) < 0.3
     words = np.packbits(np.pad(bits, ((0, 0), (0, 192 - 150))), axis=1, bitorder="little").view("<u8")
-    group, weight = rng.integers(0, 3, 40), rng.normal(size=40)
+    group, weight = rng.integers(0, 3, n_sets), rng.normal(size=n_sets)
     expected = np.array([(weight[group == g][:, None] * bits[group == g]).sum(axis=0) for g in range(3)])
     np.testing.assert_allclose(pdp._weighted_row_sums(words, group, weight, 3, 150), expected, rtol=1e-12, atol=1e-12)

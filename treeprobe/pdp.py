@@ -340,9 +340,10 @@ def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray,
                        n_rows: int) -> np.ndarray:
     """(n_groups, n_rows): ``out[g, i] = sum of weight[k] over row sets k of group g holding row i``.
 
-    Works a byte (8 rows) at a time: the weights are first summed per (group,
-    byte position, byte value), then each of the 256 byte values spreads its sum
-    over its set bits, so the cost follows the non-zero bytes, not the bits.
+    Works a byte (8 rows) at a time, on the non-zero bytes only. Where they are
+    many, the weights are first summed per (group, byte position, byte value) and
+    each of the 256 byte values spreads its sum over its set bits with one small
+    product; where they are few, each byte spreads its own weight.
     """
     as_bytes = np.ascontiguousarray(words).view(np.uint8)
     n_bytes = as_bytes.shape[1]
@@ -352,9 +353,16 @@ def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray,
         piece = as_bytes[:, start:start + block]
         width = piece.shape[1]
         item, position = np.nonzero(piece)
-        index = (group[item] * width + position) * 256 + piece[item, position]
+        value = piece[item, position]
+        target = out[:, start * 8:(start + width) * 8]
+        if 8 * item.size < n_groups * width * 256:
+            spots = ((group[item] * width + position) * 8)[:, None] + np.arange(8)
+            target += np.bincount(spots.ravel(), weights=(weight[item][:, None] * _BYTE_BITS[value]).ravel(),
+                                  minlength=n_groups * width * 8).reshape(n_groups, width * 8)
+            continue
+        index = (group[item] * width + position) * 256 + value
         sums = np.bincount(index, weights=weight[item], minlength=n_groups * width * 256)
-        out[:, start * 8:(start + width) * 8] = (sums.reshape(-1, 256) @ _BYTE_BITS).reshape(n_groups, width * 8)
+        target += (sums.reshape(-1, 256) @ _BYTE_BITS).reshape(n_groups, width * 8)
     return out[:, :n_rows]
 
 
@@ -782,8 +790,9 @@ def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps
     # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
     running = np.cumsum(steps)
     running -= np.repeat(np.r_[0.0, running[offset[1:-1] - 1]], size)
-    values = running[offset[:-1, None] + cells.cell[members.ravel()]]
-    return values[0::2] + values[1::2]
+    out = running[offset[0:-1:2, None] + cells.cell[members[:, 0]]]
+    out += running[offset[1:-1:2, None] + cells.cell[members[:, 1]]]
+    return out
 
 
 def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n_pairs: int) -> np.ndarray:
@@ -796,8 +805,8 @@ def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n
     return np.cumsum(present.reshape(n_pairs, span), axis=1)
 
 
-def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
-    """(n_pairs, n_rows): per pair, the summed weights of its boxes holding each row.
+def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray) -> np.ndarray:
+    """Add to ``out`` (n_pairs, n_rows), per pair, the summed weights of its boxes holding each row.
 
     Box corners, snapped to the cells the rows occupy, are numbered among
     the pair's own distinct corners, so a pair's grid has one line per distinct
@@ -806,7 +815,6 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict) -> np.ndarray:
     point (the number of the pair's corners at or below its cell on each axis).
     """
     n_pairs = members.shape[0]
-    out = np.zeros((n_pairs, cells.n_rows))
     pair = boxes["pair"]
     if not pair.size:
         return out
@@ -951,8 +959,8 @@ def exact_parts(
         # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
         boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
                  for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
-        pair = _box_sums(job.cells, job.pair_members, boxes) + _linear_sums(job.cells, job.pair_members,
-                                                                            job.segment_offset, linear)
+        pair = _box_sums(job.cells, job.pair_members, boxes,
+                         _linear_sums(job.cells, job.pair_members, job.segment_offset, linear))
     if against_rest and pieces:
         rest += _reached_leaf_sums(leaves, ens.n_nodes, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
