@@ -790,8 +790,13 @@ def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps
     # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
     running = np.cumsum(steps)
     running -= np.repeat(np.r_[0.0, running[offset[1:-1] - 1]], size)
-    out = running[offset[0:-1:2, None] + cells.cell[members[:, 0]]]
-    out += running[offset[1:-1:2, None] + cells.cell[members[:, 1]]]
+    out = np.zeros((members.shape[0], cells.n_rows))
+    # Feature by feature: a small table of that feature's step functions, read at the rows' cells.
+    for side in (0, 1):
+        for feature in np.unique(members[:, side]):
+            pairs = np.flatnonzero(members[:, side] == feature)
+            table = running[offset[2 * pairs + side][:, None] + np.arange(cells.n_cells[feature] + 1)]
+            out[pairs] += table[:, cells.cell[feature]]
     return out
 
 
@@ -823,9 +828,6 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray
     a_count = _pair_axes(pair, boxes["a_low"], boxes["a_high"], span, n_pairs)
     b_count = _pair_axes(pair, boxes["b_low"], boxes["b_high"], span, n_pairs)
     height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
-    pair_index = np.arange(n_pairs)[:, None]
-    point = (a_count[pair_index, cells.rank[members[:, 0]]] * width[:, None]
-             + b_count[pair_index, cells.rank[members[:, 1]]])
     order = np.argsort(pair, kind="stable")
     bounds = np.searchsorted(pair[order], np.arange(n_pairs + 1))
     # Corners are built for batches of pairs holding about CELL_BUDGET / 32 boxes (~100 bytes each at work).
@@ -849,7 +851,9 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray
                                minlength=int(height[first + k] * width[first + k])).reshape(-1, width[first + k])
             np.cumsum(grid, axis=0, out=grid)
             np.cumsum(grid, axis=1, out=grid)
-            out[first + k] += grid.ravel()[point[first + k]]
+            fa, fb = members[first + k]
+            out[first + k] += grid.ravel()[a_count[first + k, cells.rank[fa]] * width[first + k]
+                                           + b_count[first + k, cells.rank[fb]]]
         first = last
     return out
 
