@@ -85,8 +85,8 @@ MAX_DEPTH = 512
 # |v| at or below this is missing at a zero_as_missing split (LightGBM's kZeroThreshold); read by the exact engine too.
 ZERO_MISSING_BOUND = 1e-35
 _ROW_BLOCK_CELLS = 4_000_000
-# Values (rows x feature slots) of one block of the fast walk: keeps its lookup table in cache.
-_FAST_BLOCK_VALUES = 1 << 19
+# Values (rows x feature slots) of one block of the fast walk: bounds its lookup table (16 MB in float64).
+_FAST_BLOCK_VALUES = 1 << 21
 _EMPTY_MAPPING: Mapping[str, Any] = MappingProxyType({})
 
 
@@ -271,8 +271,9 @@ class _Routing:
 
     A missing value is replaced by -inf where it goes left and by +inf where it
     goes right, so one comparison routes every row: each node reads its feature
-    from one of four copies of the column (missing sent low or high, with or
-    without ``zero_as_missing``), a *slot* ``feature + n_features * variant``.
+    from one of up to four copies of the column (missing sent low or high, with
+    or without ``zero_as_missing``; only the copies some split reads are built),
+    a *slot* ``feature + n_features * copy``.
     Arrays are indexed by ``2 * node`` (and ``2 * node + goes_right`` for
     children), so one walk step is three gathers and an add. Leaves point to
     themselves, so a walk of a tree's depth ends on a leaf from every start.
@@ -287,12 +288,13 @@ class _Routing:
     weighted_value: np.ndarray   # (n_nodes, n_values) leaf values times tree weight
     roots: np.ndarray
     n_features: int
+    variants: tuple[int, ...]    # the copies some split reads (0..3: missing low/high, with zero read as missing)
     right_on_tie: bool           # "<" rule: a value equal to the threshold goes right
     table_dtype: Any
 
     @property
     def n_slots(self) -> int:
-        return 4 * self.n_features
+        return len(self.variants) * self.n_features
 
     @classmethod
     def of(cls, graph: ForestGraph) -> _Routing:
@@ -302,7 +304,9 @@ class _Routing:
         generic = np.zeros(graph.n_trees, dtype=bool)
         generic[graph.tree[unusual]] = True
         variant = (~graph.missing_left).astype(np.int64) + 2 * graph.zero_as_missing.astype(np.int64)
-        slot = np.where(inner, graph.feature.astype(np.int64) + p * variant, 0)
+        variants, copy = np.unique(np.r_[0, variant[inner]], return_inverse=True)
+        slot = np.zeros(n_nodes, dtype=np.int64)
+        slot[inner] = graph.feature[inner].astype(np.int64) + p * copy[1:]
         threshold = np.where(inner & ~unusual, graph.threshold, 0.0)
         # Compare in single precision only when no threshold changes on the way (XGBoost's are float32).
         single = graph.split_dtype == "float32" and bool(
@@ -323,40 +327,45 @@ class _Routing:
             weighted_value=graph.value * graph.tree_weight[graph.tree][:, None],
             roots=graph.tree_offsets[:-1].astype(np.intp),
             n_features=p,
+            variants=tuple(int(v) for v in variants),
             right_on_tie=graph.threshold_rule == "<",
             table_dtype=np.float32 if single else np.float64,
         )
 
     def _table(self, arr: np.ndarray) -> np.ndarray:
-        """The four copies of every column, slot-major and flattened: ``table[slot * n_rows + row]``."""
+        """The copies of every column the splits read, slot-major and flattened: ``table[slot * n_rows + row]``."""
         columns = arr.T.astype(self.table_dtype)
         missing = np.isnan(columns)
-        zero = missing | (np.abs(columns) <= ZERO_MISSING_BOUND)
-        table = np.empty((4, columns.shape[0], columns.shape[1]), dtype=self.table_dtype)
-        for variant, (absent, fill) in enumerate([(missing, -np.inf), (missing, np.inf), (zero, -np.inf),
-                                                  (zero, np.inf)]):
-            table[variant] = np.where(absent, fill, columns)
+        zero = missing | (np.abs(columns) <= ZERO_MISSING_BOUND) if max(self.variants) >= 2 else missing
+        table = np.empty((len(self.variants), columns.shape[0], columns.shape[1]), dtype=self.table_dtype)
+        for position, variant in enumerate(self.variants):
+            table[position] = np.where(zero if variant >= 2 else missing, np.inf if variant % 2 else -np.inf, columns)
         return table.ravel()
 
-    def walk(self, arr: np.ndarray) -> np.ndarray:
-        """Global leaf of every row of ``arr`` (already cast to the split dtype) in every fast tree."""
+    def walk(self, arr: np.ndarray):
+        """Yield ``(tree, leaves)``: the global leaf of every row of ``arr`` (cast to the split dtype) in each fast tree."""
         n_rows = arr.shape[0]
         table = self._table(arr)
-        out = np.empty((n_rows, self.fast_trees.size), dtype=np.int64)
         offset = np.arange(n_rows, dtype=np.intp)
         slot_start = self.slot2 * n_rows
         goes_right = np.greater_equal if self.right_on_tie else np.greater
         position = np.empty(n_rows, dtype=np.intp)
         right = np.empty(n_rows, dtype=bool)
-        for column, tree in enumerate(self.fast_trees):
-            at = np.full(n_rows, 2 * self.roots[tree], dtype=np.intp)
-            for _ in range(int(self.tree_depth[tree])):
+        for tree in self.fast_trees:
+            root = 2 * self.roots[tree]
+            if not self.tree_depth[tree]:
+                yield tree, np.full(n_rows, root >> 1, dtype=np.intp)
+                continue
+            # Every row starts at the root: one contiguous column against one threshold.
+            start = slot_start[root]
+            goes_right(table[start:start + n_rows], self.threshold2[root], out=right)
+            at = self.child2.take(root + right)
+            for _ in range(int(self.tree_depth[tree]) - 1):
                 np.add(slot_start.take(at), offset, out=position)
                 goes_right(table.take(position), self.threshold2.take(at), out=right)
                 at += right
                 at = self.child2.take(at)
-            out[:, column] = at >> 1
-        return out
+            yield tree, at >> 1
 
 
 @dataclass(frozen=True, eq=False)
@@ -909,7 +918,8 @@ class ForestGraph:
         return out
 
     def _leaf_blocks(self, arr: np.ndarray):
-        """Yield ``(rows, trees, leaves)``: the global leaf every row of the slice reaches in each listed tree.
+        """Yield ``(rows, trees, leaves)``: the global leaf every row of the slice reaches in each listed tree,
+        ``leaves`` of shape (rows, trees); fast trees come one at a time.
 
         Trees whose splits are all numeric with finite thresholds take the fast
         walk of :class:`_Routing` (one tree at a time over a block of rows, so
@@ -924,8 +934,8 @@ class ForestGraph:
             sub = arr[rows]
             if routing.generic_trees.size:
                 yield rows, routing.generic_trees, self._walk_generic(sub, routing.generic_trees)
-            if routing.fast_trees.size:
-                yield rows, routing.fast_trees, routing.walk(sub)
+            for tree, leaves in routing.walk(sub):
+                yield rows, tree, leaves
 
     def apply(self, X: Any, *, checked: bool = False) -> np.ndarray:
         """Global index of the leaf every row reaches in every tree.
@@ -964,17 +974,21 @@ class ForestGraph:
         """
         arr = self._matrix(X, checked).astype(self.split_dtype, copy=False)
         weighted = self._routing().weighted_value
+        first_value = np.ascontiguousarray(weighted[:, 0])
         vector_leaves = self.value.shape[1] > 1
-        out = np.tile(self.base_score, (arr.shape[0], 1))
+        # Output-major, so each tree adds into one contiguous run of rows.
+        out = np.tile(self.base_score[:, None], (1, arr.shape[0]))
         for rows, trees, leaves in self._leaf_blocks(arr):
             if vector_leaves:
-                out[rows] += weighted[leaves].sum(axis=1)
-                continue
-            contrib = weighted[leaves, 0]
-            outputs = np.maximum(self.output_of_tree[trees], 0)
-            for k in np.unique(outputs):
-                out[rows, k] += contrib[:, outputs == k].sum(axis=1)
-        return out[:, 0] if self.n_outputs == 1 else out
+                out[:, rows] += (weighted[leaves].sum(axis=1) if leaves.ndim == 2 else weighted[leaves]).T
+            elif leaves.ndim == 1:
+                out[max(int(self.output_of_tree[trees]), 0), rows] += first_value.take(leaves)
+            else:
+                contrib = first_value[leaves]
+                outputs = np.maximum(self.output_of_tree[trees], 0)
+                for k in np.unique(outputs):
+                    out[k, rows] += contrib[:, outputs == k].sum(axis=1)
+        return out[0] if self.n_outputs == 1 else out.T
 
     def predict(self, X: Any, *, checked: bool = False) -> np.ndarray:
         """Prediction on the link's scale (probabilities for logit/softmax, exp for log links)."""
