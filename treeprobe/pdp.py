@@ -681,8 +681,10 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     at least one, two and three of its path features (bit-sliced counting), so
     the rows failing nothing but a given entry or pair of entries are a few
     AND/popcount steps. Per-row functions come back as weighted cell intervals
-    (``main``) and cell boxes (``pair``), evaluated once for all groups, and as
-    dense sums where they need whole rows (``rest``, ``triple``).
+    (``main``), cell boxes and the jumps of per-feature step functions (``boxes``
+    and ``linear``, the pair terms), evaluated once for all groups, and as dense
+    sums where they need whole rows (``rest``, ``triple``); ``rest_leaf`` holds the
+    per-leaf weights read at the leaves the rows reach.
     """
     ens, cells, pair_keys, triple_keys = job.ens, job.cells, job.pair_keys, job.triple_keys
     n_rows, n_features = cells.n_rows, ens.n_features
