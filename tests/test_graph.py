@@ -269,3 +269,44 @@ def test_logit_link_scale_is_applied_inside_the_sigmoid():
     raw = ens.predict_raw(np.array([[0.2, 1.0]]))
     # p = 1 / (1 + exp(-2 raw)), the binary objective of LightGBM with sigmoid=2 (LightGBM docs, "sigmoid").
     np.testing.assert_allclose(ens.predict(np.array([[0.2, 1.0]])), 1 / (1 + np.exp(-2 * raw)))
+
+
+def _random_forest_graph(rng, *, n_trees, n_features, rule, split_dtype, zero_as_missing):
+    """Random full trees of depth 1..4 whose thresholds are values the rows also take (ties on purpose)."""
+    grid = np.array([-1.5, -1e-40, 0.0, 1e-36, 0.25, 0.5, 2.0], dtype=np.float32).astype(np.float64)
+    spec = {key: [] for key in ("feature", "threshold", "left", "right", "value", "missing_left", "zero_as_missing")}
+    offsets = [0]
+    for _ in range(n_trees):
+        depth = int(rng.integers(1, 5))
+        n_inner, n_nodes = 2**depth - 1, 2 ** (depth + 1) - 1
+        for node in range(n_nodes):
+            inner = node < n_inner
+            spec["feature"].append(int(rng.integers(n_features)) if inner else -1)
+            spec["threshold"].append(float(rng.choice(grid)) if inner else np.nan)
+            spec["left"].append(2 * node + 1 if inner else -1)
+            spec["right"].append(2 * node + 2 if inner else -1)
+            spec["value"].append(float(rng.normal()) if not inner else 0.0)
+            spec["missing_left"].append(bool(rng.integers(2)))
+            spec["zero_as_missing"].append(bool(zero_as_missing and rng.integers(2)))
+        offsets.append(offsets[-1] + n_nodes)
+    return ForestGraph.from_arrays(**spec, local_children=True, tree_offsets=offsets, threshold_rule=rule,
+                                   split_dtype=split_dtype, n_features=n_features)
+
+
+@pytest.mark.parametrize("rule, split_dtype, zero_as_missing",
+                         [("<", "float32", False), ("<=", "float64", True), ("<", "float64", True)])
+def test_fast_walk_routes_like_the_node_rule(rule, split_dtype, zero_as_missing):
+    # Reference: the per-node routing rule of the module docstring (ForestGraph._goes_left), walked
+    # level by level; the fast walk replaces missing values by infinities and must agree on every row.
+    rng = np.random.default_rng(5)
+    graph = _random_forest_graph(rng, n_trees=40, n_features=3, rule=rule, split_dtype=split_dtype,
+                                 zero_as_missing=zero_as_missing)
+    values = np.array([-np.inf, -1.5, -1e-40, -0.0, 0.0, 1e-36, 0.25, 0.5, 0.7, 2.0, np.inf, np.nan])
+    X = rng.choice(values, size=(500, 3))
+    arr = X.astype(graph.split_dtype)
+    expected = graph._walk_generic(arr, np.arange(graph.n_trees))
+    assert graph._routing().generic_trees.size == 0
+    # checked=True: the walk itself must cope with infinities, which model_matrix would refuse.
+    np.testing.assert_array_equal(graph.apply(X, checked=True), expected)
+    by_hand = graph.base_score[0] + graph.value[expected, 0].sum(axis=1)
+    np.testing.assert_allclose(graph.predict_raw(X, checked=True), by_hand, rtol=0, atol=1e-12)

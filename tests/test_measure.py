@@ -10,6 +10,7 @@ rule ensembles", AOAS 2(3), eqs. 44-46 (the statistics); Friedman (1991),
 from __future__ import annotations
 
 import json
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -412,3 +413,26 @@ def test_probability_scale_refused_on_identity_link(small_tree_model):
 
     with pytest.raises(ParameterError, match="link is 'identity'"):
         partial_dependence(ensemble, frame, ["fuel_price"], [[0.0]], scale="probability")
+
+
+def test_long_brute_force_states_its_estimate_before_starting(monkeypatch):
+    """The warning comes before any partial dependence is computed and scales the time of one pass over the rows."""
+    from treeprobe import pdp
+
+    calls = []
+
+    def predict(A):
+        calls.append(len(A))
+        return A[:, 0] * A[:, 1]
+
+    monkeypatch.setattr(pdp, "BRUTE_NOTICE_SECONDS", 0.0)
+    X = _uniform(30, -1, 1, 3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the warning stops the run where it is issued
+        with pytest.raises(UserWarning, match=r"3 functions of 30² predictions each, estimated \d+ s"):
+            h_statistic(predict, X, against_rest=False)
+    assert calls == [30]  # only the rows themselves were predicted before the estimate
+    monkeypatch.setattr(pdp, "BRUTE_NOTICE_SECONDS", 3600.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        h_statistic(predict, X, against_rest=False)

@@ -82,8 +82,11 @@ UNSEEN_CATEGORY_RULES = ("missing", "unlisted")
 NEGATIVE_CATEGORY_RULES = ("none", "truncate")
 IMPORTANCE_POOLINGS = ("", "normalised_per_tree", "raw_per_tree")
 MAX_DEPTH = 512
-_ZERO_THRESHOLD = 1e-35
+# |v| at or below this is missing at a zero_as_missing split (LightGBM's kZeroThreshold); read by the exact engine too.
+ZERO_MISSING_BOUND = 1e-35
 _ROW_BLOCK_CELLS = 4_000_000
+# Values (rows x feature slots) of one block of the fast walk: bounds its lookup table (16 MB in float64).
+_FAST_BLOCK_VALUES = 1 << 21
 _EMPTY_MAPPING: Mapping[str, Any] = MappingProxyType({})
 
 
@@ -260,6 +263,109 @@ def _per_tree_arrays(output_of_tree: Sequence[int] | None, tree_weight: Sequence
     weight_a = np.ones(n_trees) if tree_weight is None else _as_array(tree_weight, np.float64, "tree_weight", source)
     base_a = np.broadcast_to(np.asarray(base_score, dtype=np.float64), (n_outputs,)).copy()
     return out_a, weight_a, base_a
+
+
+@dataclass(frozen=True)
+class _Routing:
+    """Node tables of the fast walk of :meth:`ForestGraph.apply` (numeric splits with finite thresholds).
+
+    A missing value is replaced by -inf where it goes left and by +inf where it
+    goes right, so one comparison routes every row: each node reads its feature
+    from one of up to four copies of the column (missing sent low or high, with
+    or without ``zero_as_missing``; only the copies some split reads are built),
+    a *slot* ``feature + n_features * copy``.
+    Arrays are indexed by ``2 * node`` (and ``2 * node + goes_right`` for
+    children), so one walk step is three gathers and an add. Leaves point to
+    themselves, so a walk of a tree's depth ends on a leaf from every start.
+    """
+
+    slot2: np.ndarray            # (2 n_nodes,) slot read at node, at 2 node and 2 node + 1
+    threshold2: np.ndarray       # (2 n_nodes,) threshold at node, likewise
+    child2: np.ndarray           # (2 n_nodes,) 2 * left child at 2 node, 2 * right child at 2 node + 1
+    tree_depth: np.ndarray       # (n_trees,)
+    fast_trees: np.ndarray       # trees the fast walk handles
+    generic_trees: np.ndarray    # trees with categorical splits or infinite thresholds
+    weighted_value: np.ndarray   # (n_nodes, n_values) leaf values times tree weight
+    roots: np.ndarray
+    n_features: int
+    variants: tuple[int, ...]    # the copies some split reads (0..3: missing low/high, with zero read as missing)
+    right_on_tie: bool           # "<" rule: a value equal to the threshold goes right
+    table_dtype: Any
+
+    @property
+    def n_slots(self) -> int:
+        return len(self.variants) * self.n_features
+
+    @classmethod
+    def of(cls, graph: ForestGraph) -> _Routing:
+        n_nodes, p = graph.n_nodes, graph.n_features
+        inner = graph.feature >= 0
+        unusual = inner & (graph.is_categorical | ~np.isfinite(graph.threshold))
+        generic = np.zeros(graph.n_trees, dtype=bool)
+        generic[graph.tree[unusual]] = True
+        variant = (~graph.missing_left).astype(np.int64) + 2 * graph.zero_as_missing.astype(np.int64)
+        variants, copy = np.unique(np.r_[0, variant[inner]], return_inverse=True)
+        slot = np.zeros(n_nodes, dtype=np.int64)
+        slot[inner] = graph.feature[inner].astype(np.int64) + p * copy[1:]
+        threshold = np.where(inner & ~unusual, graph.threshold, 0.0)
+        # Compare in single precision only when no threshold changes on the way (XGBoost's are float32).
+        single = graph.split_dtype == "float32" and bool(
+            np.all(threshold.astype(np.float32).astype(np.float64) == threshold))
+        node = np.arange(n_nodes, dtype=np.int64)
+        child2 = np.empty(2 * n_nodes, dtype=np.intp)
+        child2[0::2] = 2 * np.where(inner, graph.left, node)
+        child2[1::2] = 2 * np.where(inner, graph.right, node)
+        tree_depth = np.zeros(graph.n_trees, dtype=np.int64)
+        np.maximum.at(tree_depth, graph.tree, graph.depth)
+        return cls(
+            slot2=np.repeat(slot, 2).astype(np.intp),
+            threshold2=np.repeat(threshold, 2).astype(np.float32 if single else np.float64),
+            child2=child2,
+            tree_depth=tree_depth,
+            fast_trees=np.flatnonzero(~generic),
+            generic_trees=np.flatnonzero(generic),
+            weighted_value=graph.value * graph.tree_weight[graph.tree][:, None],
+            roots=graph.tree_offsets[:-1].astype(np.intp),
+            n_features=p,
+            variants=tuple(int(v) for v in variants),
+            right_on_tie=graph.threshold_rule == "<",
+            table_dtype=np.float32 if single else np.float64,
+        )
+
+    def _table(self, arr: np.ndarray) -> np.ndarray:
+        """The copies of every column the splits read, slot-major and flattened: ``table[slot * n_rows + row]``."""
+        columns = arr.T.astype(self.table_dtype)
+        missing = np.isnan(columns)
+        zero = missing | (np.abs(columns) <= ZERO_MISSING_BOUND) if max(self.variants) >= 2 else missing
+        table = np.empty((len(self.variants), columns.shape[0], columns.shape[1]), dtype=self.table_dtype)
+        for position, variant in enumerate(self.variants):
+            table[position] = np.where(zero if variant >= 2 else missing, np.inf if variant % 2 else -np.inf, columns)
+        return table.ravel()
+
+    def walk(self, arr: np.ndarray):
+        """Yield ``(tree, leaves)``: the global leaf of every row of ``arr`` (cast to the split dtype) in each fast tree."""
+        n_rows = arr.shape[0]
+        table = self._table(arr)
+        offset = np.arange(n_rows, dtype=np.intp)
+        slot_start = self.slot2 * n_rows
+        goes_right = np.greater_equal if self.right_on_tie else np.greater
+        position = np.empty(n_rows, dtype=np.intp)
+        right = np.empty(n_rows, dtype=bool)
+        for tree in self.fast_trees:
+            root = 2 * self.roots[tree]
+            if not self.tree_depth[tree]:
+                yield tree, np.full(n_rows, root >> 1, dtype=np.intp)
+                continue
+            # Every row starts at the root: one contiguous column against one threshold.
+            start = slot_start[root]
+            goes_right(table[start:start + n_rows], self.threshold2[root], out=right)
+            at = self.child2.take(root + right)
+            for _ in range(int(self.tree_depth[tree]) - 1):
+                np.add(slot_start.take(at), offset, out=position)
+                goes_right(table.take(position), self.threshold2.take(at), out=right)
+                at += right
+                at = self.child2.take(at)
+            yield tree, at >> 1
 
 
 @dataclass(frozen=True, eq=False)
@@ -743,7 +849,7 @@ class ForestGraph:
         thr = self.threshold[node]
         with np.errstate(invalid="ignore"):
             numeric_left = (x < thr) if self.threshold_rule == "<" else (x <= thr)
-        missing = np.isnan(x) | (self.zero_as_missing[node] & (np.abs(x) <= _ZERO_THRESHOLD))
+        missing = np.isnan(x) | (self.zero_as_missing[node] & (np.abs(x) <= ZERO_MISSING_BOUND))
         go_left = np.where(missing, self.missing_left[node], numeric_left)
         cat = self.is_categorical[node]
         if cat.any():
@@ -777,30 +883,27 @@ class ForestGraph:
         pos = np.minimum(np.searchsorted(keys, query), keys.size - 1)
         return valid & (keys[pos] == query)
 
-    def apply(self, X: Any, *, checked: bool = False) -> np.ndarray:
-        """Global index of the leaf every row reaches in every tree.
+    def _routing(self) -> _Routing:
+        """Per-node tables of the fast walk, built once per graph (the graph is immutable)."""
+        routing = self.__dict__.get("_routing_cache")
+        if routing is None:
+            routing = _Routing.of(self)
+            object.__setattr__(self, "_routing_cache", routing)
+        return routing
 
-        Vectorised over rows and trees; one numpy pass per tree level. ``X`` is
-        the model's float matrix (a DataFrame or other input goes through
-        :func:`treeprobe.data.model_matrix`); ``checked=True`` skips that step
-        for a float array that already came from it.
-
-        Returns
-        -------
-        ndarray of int64, shape (n_rows, n_trees)
-        """
-        arr = self._matrix(X, checked).astype(self.split_dtype, copy=False)
-        n_rows = arr.shape[0]
-        out = np.empty((n_rows, self.n_trees), dtype=np.int64)
-        block = max(1, _ROW_BLOCK_CELLS // max(self.n_trees, 1))
-        roots = self.roots.astype(np.int64)
+    def _walk_generic(self, arr: np.ndarray, trees: np.ndarray) -> np.ndarray:
+        """Leaves of ``trees`` for the rows of ``arr`` by :meth:`_goes_left`, all trees level by level."""
+        n_rows, n_trees = arr.shape[0], trees.size
+        out = np.empty((n_rows, n_trees), dtype=np.int64)
+        block = max(1, _ROW_BLOCK_CELLS // max(n_trees, 1))
+        roots = self.tree_offsets[trees].astype(np.int64)
         # The validated depths bound the walk, whatever the arrays hold.
         levels = int(self.depth.max(initial=0)) + 1
         for start in range(0, n_rows, block):
             xb = arr[start:start + block]
             nb = xb.shape[0]
-            flat_node = np.broadcast_to(roots, (nb, self.n_trees)).ravel().copy()
-            flat_rows = np.repeat(np.arange(nb), self.n_trees)
+            flat_node = np.broadcast_to(roots, (nb, n_trees)).ravel().copy()
+            flat_rows = np.repeat(np.arange(nb), n_trees)
             active = np.flatnonzero(self.feature[flat_node] >= 0)
             for _ in range(levels):
                 if not active.size:
@@ -811,7 +914,45 @@ class ForestGraph:
                 nxt = np.where(left, self.left[cur], self.right[cur]).astype(np.int64)
                 flat_node[active] = nxt
                 active = active[self.feature[nxt] >= 0]
-            out[start:start + nb] = flat_node.reshape(nb, self.n_trees)
+            out[start:start + nb] = flat_node.reshape(nb, n_trees)
+        return out
+
+    def _leaf_blocks(self, arr: np.ndarray):
+        """Yield ``(rows, trees, leaves)``: the global leaf every row of the slice reaches in each listed tree,
+        ``leaves`` of shape (rows, trees); fast trees come one at a time.
+
+        Trees whose splits are all numeric with finite thresholds take the fast
+        walk of :class:`_Routing` (one tree at a time over a block of rows, so
+        the gathers stay in cache); the others go through :meth:`_walk_generic`.
+        Both follow the routing rules of the module docstring.
+        """
+        routing = self._routing()
+        n_rows = arr.shape[0]
+        block = max(1, _FAST_BLOCK_VALUES // max(routing.n_slots, 1))
+        for start in range(0, n_rows, block):
+            rows = slice(start, min(start + block, n_rows))
+            sub = arr[rows]
+            if routing.generic_trees.size:
+                yield rows, routing.generic_trees, self._walk_generic(sub, routing.generic_trees)
+            for tree, leaves in routing.walk(sub):
+                yield rows, tree, leaves
+
+    def apply(self, X: Any, *, checked: bool = False) -> np.ndarray:
+        """Global index of the leaf every row reaches in every tree.
+
+        Vectorised over rows; one numpy pass per tree level. ``X`` is
+        the model's float matrix (a DataFrame or other input goes through
+        :func:`treeprobe.data.model_matrix`); ``checked=True`` skips that step
+        for a float array that already came from it.
+
+        Returns
+        -------
+        ndarray of int64, shape (n_rows, n_trees)
+        """
+        arr = self._matrix(X, checked).astype(self.split_dtype, copy=False)
+        out = np.empty((arr.shape[0], self.n_trees), dtype=np.int64)
+        for rows, trees, leaves in self._leaf_blocks(arr):
+            out[rows, trees] = leaves
         return out
 
     def predict_raw(self, X: Any, *, checked: bool = False) -> np.ndarray:
@@ -831,16 +972,23 @@ class ForestGraph:
             ``raw_score=True``, scikit-learn ``decision_function`` (forests:
             ``predict_proba`` / ``predict``).
         """
-        leaves = self.apply(X, checked=checked)
-        out = np.tile(self.base_score, (leaves.shape[0], 1))
-        if self.value.shape[1] == 1:
-            contrib = self.value[leaves, 0] * self.tree_weight
-            mix = np.zeros((self.n_trees, self.n_outputs))
-            mix[np.arange(self.n_trees), np.maximum(self.output_of_tree, 0)] = 1.0
-            out += contrib @ mix
-        else:
-            out += np.einsum("rtk,t->rk", self.value[leaves], self.tree_weight)
-        return out[:, 0] if self.n_outputs == 1 else out
+        arr = self._matrix(X, checked).astype(self.split_dtype, copy=False)
+        weighted = self._routing().weighted_value
+        first_value = np.ascontiguousarray(weighted[:, 0])
+        vector_leaves = self.value.shape[1] > 1
+        # Output-major, so each tree adds into one contiguous run of rows.
+        out = np.tile(self.base_score[:, None], (1, arr.shape[0]))
+        for rows, trees, leaves in self._leaf_blocks(arr):
+            if vector_leaves:
+                out[:, rows] += (weighted[leaves].sum(axis=1) if leaves.ndim == 2 else weighted[leaves]).T
+            elif leaves.ndim == 1:
+                out[max(int(self.output_of_tree[trees]), 0), rows] += first_value.take(leaves)
+            else:
+                contrib = first_value[leaves]
+                outputs = np.maximum(self.output_of_tree[trees], 0)
+                for k in np.unique(outputs):
+                    out[k, rows] += contrib[:, outputs == k].sum(axis=1)
+        return out[0] if self.n_outputs == 1 else out.T
 
     def predict(self, X: Any, *, checked: bool = False) -> np.ndarray:
         """Prediction on the link's scale (probabilities for logit/softmax, exp for log links)."""

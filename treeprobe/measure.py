@@ -302,16 +302,18 @@ def _rows_of(parts: _Parts, names: Sequence[str], on_paths: dict[int, np.ndarray
     """Table rows of one output: h2, h, pd_variance, h_negligible (and shares_path) per statistic."""
     cut = NEGLIGIBLE_H_SHARE * parts.prediction_sd
 
-    def shares_path(members: tuple[int, ...]) -> Any:
-        if on_paths is None:
-            return pd.NA
-        key = encode_sets(np.array([members]), len(names))
-        return bool(np.isin(key, on_paths[len(members)])[0])
+    def on_path(sets: Any, size: int) -> dict[tuple[int, ...], Any]:
+        if on_paths is None or not len(sets):
+            return dict.fromkeys(sets, pd.NA)
+        found = np.isin(encode_sets(np.array(list(sets)).reshape(-1, size), len(names)), on_paths[size])
+        return {members: bool(flag) for members, flag in zip(sets, found, strict=True)}
+
+    shared = {**on_path(parts.pair, 2), **on_path(parts.triple, 3)}
 
     def row(members: tuple[int, ...], numerator: np.ndarray, full: np.ndarray, columns: Sequence[str]) -> dict:
         h2, h, variance = _ratio(numerator, full)
         return {**{c: names[m] for c, m in zip(columns, members, strict=True)}, "output": parts.output, "h2": h2,
-                "h": h, "pd_variance": variance, "h_negligible": h <= cut, "shares_path": shares_path(members)}
+                "h": h, "pd_variance": variance, "h_negligible": h <= cut, "shares_path": shared[members]}
 
     pairs = [row(m, *v, ("feature_a", "feature_b")) for m, v in parts.pair.items()]
     triples = [row(m, *v, ("feature_a", "feature_b", "feature_c")) for m, v in parts.triple.items()]
@@ -388,7 +390,9 @@ def _plan(fitted: FittedModel, names: Sequence[str], outputs: list[int] | None, 
     on_paths = None
     if ens is not None:
         trees = np.unique(np.concatenate([ens.trees_of_output(k) for k in outputs]))
-        on_paths = {order: sets_on_paths(ens, order, trees) for order in (2, 3)}
+        # Triples on paths are found only when triples are asked for: the walk costs as much as the pairs'.
+        on_paths = {order: sets_on_paths(ens, order, trees) for order in ((2, 3) if triples not in (None, False)
+                                                                          else (2,))}
     if pairs is None:
         pair_list = ([tuple(m) for m in decode_sets(on_paths[2], n_features, 2).tolist()] if ens is not None
                      else list(itertools.combinations(range(n_features), 2)))
@@ -536,8 +540,10 @@ def h_statistic(
     unnormalised statistic advocated by [2]_; H2 is NaN when the denominator is 0.
 
     Memory: the exact path keeps ``8 * n_rows * (n_pairs + n_triples + 2 * n_features)``
-    bytes of per-row sums plus a working set of a few times ``CELL_BUDGET`` cells per
-    tree chunk; the brute path holds about 256 MB of modified rows per batch.
+    bytes of per-row sums, about 40 bytes per (leaf, pair of its path features), and a
+    working set of a few times ``CELL_BUDGET`` bits per tree chunk; the brute path holds
+    about 256 MB of modified rows per batch and, when its estimated duration exceeds a
+    minute, warns with the estimate before it starts.
 
     H-statistics extrapolate when features are dependent, describe the model
     rather than the world, and say nothing about causation (see ``LIMITS``).

@@ -43,6 +43,7 @@ from __future__ import annotations
 from collections.abc import Iterator
 from functools import lru_cache
 from itertools import combinations
+from weakref import WeakKeyDictionary
 
 import numpy as np
 
@@ -65,6 +66,8 @@ __all__ = [
 
 # Nodes per chunk of :func:`leaf_feature_sets`: bounds the (nodes x words) masks.
 _CHUNK_NODES = 1 << 16
+# Path feature sets of live graphs, by tree selection (see leaf_feature_sets).
+_FEATURE_SETS: WeakKeyDictionary = WeakKeyDictionary()
 
 
 def parent_links(graph: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
@@ -259,10 +262,19 @@ def leaf_feature_sets(graph: ForestGraph, trees: np.ndarray | None = None) -> np
     """Distinct feature sets of the root-to-leaf paths, as a boolean (sets x features) matrix.
 
     ``trees`` restricts the walk to those tree indices (default: every tree).
-    A single-leaf tree contributes the empty set.
+    A single-leaf tree contributes the empty set. Graphs are immutable, so the
+    result is kept (read-only) for as long as the graph lives: repeated
+    H-statistics on one model, as triage's resamples do, walk it once.
     """
-    found = [_no_masks(graph)] + [np.unique(masks, axis=0) for _, masks in _leaf_masks(graph, trees)]
-    return mask_members(np.unique(np.concatenate(found), axis=0), graph.n_features)
+    trees = np.arange(graph.n_trees) if trees is None else np.asarray(trees, dtype=np.int64)
+    known = _FEATURE_SETS.setdefault(graph, {})
+    key = trees.tobytes()
+    if key not in known:
+        found = [_no_masks(graph)] + [np.unique(masks, axis=0) for _, masks in _leaf_masks(graph, trees)]
+        sets = mask_members(np.unique(np.concatenate(found), axis=0), graph.n_features)
+        sets.setflags(write=False)
+        known[key] = sets
+    return known[key]
 
 
 def path_set_counts(graph: ForestGraph) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

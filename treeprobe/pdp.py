@@ -27,11 +27,21 @@ the path have ``C_Lj = 1``. By linearity::
 
 Call ``fail(i, L)`` the set of path features whose condition row ``i`` fails.
 Then ``w_L(S)`` is the share of background rows with ``fail(i, L)`` a subset of
-``S``, i.e. with ``|fail(i, L)| - |fail(i, L) & S| == 0``. One pass that records
-``fail`` for every row and every (leaf, path feature) gives every ``w_L(S)``.
-The engine below computes, per chunk of trees, the boolean matrix ``fail`` of
-shape (rows, path entries), one column per (leaf, distinct path feature), and the
-per-leaf failure counts; everything else is sums over those columns.
+``S``. For H-statistics (background = evaluation rows) the engine keeps, per
+chunk of trees, the rows passing each (leaf, path feature) *entry* as bit-packed
+row sets (64 rows a word), and per leaf the rows failing at least one, two and
+three entries (bit-sliced counting). The rows failing nothing but entry ``e``
+are ``~twos & fail_e``, those failing exactly ``{a, b}`` are
+``~threes & fail_a & fail_b``, so every share needed is a few AND and popcount
+steps. The per-row functions use that ``C_Lj`` reads feature ``j`` alone:
+between consecutive thresholds of the splits on ``j`` every value goes the same
+way (:class:`RowCells`), so an entry passes an interval of such *cells* and
+``F_j`` is a sum of weighted cell intervals, and the product terms of a pair a
+sum of weighted cell boxes, added up once for all trees with running sums.
+Only ``F - F_notj`` needs whole rows (the rows failing exactly one entry);
+those sums are taken a byte of rows at a time. Partial dependence at points
+other than the background (:func:`partial_dependence`) counts the failures of
+the points and of the background directly (:func:`failed_conditions`).
 
 This module owns both engines. :func:`partial_dependence` is the public entry
 point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
@@ -51,6 +61,9 @@ References
 from __future__ import annotations
 
 import itertools
+import os
+import time
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -63,17 +76,19 @@ from scipy.sparse import csr_matrix
 from .checks import check_choice, check_int
 from .data import model_matrix, numeric_array
 from .errors import DataError, ParameterError
-from .graph import ForestGraph
+from .graph import ZERO_MISSING_BOUND, ForestGraph
 from .io import load_model
-from .paths import encode_sets, leaf_steps, parent_links, tree_nodes
+from .paths import decode_sets, encode_sets, leaf_steps, parent_links, tree_nodes
 from .progress import progress_bar
 
 __all__ = ["partial_dependence"]
 
 # Cells (rows x columns) of one working matrix: bounds the memory of every chunk.
-CELL_BUDGET = 2**23
+CELL_BUDGET = 2**25
 # Bytes of modified rows one brute-force batch may hold.
 BRUTE_BATCH_BYTES = 256 * 1024**2
+# Estimated brute-force time above which a warning states the estimate before the work starts.
+BRUTE_NOTICE_SECONDS = 60.0
 
 
 # --------------------------------------------------------------------------- models
@@ -207,6 +222,7 @@ class PathTable:
     """
 
     leaf_value: np.ndarray        # (n_leaves,) weighted leaf value for the chosen output
+    leaf_node: np.ndarray         # (n_leaves,) global node index of each leaf
     used_nodes: np.ndarray        # (n_used,) internal nodes on the paths
     step_node: np.ndarray         # (n_steps,) position of the step's node in used_nodes
     step_left: np.ndarray         # (n_steps,) whether the path goes left there
@@ -236,7 +252,7 @@ def path_table(
     leaves = leaf_nodes[parent[leaf_nodes] >= 0]
     if not leaves.size:
         empty = np.zeros(0, dtype=np.int64)
-        return PathTable(np.zeros(0), empty, empty, np.zeros(0, bool), empty, empty, empty, empty,
+        return PathTable(np.zeros(0), empty, empty, empty, np.zeros(0, bool), empty, empty, empty, empty,
                          float(node_value[single].sum()))
     leaf_of_step, node_of_step, left_of_step = leaf_steps(parent, is_left, leaves)
     feature_of_step = ens.feature[node_of_step].astype(np.int64)
@@ -249,6 +265,7 @@ def path_table(
     used_nodes, node_position = np.unique(node_of_step, return_inverse=True)
     return PathTable(
         leaf_value=node_value[leaves],
+        leaf_node=leaves,
         used_nodes=used_nodes,
         step_node=node_position.ravel(),
         step_left=left_of_step,
@@ -303,18 +320,265 @@ def _sum_rows_by(values: np.ndarray, group: np.ndarray, into: np.ndarray) -> Non
     into[sorted_group[starts]] += np.add.reduceat(values[np.flatnonzero(keep)[order]], starts, axis=0)
 
 
+# --------------------------------------------------------------------------- row cells and bit sets
+def _popcount(words: np.ndarray) -> np.ndarray:
+    """Set bits of every row of a uint64 matrix (``np.bitwise_count`` from numpy 2.0, else by bytes)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(words).sum(axis=-1, dtype=np.int64)
+    return _popcount_by_bytes(words)
+
+
+def _popcount_by_bytes(words: np.ndarray) -> np.ndarray:
+    return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1).sum(axis=-1, dtype=np.int64)
+
+
+# Bit r of byte b, as floats: turns per-byte weight sums into per-row sums with one small product.
+_BYTE_BITS = np.unpackbits(np.arange(256, dtype=np.uint8)[:, None], axis=1, bitorder="little").astype(np.float64)
+
+
+def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray, n_groups: int,
+                       n_rows: int) -> np.ndarray:
+    """(n_groups, n_rows): ``out[g, i] = sum of weight[k] over row sets k of group g holding row i``.
+
+    Works a byte (8 rows) at a time, on the non-zero bytes only. Where they are
+    many, the weights are first summed per (group, byte position, byte value) and
+    each of the 256 byte values spreads its sum over its set bits with one small
+    product; where they are few, each byte spreads its own weight.
+    """
+    as_bytes = np.ascontiguousarray(words).view(np.uint8)
+    n_bytes = as_bytes.shape[1]
+    out = np.zeros((n_groups, n_bytes * 8))
+    block = max(1, CELL_BUDGET // (256 * max(n_groups, 1)))
+    for start in range(0, n_bytes, block):
+        piece = as_bytes[:, start:start + block]
+        width = piece.shape[1]
+        item, position = np.nonzero(piece)
+        value = piece[item, position]
+        target = out[:, start * 8:(start + width) * 8]
+        if 8 * item.size < n_groups * width * 256:
+            spots = ((group[item] * width + position) * 8)[:, None] + np.arange(8)
+            target += np.bincount(spots.ravel(), weights=(weight[item][:, None] * _BYTE_BITS[value]).ravel(),
+                                  minlength=n_groups * width * 8).reshape(n_groups, width * 8)
+            continue
+        index = (group[item] * width + position) * 256 + value
+        sums = np.bincount(index, weights=weight[item], minlength=n_groups * width * 256)
+        target += (sums.reshape(-1, 256) @ _BYTE_BITS).reshape(n_groups, width * 8)
+    return out[:, :n_rows]
+
+
+def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
+    """Boolean (k, n_rows) matrix of uint64 row sets (bit ``i % 64`` of word ``i // 64`` is row ``i``)."""
+    return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1, count=n_rows, bitorder="little")
+
+
+@dataclass(frozen=True)
+class RowCells:
+    """The rows binned per feature so that one cell's rows go the same way at every split on the feature.
+
+    Regular cells ``0..K_j`` lie between the sorted distinct thresholds ``T_j``
+    of the numeric splits on feature ``j``: value ``v`` is in cell ``c(v)``, the
+    number of thresholds at which it goes right, and a split at ``T_j[k]`` sends
+    it left exactly when ``c(v) <= k``, so a path's conditions on ``j`` keep an
+    interval of regular cells. Special values (missing, read as missing by a
+    ``zero_as_missing`` split, or any value of a feature with categorical
+    splits) get one cell per distinct value, numbered after the regular ones and
+    routed by the graph's own rule. ``prefix`` holds, per feature and ``k``, the
+    set of rows in cells below ``k`` as uint64 words, so the rows of any cell
+    interval cost two lookups.
+    """
+
+    n_rows: int
+    n_regular: np.ndarray        # (p,) K_j + 1 (0 for features routed by value only)
+    n_cells: np.ndarray          # (p,) regular plus special cells
+    node_rank: np.ndarray        # (n_nodes,) index of the node's threshold in T_j, -1 where not regular
+    special_offset: np.ndarray   # (p + 1,) CSR offsets of special_values
+    special_values: np.ndarray   # distinct special values per feature (in split precision)
+    cell: np.ndarray             # (p, n_rows) cell of every row
+    rank: np.ndarray             # (p, n_rows) position of the row's cell among the occupied cells
+    snap_offset: np.ndarray      # (p + 1,) CSR offsets of snap
+    snap: np.ndarray             # per feature and cell bound k: occupied cells below k
+    prefix_offset: np.ndarray    # (p + 1,) first row of each feature's prefix sets
+    prefix: np.ndarray           # (sum(n_cells + 1), n_words) rows with cell < k
+    valid: np.ndarray            # (n_words,) the bits that stand for rows
+
+    @property
+    def n_words(self) -> int:
+        return int(self.valid.shape[0])
+
+
+def _routed_by_value(ens: ForestGraph) -> tuple[np.ndarray, np.ndarray]:
+    """Features whose every value is special (categorical or non-numeric thresholds), and features with a
+    ``zero_as_missing`` split."""
+    inner = ens.feature >= 0
+    feature = ens.feature[inner]
+    whole = np.zeros(ens.n_features, dtype=bool)
+    whole[feature[ens.is_categorical[inner] | np.isnan(ens.threshold[inner])]] = True
+    zero = np.zeros(ens.n_features, dtype=bool)
+    zero[feature[ens.zero_as_missing[inner]]] = True
+    return whole, zero
+
+
+def _feature_cells(column: np.ndarray, thresholds: np.ndarray, special: np.ndarray, n_regular: int, side: str):
+    """Cells of one column: regular by threshold count, special by distinct value after the regular ones."""
+    cell = np.empty(column.shape[0], dtype=np.int64)
+    cell[~special] = np.searchsorted(thresholds, column[~special], side=side)
+    values, inverse = np.unique(column[special], return_inverse=True)
+    cell[special] = n_regular + inverse.ravel()
+    return cell, values
+
+
+def _prefix_sets(cell: np.ndarray, n_cells: int, n_words: int) -> np.ndarray:
+    """(n_cells + 1, n_words) uint64: row ``i`` is in set ``k`` when ``cell[i] < k``."""
+    rows = np.arange(cell.shape[0])
+    own = np.zeros((n_cells + 1, n_words), dtype=np.uint64)
+    np.bitwise_or.at(own, (cell + 1, rows >> 6), np.left_shift(np.uint64(1), (rows & 63).astype(np.uint64)))
+    return np.bitwise_or.accumulate(own, axis=0)
+
+
+def row_cells(ens: ForestGraph, matrix: np.ndarray) -> RowCells:
+    """:class:`RowCells` of the rows of ``matrix`` (the model's float matrix) for the splits of ``ens``."""
+    n_rows, p = matrix.shape
+    n_words = max(1, -(-n_rows // 64))
+    values = matrix.astype(ens.split_dtype, copy=False).astype(np.float64)
+    whole, zero = _routed_by_value(ens)
+    side = "right" if ens.threshold_rule == "<" else "left"
+    node_rank = np.full(ens.n_nodes, -1, dtype=np.int64)
+    by_feature = np.argsort(ens.feature, kind="stable")
+    bounds = np.searchsorted(ens.feature[by_feature], np.arange(p + 1))
+    cells, specials, prefixes, snaps, ranks = [], [], [], [], []
+    n_regular = np.zeros(p, dtype=np.int64)
+    for j in range(p):
+        nodes = by_feature[bounds[j]:bounds[j + 1]]
+        column = values[:, j]
+        if whole[j]:
+            thresholds = np.zeros(0)
+            special = np.ones(n_rows, dtype=bool)
+        else:
+            thresholds, node_rank[nodes] = np.unique(ens.threshold[nodes], return_inverse=True)
+            n_regular[j] = thresholds.size + 1
+            special = np.isnan(column) | (zero[j] & (np.abs(column) <= ZERO_MISSING_BOUND))
+        cell, special_values = _feature_cells(column, thresholds, special, int(n_regular[j]), side)
+        n_cells = int(n_regular[j]) + special_values.size
+        occupied = np.unique(cell)
+        cells.append(cell)
+        specials.append(special_values)
+        ranks.append(np.searchsorted(occupied, cell))
+        snaps.append(np.searchsorted(occupied, np.arange(n_cells + 1)))
+        prefixes.append(_prefix_sets(cell, n_cells, n_words))
+    valid = np.zeros(n_words, dtype=np.uint64)
+    valid[: n_rows // 64] = ~np.uint64(0)
+    if n_rows % 64:
+        valid[n_rows // 64] = (np.uint64(1) << np.uint64(n_rows % 64)) - np.uint64(1)
+    n_cells = np.array([prefix.shape[0] - 1 for prefix in prefixes], dtype=np.int64)
+    return RowCells(
+        n_rows=n_rows,
+        n_regular=n_regular,
+        n_cells=n_cells,
+        node_rank=node_rank,
+        special_offset=np.r_[0, np.cumsum([s.size for s in specials])].astype(np.int64),
+        special_values=np.concatenate(specials) if specials else np.zeros(0),
+        cell=np.array(cells).reshape(p, n_rows),
+        rank=np.array(ranks).reshape(p, n_rows),
+        snap_offset=np.r_[0, np.cumsum(n_cells + 1)].astype(np.int64),
+        snap=np.concatenate(snaps) if snaps else np.zeros(0, np.int64),
+        prefix_offset=np.r_[0, np.cumsum(n_cells + 1)].astype(np.int64),
+        prefix=np.concatenate(prefixes) if prefixes else np.zeros((0, n_words), np.uint64),
+        valid=valid,
+    )
+
+
+@dataclass(frozen=True)
+class EntryCells:
+    """The cells each path entry (one leaf's conditions on one feature) lets through, as cell intervals.
+
+    Intervals are sorted by entry and every entry has at least one (its regular
+    interval, possibly empty); each special cell it passes adds a one-cell interval.
+    """
+
+    entry: np.ndarray   # (n_intervals,)
+    low: np.ndarray     # (n_intervals,) first cell
+    high: np.ndarray    # (n_intervals,) one past the last cell
+    start: np.ndarray   # (n_entries,) first interval of each entry
+    count: np.ndarray   # (n_entries,)
+
+
+def _special_passes(ens: ForestGraph, table: PathTable, cells: RowCells, step_nodes: np.ndarray,
+                    entry_steps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Entries and special cells where the entry's conditions hold, by the graph's routing rule."""
+    n_special = np.diff(cells.special_offset)[table.entry_feature]
+    pair_entry = np.repeat(np.arange(table.n_entries), n_special)
+    pair_special = np.arange(pair_entry.size) - np.repeat(np.cumsum(n_special) - n_special, n_special)
+    if not pair_entry.size:
+        return pair_entry, pair_special
+    steps = entry_steps[pair_entry]
+    step = np.repeat(table.entry_step_start[pair_entry], steps)
+    step += np.arange(step.size) - np.repeat(np.cumsum(steps) - steps, steps)
+    value = cells.special_values[cells.special_offset[table.entry_feature[pair_entry]] + pair_special]
+    value = np.repeat(value, steps).astype(ens.split_dtype)
+    fails = ens._goes_left(step_nodes[step], value) != table.step_left[step]
+    failed = np.logical_or.reduceat(fails, np.cumsum(steps) - steps)
+    keep = ~failed
+    return pair_entry[keep], cells.n_regular[table.entry_feature[pair_entry[keep]]] + pair_special[keep]
+
+
+def entry_cells(ens: ForestGraph, table: PathTable, cells: RowCells) -> EntryCells:
+    """:class:`EntryCells` of a path table: a regular interval from threshold ranks, special cells one by one."""
+    step_nodes = table.used_nodes[table.step_node]
+    entry_steps = np.diff(np.r_[table.entry_step_start, step_nodes.size])
+    bound = cells.node_rank[step_nodes] + 1
+    regular = bound > 0
+    low = np.maximum.reduceat(np.where(table.step_left | ~regular, 0, bound), table.entry_step_start)
+    high = np.minimum.reduceat(np.where(table.step_left & regular, bound, np.iinfo(np.int64).max),
+                               table.entry_step_start)
+    high = np.minimum(high, cells.n_regular[table.entry_feature])
+    empty = low >= high
+    low[empty], high[empty] = 0, 0
+    special_entry, special_cell = _special_passes(ens, table, cells, step_nodes, entry_steps)
+    entry = np.r_[np.arange(table.n_entries), special_entry]
+    order = np.argsort(entry, kind="stable")
+    count = np.bincount(entry, minlength=table.n_entries)
+    return EntryCells(entry=entry[order], low=np.r_[low, special_cell][order],
+                      high=np.r_[high, special_cell + 1][order], start=np.cumsum(count) - count, count=count)
+
+
+def _entry_rows(table: PathTable, cells: RowCells, intervals: EntryCells) -> np.ndarray:
+    """(n_entries, n_words) rows meeting each entry's conditions (the union of its intervals)."""
+    base = cells.prefix_offset[table.entry_feature[intervals.entry]]
+    rows = cells.prefix[base + intervals.high] & ~cells.prefix[base + intervals.low]
+    return np.bitwise_or.reduceat(rows, intervals.start, axis=0)
+
+
+def _failure_counts(table: PathTable, fail: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per leaf, the rows failing at least one, two and three of its entries (bit-sliced counting)."""
+    counts = np.diff(np.r_[table.leaf_entry_start, table.n_entries])
+    shape = (table.n_leaves, fail.shape[1])
+    ones, twos, threes = np.zeros(shape, np.uint64), np.zeros(shape, np.uint64), np.zeros(shape, np.uint64)
+    for position in range(int(counts.max(initial=0))):
+        leaves = np.flatnonzero(counts > position)
+        failed = fail[table.leaf_entry_start[leaves] + position]
+        threes[leaves] |= twos[leaves] & failed
+        twos[leaves] |= ones[leaves] & failed
+        ones[leaves] |= failed
+    return ones, twos, threes
+
+
 # --------------------------------------------------------------------------- exact engine (H-statistics)
-def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None) -> list:
-    """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar."""
-    results = []
+def _run_tasks(function: Callable, tasks: list, n_jobs: int, label: str, progress: bool | None,
+               consume: Callable[[Any], None] | None = None) -> list:
+    """``function(*task)`` for every task, in order, in ``n_jobs`` joblib workers, with one progress bar.
+
+    Results are returned as a list, or handed to ``consume`` one by one as they arrive (then the list is empty).
+    """
+    results: list = []
+    keep = consume if consume is not None else results.append
     with progress_bar(len(tasks), label, enabled=progress) as bar:
         if n_jobs == 1:
             for task in tasks:
-                results.append(function(*task))
+                keep(function(*task))
                 bar.update()
             return results
         for result in Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(*task) for task in tasks):
-            results.append(result)
+            keep(result)
             bar.update()
     return results
 
@@ -347,125 +611,135 @@ def _lookup(keys: np.ndarray, known: np.ndarray) -> np.ndarray:
     return np.where(known[position] == keys, position, -1)
 
 
-def _exact_sums(
-    ens: ForestGraph,
-    matrix: np.ndarray,
-    trees: np.ndarray,
-    output: int,
-    pair_keys: np.ndarray,
-    triple_keys: np.ndarray,
-    want_against_rest: bool,
-) -> dict[str, np.ndarray]:
-    """Leaf-wise sums of one group of trees (see the module docstring); all are additive over trees.
+def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For items with ``counts`` members each: the item and the member's position, one entry per member."""
+    item = np.repeat(np.arange(counts.size), counts)
+    return item, np.arange(item.size) - np.repeat(np.cumsum(counts) - counts, counts)
 
-    Returns, one row per function and one column per data row: ``main`` (p, n),
-    the uncentred ``F_j``; ``pair`` (n_pairs, n) and ``triple`` (n_triples, n), the
-    interaction parts; ``prediction`` (n,) and ``rest`` (p, n), ``F`` and
-    ``F - F_notj`` (``rest`` only when ``want_against_rest``); all up to constants.
+
+@dataclass(frozen=True)
+class _ExactJob:
+    """What every tree chunk of one exact run shares: the graph, the rows' cells and the sums asked for."""
+
+    ens: ForestGraph
+    cells: RowCells
+    node_value: np.ndarray       # weighted leaf value of every node for the output
+    links: tuple[np.ndarray, np.ndarray]
+    pair_keys: np.ndarray        # sorted encode_sets keys of the pairs
+    pair_members: np.ndarray     # (n_pairs, 2) their features
+    triple_keys: np.ndarray
+    against_rest: bool
+
+    @property
+    def segment_offset(self) -> np.ndarray:
+        """Start of each (pair, side) step function of the linear terms, plus the total size (n_cells + 1 each)."""
+        size = self.cells.n_cells[self.pair_members.ravel()] + 1
+        return np.r_[0, np.cumsum(size)]
+
+
+def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, np.ndarray]:
+    """Cell boxes of the product terms and the step functions of the linear terms of entry pairs.
+
+    ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
+    and ``C_b`` alone. Boxes (first feature's interval x second feature's) are
+    returned with corners snapped to the occupied cells (:attr:`RowCells.snap`);
+    the linear terms come back already summed as jumps of the per (pair, side)
+    step functions laid out at :attr:`_ExactJob.segment_offset`.
     """
-    n_rows, n_features = matrix.shape[0], ens.n_features
-    _, node_value = leaf_value_column(ens, output)
-    links = parent_links(ens)
-    sums = {
-        "main": np.zeros((n_features, n_rows)),
-        "pair": np.zeros((pair_keys.size, n_rows)),
-        "triple": np.zeros((triple_keys.size, n_rows)),
-        "prediction": np.zeros(n_rows),
-        "rest": np.zeros((n_features, n_rows)),
-    }
-    block = max(1, CELL_BUDGET // max(n_rows, 1))
-    for chunk in tree_chunks(ens, trees, n_rows):
-        table = path_table(ens, chunk, node_value, links)
-        if not table.n_leaves:
-            continue
-        fail, n_failed = failed_conditions(ens, table, matrix)
-        entry_value = table.leaf_value[table.entry_leaf]
-        reach_apart = (n_failed[table.entry_leaf] - fail) == 0
-        share_one = reach_apart.mean(axis=1)
-        passed = (~fail).astype(np.float64)
-        sums["main"] += _grouping(table.entry_feature, entry_value * share_one, n_features) @ passed
-        sums["prediction"] += table.leaf_value @ (n_failed == 0)
-        if want_against_rest:
-            centred_pass = reach_apart * (passed - passed.mean(axis=1, keepdims=True))
-            sums["rest"] += _grouping(table.entry_feature, entry_value, n_features) @ centred_pass
-            del centred_pass
-        del reach_apart
-        if pair_keys.size:
-            _add_pair_terms(table, fail, n_failed, passed, share_one, pair_keys, n_features, block, sums["pair"])
-        if triple_keys.size:
-            combos = _entry_combos(table, 3)
-            target = _lookup(_combo_keys(table, combos, n_features), triple_keys)
-            wanted = np.flatnonzero(target >= 0)
-            for start in range(0, wanted.size, block):
-                pick = wanted[start:start + block]
-                term = _interaction_term(table, fail, n_failed, share_one, [c[pick] for c in combos])
-                _sum_rows_by(term, target[pick], sums["triple"])
-    return sums
+    cells = job.cells
+    both, alone_first, alone_second = weights
+    n_first, n_second = intervals.count[first], intervals.count[second]
+    combo, k = _expand(n_first * n_second)
+    i_first = intervals.start[first][combo] + k // n_second[combo]
+    i_second = intervals.start[second][combo] + k % n_second[combo]
+    low, high = intervals.low, intervals.high
+    keep = (low[i_first] < high[i_first]) & (low[i_second] < high[i_second]) & (both[combo] != 0)
+    combo, i_first, i_second = combo[keep], i_first[keep], i_second[keep]
+    pair = target[combo]
+    snap_a = cells.snap_offset[job.pair_members[pair, 0]]
+    snap_b = cells.snap_offset[job.pair_members[pair, 1]]
+    boxes = {"pair": pair.astype(np.int32), "weight": both[combo],
+             "a_low": cells.snap[snap_a + low[i_first]].astype(np.int32),
+             "a_high": cells.snap[snap_a + high[i_first]].astype(np.int32),
+             "b_low": cells.snap[snap_b + low[i_second]].astype(np.int32),
+             "b_high": cells.snap[snap_b + high[i_second]].astype(np.int32)}
+    combo_a, k_a = _expand(n_first)
+    combo_b, k_b = _expand(n_second)
+    alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
+    base = job.segment_offset[np.concatenate((2 * target[combo_a], 2 * target[combo_b] + 1))]
+    weight = np.concatenate((alone_first[combo_a], alone_second[combo_b]))
+    steps = np.bincount(np.concatenate((base + low[alone], base + high[alone])),
+                        weights=np.concatenate((weight, -weight)), minlength=int(job.segment_offset[-1]))
+    return boxes, steps
 
 
-def _grouping(group: np.ndarray, weight: np.ndarray, n_groups: int) -> csr_matrix:
-    """Sparse (n_groups, n_members) matrix: ``matrix @ values`` sums weighted rows by group."""
-    return csr_matrix((weight, (group, np.arange(group.size))), shape=(n_groups, group.size))
+def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
+    """Leaf-wise pieces of one group of trees (see the module docstring); every piece adds up over groups.
 
-
-def _double_failure_share(
-    table: PathTable, fail: np.ndarray, n_failed: np.ndarray, first: np.ndarray, second: np.ndarray
-) -> np.ndarray:
-    """Share of rows failing exactly the two entries ``first`` and ``second`` of their leaf, and nothing else.
-
-    Such rows are few, so they are counted from the sparse set of (entry, row)
-    failures on leaves failed twice, grouped by (row, leaf).
+    Shares ``w_L(S)`` come from bit-packed row sets: per leaf, the rows failing
+    at least one, two and three of its path features (bit-sliced counting), so
+    the rows failing nothing but a given entry or pair of entries are a few
+    AND/popcount steps. Per-row functions come back as weighted cell intervals
+    (``main``), cell boxes and the jumps of per-feature step functions (``boxes``
+    and ``linear``, the pair terms), evaluated once for all groups, and as dense
+    sums where they need whole rows (``rest``, ``triple``); ``rest_leaf`` holds the
+    per-leaf weights read at the leaves the rows reach.
     """
-    entries, rows = np.nonzero(fail & (n_failed[table.entry_leaf] == 2))
-    order = np.lexsort((entries, rows * table.n_leaves + table.entry_leaf[entries]))
-    entries = entries[order]
-    n_entries = table.n_entries
-    keys, counts = np.unique(entries[0::2] * n_entries + entries[1::2], return_counts=True)
-    position = _lookup(first * n_entries + second, keys)
-    return np.where(position >= 0, counts[np.maximum(position, 0)], 0) / fail.shape[1]
-
-
-def _add_pair_terms(
-    table: PathTable,
-    fail: np.ndarray,
-    n_failed: np.ndarray,
-    passed: np.ndarray,
-    share_one: np.ndarray,
-    pair_keys: np.ndarray,
-    n_features: int,
-    block: int,
-    into: np.ndarray,
-) -> None:
-    """Add ``v_L [C_a C_b w_L(ab) - C_a w_L(a) - C_b w_L(b)]`` of every leaf into its pair's row.
-
-    ``w_L(ab) = w_L(a) + w_L(b) - w_L(none) + share failing exactly a and b``
-    (rows whose failures lie inside {a, b}). The linear terms are one sparse
-    product; only the product ``C_a C_b`` needs a pass per leaf and pair.
-    """
-    first, second = _entry_combos(table, 2)
-    target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
-    order = np.flatnonzero(target >= 0)
-    order = order[np.argsort(target[order], kind="stable")]
-    first, second, target = first[order], second[order], target[order]
-    if not target.size:
-        return
-    leaf = table.entry_leaf[first]
+    ens, cells, pair_keys, triple_keys = job.ens, job.cells, job.pair_keys, job.triple_keys
+    n_rows, n_features = cells.n_rows, ens.n_features
+    table = path_table(ens, trees, job.node_value, job.links)
+    parts: dict[str, Any] = {"main": None, "boxes": None, "linear": None, "rest_leaf": None, "rest": None,
+                             "triple": None}
+    if not table.n_leaves:
+        return parts
+    intervals = entry_cells(ens, table, cells)
+    passes = _entry_rows(table, cells, intervals)
+    fail = passes ^ cells.valid
+    ones, twos, threes = _failure_counts(table, fail)
+    leaf = table.entry_leaf
+    none = _popcount(~ones & cells.valid)
+    exactly = ~twos[leaf] & fail
+    exactly_count = _popcount(exactly)
+    share_one = (none[leaf] + exactly_count) / n_rows
     value = table.leaf_value[leaf]
-    share_none = (n_failed == 0).mean(axis=1)[leaf]
-    share_two = share_one[first] + share_one[second] - share_none + _double_failure_share(
-        table, fail, n_failed, first, second)
-    linear = csr_matrix(
-        (-np.r_[value * share_one[first], value * share_one[second]], (np.r_[target, target], np.r_[first, second])),
-        shape=(pair_keys.size, table.n_entries),
-    )
-    into += linear @ passed
-    weight = (value * share_two)[:, None]
-    for start in range(0, target.size, block):
-        stop = min(start + block, target.size)
-        both = ~(fail[first[start:stop]] | fail[second[start:stop]])
-        piece_target = target[start:stop]
-        starts = np.flatnonzero(np.r_[True, piece_target[1:] != piece_target[:-1]])
-        into[piece_target[starts]] += np.add.reduceat(both * weight[start:stop], starts, axis=0)
+    parts["main"] = (table.entry_feature[intervals.entry], intervals.low, intervals.high,
+                     (value * share_one)[intervals.entry])
+    if job.against_rest:
+        passing = _popcount(passes) / n_rows
+        parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
+        parts["rest"] = _weighted_row_sums(exactly, table.entry_feature, -value * passing, n_features, n_rows)
+    if pair_keys.size:
+        first, second = _entry_combos(table, 2)
+        target = _lookup(_combo_keys(table, (first, second), n_features), pair_keys)
+        wanted = target >= 0
+        first, second, target = first[wanted], second[wanted], target[wanted]
+        combo_leaf = leaf[first]
+        double = _popcount(~threes[combo_leaf] & fail[first] & fail[second])
+        share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_rows
+        leaf_value = table.leaf_value[combo_leaf]
+        parts["boxes"], parts["linear"] = _pair_boxes(job, intervals, first, second, target, (
+            leaf_value * share_two, -leaf_value * share_one[first], -leaf_value * share_one[second]))
+    if triple_keys.size:
+        parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one, triple_keys,
+                                       n_features)
+    return parts
+
+
+def _triple_sums(table: PathTable, fail: np.ndarray, share_one: np.ndarray, triple_keys: np.ndarray,
+                 n_features: int) -> np.ndarray:
+    """Per-row triple terms (:func:`_interaction_term`) of the leaves splitting on each requested triple."""
+    n_failed = np.add.reduceat(fail, table.leaf_entry_start, axis=0, dtype=np.int16)
+    out = np.zeros((triple_keys.size, fail.shape[1]))
+    combos = _entry_combos(table, 3)
+    target = _lookup(_combo_keys(table, combos, n_features), triple_keys)
+    wanted = np.flatnonzero(target >= 0)
+    block = max(1, CELL_BUDGET // max(fail.shape[1], 1))
+    for start in range(0, wanted.size, block):
+        pick = wanted[start:start + block]
+        term = _interaction_term(table, fail, n_failed, share_one, [c[pick] for c in combos])
+        _sum_rows_by(term, target[pick], out)
+    return out
 
 
 def _interaction_term(
@@ -498,6 +772,119 @@ def _interaction_term(
             term += inside * (sign * share)[:, None]
     return term * table.leaf_value[leaf][:, None]
 
+
+def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: np.ndarray,
+                   weight: np.ndarray) -> np.ndarray:
+    """(p, n_rows): per feature, the summed weights of the cell intervals holding each row's cell."""
+    base = cells.prefix_offset[feature]
+    steps = np.bincount(np.r_[base + low, base + high], weights=np.r_[weight, -weight],
+                        minlength=int(cells.prefix_offset[-1]))
+    out = np.empty((cells.n_cells.size, cells.n_rows))
+    for j in range(out.shape[0]):
+        out[j] = np.cumsum(steps[cells.prefix_offset[j]:cells.prefix_offset[j + 1]])[cells.cell[j]]
+    return out
+
+
+def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """(n_pairs, n_rows): the linear terms of each pair, a step function of each of its two features,
+    from their summed jumps (``steps``, segments starting at ``offset``)."""
+    size = np.diff(offset)
+    # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
+    running = np.cumsum(steps)
+    running -= np.repeat(np.r_[0.0, running[offset[1:-1] - 1]], size)
+    out = np.zeros((members.shape[0], cells.n_rows))
+    # Feature by feature: a small table of that feature's step functions, read at the rows' cells.
+    for side in (0, 1):
+        for feature in np.unique(members[:, side]):
+            pairs = np.flatnonzero(members[:, side] == feature)
+            table = running[offset[2 * pairs + side][:, None] + np.arange(cells.n_cells[feature] + 1)]
+            out[pairs] += table[:, cells.cell[feature]]
+    return out
+
+
+def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n_pairs: int) -> np.ndarray:
+    """(n_pairs, span): for each pair and coordinate ``c``, how many of the pair's distinct corner
+    coordinates on this axis (``low`` and ``high`` of its boxes) are at most ``c``."""
+    present = np.zeros(n_pairs * span, dtype=bool)
+    pair = pair.astype(np.int64)
+    present[pair * span + low] = True
+    present[pair * span + high] = True
+    return np.cumsum(present.reshape(n_pairs, span), axis=1)
+
+
+def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray) -> np.ndarray:
+    """Add to ``out`` (n_pairs, n_rows), per pair, the summed weights of its boxes holding each row.
+
+    Box corners, snapped to the cells the rows occupy, are numbered among
+    the pair's own distinct corners, so a pair's grid has one line per distinct
+    corner coordinate on each axis, after a leading zero line; a 2-D running sum
+    of the corner weights gives every box sum at once, read at each row's grid
+    point (the number of the pair's corners at or below its cell on each axis).
+    """
+    n_pairs = members.shape[0]
+    pair = boxes["pair"]
+    if not pair.size:
+        return out
+    # Snapped coordinates run from 0 to the occupied cell count of the feature.
+    span = int(cells.snap[cells.snap_offset[1:] - 1].max()) + 1
+    a_count = _pair_axes(pair, boxes["a_low"], boxes["a_high"], span, n_pairs)
+    b_count = _pair_axes(pair, boxes["b_low"], boxes["b_high"], span, n_pairs)
+    height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
+    order = np.argsort(pair, kind="stable")
+    bounds = np.searchsorted(pair[order], np.arange(n_pairs + 1))
+    # Corners are built for batches of pairs holding about CELL_BUDGET / 32 boxes (~100 bytes each at work).
+    per_batch = max(1, CELL_BUDGET // 32)
+    cuts = np.unique(np.r_[np.searchsorted(bounds, np.arange(per_batch, bounds[-1], per_batch)), n_pairs])
+    first = 0
+    for last in cuts[cuts > 0]:
+        pick = order[bounds[first]:bounds[last]]
+        box_pair = pair[pick]
+        # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
+        a_low, a_high = a_count[box_pair, boxes["a_low"][pick]], a_count[box_pair, boxes["a_high"][pick]]
+        b_low, b_high = b_count[box_pair, boxes["b_low"][pick]], b_count[box_pair, boxes["b_high"][pick]]
+        line = width[box_pair]
+        corner = np.stack([a_low * line + b_low, a_high * line + b_low, a_low * line + b_high,
+                           a_high * line + b_high], axis=1).ravel()
+        weight = boxes["weight"][pick]
+        weight = np.stack([weight, -weight, -weight, weight], axis=1).ravel()
+        local = 4 * (bounds[first:last + 1] - bounds[first])
+        for k in np.flatnonzero(np.diff(local)):
+            grid = np.bincount(corner[local[k]:local[k + 1]], weights=weight[local[k]:local[k + 1]],
+                               minlength=int(height[first + k] * width[first + k])).reshape(-1, width[first + k])
+            np.cumsum(grid, axis=0, out=grid)
+            np.cumsum(grid, axis=1, out=grid)
+            fa, fb = members[first + k]
+            out[first + k] += grid.ravel()[a_count[first + k, cells.rank[fa]] * width[first + k]
+                                           + b_count[first + k, cells.rank[fb]]]
+        first = last
+    return out
+
+
+def _reached_leaf_sums(leaves: np.ndarray, n_nodes: int, leaf_node: np.ndarray, feature: np.ndarray,
+                       weight: np.ndarray, n_features: int) -> np.ndarray:
+    """(p, n_rows): per row, the weights of the entries of the leaves it reaches (``leaves`` from apply).
+
+    One sparse product (rows x leaves reached) @ (leaves x features), taken over
+    blocks of rows to bound the memory of the reached-leaf matrix.
+    """
+    n_rows, n_trees = leaves.shape
+    known, leaf_index = np.unique(leaf_node, return_inverse=True)
+    index_of_node = np.full(n_nodes, -1, dtype=np.int64)
+    index_of_node[known] = np.arange(known.size)
+    entries = csr_matrix((weight, (leaf_index.ravel(), feature)), shape=(known.size, n_features))
+    out = np.zeros((n_features, n_rows))
+    # About 40 bytes per reached leaf at work: blocks of CELL_BUDGET / 8 of them.
+    block = max(1, CELL_BUDGET // 8 // max(n_trees, 1))
+    for start in range(0, n_rows, block):
+        index = index_of_node[leaves[start:start + block]]
+        row, column = np.nonzero(index >= 0)
+        reached = csr_matrix((np.ones(row.size), (row, index[row, column])), shape=(index.shape[0], known.size))
+        out[:, start:start + index.shape[0]] = (reached @ entries).toarray().T
+    return out
+
+
+def _joined(pieces: list, width: int) -> list[np.ndarray]:
+    return [np.concatenate([piece[i] for piece in pieces]) for i in range(width)]
 
 
 @dataclass(frozen=True)
@@ -543,26 +930,51 @@ def exact_parts(
 
     ``matrix`` is both the background and the evaluation points (as for
     H-statistics); ``pairs`` and ``triples`` hold feature indices in ascending
-    order. Tree chunks run in ``n_jobs`` joblib workers; their sums add up.
+    order. Tree chunks run in ``n_jobs`` joblib workers; their pieces add up.
     """
-    p = ens.n_features
-    pair_keys = encode_sets(np.array(pairs, dtype=np.int64).reshape(-1, 2), p)
+    p, n_rows = ens.n_features, matrix.shape[0]
+    pair_members = np.array(pairs, dtype=np.int64).reshape(-1, 2)
+    pair_keys = encode_sets(pair_members, p)
     triple_keys = encode_sets(np.array(triples, dtype=np.int64).reshape(-1, 3), p)
     sorted_pairs, sorted_triples = np.unique(pair_keys), np.unique(triple_keys)
-    chunks = tree_chunks(ens, ens.trees_of_output(output), matrix.shape[0])
-    tasks = [(ens, matrix, chunk, output, sorted_pairs, sorted_triples, bool(against_rest)) for chunk in chunks]
-    n_rows = matrix.shape[0]
-    total = {"main": np.zeros((p, n_rows)), "pair": np.zeros((sorted_pairs.size, n_rows)),
-             "triple": np.zeros((sorted_triples.size, n_rows)), "prediction": np.zeros(n_rows),
-             "rest": np.zeros((p, n_rows))}
-    for part in _run_tasks(_exact_sums, tasks, n_jobs, f"H-statistics (exact, output {output})", progress):
-        total = {name: total[name] + part[name] for name in total}
+    trees, node_value = leaf_value_column(ens, output)
+    job = _ExactJob(ens=ens, cells=row_cells(ens, matrix), node_value=node_value, links=parent_links(ens),
+                    pair_keys=sorted_pairs, pair_members=decode_sets(sorted_pairs, p, 2), triple_keys=sorted_triples,
+                    against_rest=bool(against_rest))
+    tasks = [(job, chunk) for chunk in tree_chunks(ens, trees, n_rows)]
+    rest = np.zeros((p, n_rows))
+    triple = np.zeros((sorted_triples.size, n_rows))
+    linear = np.zeros(int(job.segment_offset[-1]))
+    pieces = []
+
+    def consume(part: dict) -> None:
+        # Dense pieces are added as they come, so memory does not grow with the number of chunks.
+        if part["main"] is None:
+            return
+        for name, total in (("rest", rest), ("triple", triple), ("linear", linear)):
+            if part[name] is not None:
+                total += part.pop(name)
+        pieces.append(part)
+
+    _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})", progress, consume=consume)
+    leaves = ens.apply(matrix, checked=True)[:, trees]
+    main = _interval_sums(job.cells, *_joined([part.pop("main") for part in pieces], 4)) if pieces else np.zeros(
+        (p, n_rows))
+    pair = np.zeros((sorted_pairs.size, n_rows))
+    if sorted_pairs.size and pieces:
+        # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
+        boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
+                 for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
+        pair = _box_sums(job.cells, job.pair_members, boxes,
+                         _linear_sums(job.cells, job.pair_members, job.segment_offset, linear))
+    if against_rest and pieces:
+        rest += _reached_leaf_sums(leaves, ens.n_nodes, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
-        main=total["main"].T,
-        pair=total["pair"].T[:, np.searchsorted(sorted_pairs, pair_keys)],
-        triple=total["triple"].T[:, np.searchsorted(sorted_triples, triple_keys)],
-        prediction=total["prediction"],
-        rest=total["rest"].T,
+        main=main.T,
+        pair=pair.T[:, np.searchsorted(sorted_pairs, pair_keys)],
+        triple=triple.T[:, np.searchsorted(sorted_triples, triple_keys)],
+        prediction=node_value[leaves].sum(axis=1),
+        rest=rest.T,
     )
 
 
@@ -645,6 +1057,32 @@ def ensemble_predictor(ens: ForestGraph, scale: str) -> Callable[[np.ndarray], n
 
 
 
+def _duration_text(seconds: float) -> str:
+    """A duration for people: ``"45 s"``, ``"12 min"``, ``"3 h 05 min"``."""
+    if seconds < 60:
+        return f"{seconds:.0f} s"
+    if seconds < 3600:
+        return f"{seconds / 60:.0f} min"
+    hours, minutes = divmod(round(seconds / 60), 60)
+    return f"{hours} h {minutes:02d} min"
+
+
+def _warn_long_brute_force(n_sets: int, n_rows: int, seconds_for_rows: float, n_jobs: int) -> None:
+    """Warn before starting when brute force is expected to take over :data:`BRUTE_NOTICE_SECONDS`.
+
+    The estimate scales the time of predicting the rows once: every function
+    predicts ``n_rows`` modified copies of the rows (``n_rows**2`` predictions),
+    spread over ``n_jobs`` workers (negative counts as joblib reads them).
+    """
+    workers = max(1, (os.cpu_count() or 1) + 1 + n_jobs) if n_jobs < 0 else n_jobs
+    estimate = seconds_for_rows * n_rows * n_sets / workers
+    if estimate > BRUTE_NOTICE_SECONDS:
+        warnings.warn(
+            f"brute-force partial dependence: {n_sets:,} functions of {n_rows:,}² predictions each, estimated "
+            f"{_duration_text(estimate)} on this machine (probability scale and callables have no exact form; a "
+            "smaller sample shortens it quadratically)", UserWarning, stacklevel=4)
+
+
 def brute_parts(
     fitted: FittedModel,
     data: PreparedData,
@@ -664,7 +1102,9 @@ def brute_parts(
     """
     predict = ensemble_predictor(fitted.ensemble, scale) if fitted.is_tree else fitted.predict
     row_bytes = predictor_row_bytes(fitted.ensemble, data.matrix.shape[1])
+    started = time.perf_counter()
     prediction = model_output(predict(data.frame if data.frame is not None else data.matrix), data.n_rows, output)
+    _warn_long_brute_force(len(sets), data.n_rows, time.perf_counter() - started, n_jobs)
     tasks = [(predict, data, data, list(s), output, row_bytes) for s in sets]
     return prediction, _run_tasks(brute_partial_dependence, tasks, n_jobs, "H-statistics (brute)", progress)
 

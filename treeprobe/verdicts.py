@@ -73,12 +73,11 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy.stats import spearmanr
-from sklearn.feature_selection import mutual_info_classif, mutual_info_regression
 
 from .checks import check_bool, check_float, check_int, check_n_jobs, check_progress, check_seed
 from .cooccurrence import structure
 from .data import model_matrix
+from .dependence import pair_dependence
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
@@ -337,29 +336,6 @@ def _prediction_sd(graph: ForestGraph, matrix: np.ndarray, output: int) -> float
     return float(np.std(raw if raw.ndim == 1 else raw[:, output]))
 
 
-# ---------------------------------------------------------------- dependence
-def _dependence(matrix: np.ndarray, pairs: list[tuple[int, int]], categorical: np.ndarray,
-                random_state: int) -> tuple[np.ndarray, np.ndarray]:
-    """Spearman rank correlation and information correlation of every pair, on rows where both are present."""
-    rank = np.full(len(pairs), np.nan)
-    info = np.full(len(pairs), np.nan)
-    for i, (a, b) in enumerate(pairs):
-        both = ~np.isnan(matrix[:, a]) & ~np.isnan(matrix[:, b])
-        xa, xb = matrix[both, a], matrix[both, b]
-        if xa.size < 5 or np.ptp(xa) == 0 or np.ptp(xb) == 0:
-            continue
-        if not (categorical[a] or categorical[b]):
-            rank[i] = float(spearmanr(xa, xb).statistic)
-        if categorical[b]:
-            mi = mutual_info_classif(xa[:, None], xb.astype(np.int64), discrete_features=[bool(categorical[a])],
-                                     random_state=random_state)[0]
-        else:
-            mi = mutual_info_regression(xa[:, None], xb, discrete_features=[bool(categorical[a])],
-                                        random_state=random_state)[0]
-        info[i] = float(np.sqrt(1.0 - np.exp(-2.0 * max(mi, 0.0))))
-    return rank, info
-
-
 # ------------------------------------------------------------------ H pieces
 def _pair_h(graph: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
             output: int | None) -> np.ndarray:
@@ -602,7 +578,7 @@ def _with_dependence(frame: pd.DataFrame, graph: ForestGraph, matrix: np.ndarray
     index = {name: j for j, name in enumerate(graph.feature_names)}
     categorical = np.array([kind == "categorical" for kind in graph.feature_types])
     columns = [(index[a], index[b]) for a, b in zip(frame["feature_a"], frame["feature_b"], strict=True)]
-    rank, info = _dependence(matrix, columns, categorical, random_state)
+    rank, info = pair_dependence(matrix, columns, categorical=categorical, random_state=random_state)
     frame["rank_correlation"], frame["information_correlation"] = rank, info
     frame["dependence"] = np.fmax(np.abs(rank), info)
     return frame
