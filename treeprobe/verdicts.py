@@ -344,12 +344,11 @@ def _pair_h(graph: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tup
     if not names:
         return out
     result = h_statistic(graph, rows, pairs=names, against_rest=False, sample=None, output=output, progress=False)
-    table = result.pairs.set_index(["feature_a", "feature_b"])
-    for i, (a, b) in enumerate(names):
-        key = (a, b) if (a, b) in table.index else (b, a)
-        if key in table.index:
-            out[0, i] = float(table.loc[key, "h2"])
-            out[1, i] = float(table.loc[key, "h"])
+    pairs = result.pairs
+    found = {frozenset(key): (h2, h) for key, h2, h in zip(
+        zip(pairs["feature_a"], pairs["feature_b"], strict=True), pairs["h2"], pairs["h"], strict=True)}
+    for i, pair in enumerate(names):
+        out[:, i] = found.get(frozenset(pair), (0.0, 0.0))
     return out
 
 
