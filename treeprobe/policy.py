@@ -132,7 +132,7 @@ def read_groups(source: Any) -> list[list[str]]:
     source : str, path, list of lists of str, dict or ConstraintSuggestion
         A JSON file holding a list of lists of feature names, or the JSON
         that ``treeprobe constrain --format json`` writes (schema
-        ``treeprobe.constrain/1``; its ``suggestion.groups`` are used), or a
+        ``treeprobe.constrain/2``; its ``suggestion.groups`` are used), or a
         suggestion's own JSON (``treeprobe.constraints/2``); or the same
         already parsed, or an object with a ``groups`` attribute.
 
@@ -151,7 +151,7 @@ def read_groups(source: Any) -> list[list[str]]:
 
     Examples
     --------
-    >>> read_groups({"schema": "treeprobe.constrain/1", "suggestion": {"groups": [["fuel_price", "shift_length"]]}})
+    >>> read_groups({"schema": "treeprobe.constrain/2", "suggestion": {"groups": [["fuel_price", "shift_length"]]}})
     [['fuel_price', 'shift_length']]
     """
     where = "groups"
