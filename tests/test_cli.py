@@ -16,17 +16,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from cli_run import run
 
 import treeprobe
 
 FIXTURES = Path(__file__).resolve().parent.parent / "fixtures"
 LGB_MODEL = FIXTURES / "lightgbm" / "binary_late.txt"
-
-
-def run(*args, check_code=0):
-    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", *map(str, args)], capture_output=True, text=True)
-    assert proc.returncode == check_code, (proc.returncode, proc.stdout, proc.stderr)
-    return proc
 
 
 @pytest.fixture(scope="module")

@@ -11,12 +11,11 @@ tests/test_compare.py).
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 import pandas as pd
 import pytest
+from cli_run import run
 
 from treeprobe import check_constraints, compare_models
 from treeprobe.cli import _FAIL_ON_CHOICES, EXIT_VIOLATION
@@ -27,12 +26,6 @@ lgb = pytest.importorskip("lightgbm")
 
 NAMES = ["kiln_temp", "clay_moisture", "glaze_coats", "firing_hours"]
 GROUPS = [["kiln_temp", "clay_moisture"], ["glaze_coats", "firing_hours"]]
-
-
-def run(*args, check_code=0):
-    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", *map(str, args)], capture_output=True, text=True)
-    assert proc.returncode == check_code, (proc.returncode, proc.stdout, proc.stderr)
-    return proc
 
 
 @pytest.fixture(scope="module")

@@ -5,20 +5,13 @@ Run in a subprocess as a user would; the Dask test starts an in-process
 """
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 import pandas as pd
 import pytest
+from cli_run import run
 
 xgb = pytest.importorskip("xgboost")
-
-
-def run(*args, check_code=0):
-    proc = subprocess.run([sys.executable, "-m", "treeprobe.cli", *map(str, args)], capture_output=True, text=True)
-    assert proc.returncode == check_code, (proc.returncode, proc.stdout, proc.stderr)
-    return proc
 
 
 @pytest.fixture(scope="module")

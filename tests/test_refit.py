@@ -174,3 +174,19 @@ def test_unrefittable_model_fails_before_any_h_computation(monkeypatch):
     with pytest.raises(UnsupportedModelError, match="needs the estimator object") as caught:
         treeprobe.triage(treeprobe.load_model(forest), X, y.to_numpy(), null_refits=2)
     assert "without them the triage still runs" in str(caught.value)
+
+
+def test_eta_calibrated_on_the_data_when_the_trees_cannot_tell(regression_data, tmp_path):
+    """With reg_alpha the leaf formula changes and recovery gives up; calibration finds the learning rate
+    XGBoost was trained with (its own ``learning_rate``) by matching the saved model's training loss."""
+    from treeprobe.refit import calibrate_step
+
+    X, y = regression_data
+    model = xgb.XGBRegressor(n_estimators=60, max_depth=3, learning_rate=0.05, reg_alpha=5, n_jobs=1)
+    graph = _saved(model, X, y, tmp_path, "alpha")
+    recipe = training_recipe(graph)
+    assert recipe.origins["eta"] == "default"
+    calibrated = calibrate_step(recipe, graph, X.to_numpy(), y.to_numpy())
+    assert calibrated.params["eta"] == 0.05 and calibrated.origins["eta"] == "calibrated"
+    assert "calibrated on the data" in calibrated.describe() and "comes closest" in calibrated.notes[-1]
+    assert calibrate_step(calibrated, graph, X.to_numpy(), y.to_numpy()) is calibrated

@@ -79,7 +79,6 @@ import networkx as nx
 import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
-from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
 
 from .checks import check_choice, check_float, check_int, check_n_jobs, check_progress, check_seed
@@ -91,7 +90,6 @@ from .output import atomic_write, dumps_json, to_jsonable
 from .parallel import run_tasks, threads_per_fit
 from .policy import paths_outside_groups as _cross_group  # the one check of paths against groups
 from .refit import (
-    BINARY,
     INNER_FRACTION,
     LIBRARIES,
     MULTICLASS,
@@ -105,6 +103,7 @@ from .refit import (
     fit,
     fit_early_stopped,
     live_model_of,
+    loss_scores,
     predict_response,
     round_budget,
     task_of,
@@ -674,18 +673,6 @@ def _index_groups(groups: Any, columns: tuple[str, ...]) -> list[list[int]]:
     return out + [[j] for j in range(len(columns)) if j not in listed]
 
 
-def _scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> dict[str, float]:
-    if task == REGRESSION:
-        return {"rmse": float(np.sqrt(mean_squared_error(y, predicted)))}
-    if task == BINARY:
-        probability = np.clip(predicted.ravel(), 1e-15, 1 - 1e-15)
-        scores = {"log_loss": float(log_loss(y, probability, labels=[0, 1]))}
-        scores["auc"] = float(roc_auc_score(y, probability)) if np.unique(y).size == 2 else math.nan
-        return scores
-    probability = predicted.reshape(len(y), n_classes)
-    return {"log_loss": float(log_loss(y, probability, labels=list(range(n_classes))))}
-
-
 def _t_quantile(degrees: int) -> float:
     return float(student_t.ppf(0.975, degrees))
 
@@ -821,7 +808,7 @@ def _variant_scores(context: FoldContext, chosen: list[list[int]] | None, train:
     model, best_rounds = fit_early_stopped(context.recipe, context.matrix[train], context.target[train], groups=chosen,
                                            threads=context.threads, seed=seed)
     predicted = predict_response(context.recipe, model, context.matrix[test])
-    return _scores(context.recipe.task, context.target[test], predicted, context.n_classes), best_rounds
+    return loss_scores(context.recipe.task, context.target[test], predicted, context.n_classes), best_rounds
 
 
 def fold_splits(context: FoldContext, folds: int) -> list[tuple[int, np.ndarray, np.ndarray]]:

@@ -71,6 +71,7 @@ __all__ = [
     "fit",
     "fit_early_stopped",
     "predict_response",
+    "loss_scores",
     "xgboost_constraint_text",
 ]
 
@@ -866,15 +867,29 @@ def predict_response(recipe: Recipe, model: Any, X: np.ndarray) -> np.ndarray:
     return probability[:, 1] if recipe.task == BINARY else probability
 
 
-def _training_loss(task: str, target: np.ndarray, predicted: np.ndarray) -> float:
-    """Mean squared error (regression) or mean log-loss (classifiers) of response-scale predictions."""
+def loss_scores(task: str, y: np.ndarray, predicted: np.ndarray, n_classes: int) -> dict[str, float]:
+    """Scores of response-scale predictions: ``rmse`` (regression), ``log_loss`` and, for binary, ``auc``.
+
+    scikit-learn's ``mean_squared_error``, ``log_loss`` and ``roc_auc_score``; ``n_classes`` shapes
+    multiclass probabilities (n_rows, n_classes). AUC is NaN when ``y`` holds one class only.
+    """
+    from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
+
     if task == REGRESSION:
-        return float(np.mean((target - predicted.ravel()) ** 2))
+        return {"rmse": float(np.sqrt(mean_squared_error(y, predicted)))}
     if task == BINARY:
-        p = np.clip(predicted.ravel(), 1e-12, 1 - 1e-12)
-        return float(-np.mean(target * np.log(p) + (1 - target) * np.log(1 - p)))
-    probability = np.clip(predicted.reshape(target.size, -1), 1e-12, 1.0)
-    return float(-np.mean(np.log(probability[np.arange(target.size), target.astype(int)])))
+        probability = np.clip(predicted.ravel(), 1e-15, 1 - 1e-15)
+        scores = {"log_loss": float(log_loss(y, probability, labels=[0, 1]))}
+        scores["auc"] = float(roc_auc_score(y, probability)) if np.unique(y).size == 2 else float("nan")
+        return scores
+    probability = predicted.reshape(len(y), n_classes)
+    return {"log_loss": float(log_loss(y, probability, labels=list(range(n_classes))))}
+
+
+def _training_loss(task: str, y: np.ndarray, predicted: np.ndarray) -> float:
+    """The loss :func:`loss_scores` gives first: RMSE for regression, log-loss for classifiers."""
+    n_classes = predicted.shape[1] if predicted.ndim == 2 else 2
+    return next(iter(loss_scores(task, y, predicted, n_classes).values()))
 
 
 def calibrate_step(recipe: Recipe, graph: ForestGraph, X: np.ndarray, y: np.ndarray, *, seed: int = 0) -> Recipe:
@@ -899,8 +914,8 @@ def calibrate_step(recipe: Recipe, graph: ForestGraph, X: np.ndarray, y: np.ndar
 
     Notes
     -----
-    Training loss is mean squared error for regression, log-loss for
-    classifiers, of response-scale predictions. It falls as eta grows at a
+    Training loss is the root mean squared error for regression, log-loss
+    for classifiers (:func:`loss_scores`), of response-scale predictions. It falls as eta grows at a
     fixed round count, so matching it pins the step size that reproduces
     the model's fit to these rows. The grid (0.01, 0.02, 0.05, 0.1, 0.2,
     0.3) holds common values; it is our choice.
