@@ -31,7 +31,7 @@ def three_class(tmp_path_factory):
 
 def test_triage_of_every_class_names_each_one(three_class):
     model, data = three_class
-    common = ("--data", data, "--target", "grade", "--sample", "150", "--resamples", "0", "--null-refits", "1")
+    common = ("--data", data, "--target", "grade", "--sample", "150", "--resamples", "0", "--null-refits", "1", "--level", "0.5")
     payload = json.loads(run("triage", model, *common, "--class", "all", "--format", "json", "--quiet").stdout)
     assert payload["schema"] == "treeprobe.triage_by_class/1"
     assert [c["facts"]["class_analysed"] for c in payload["classes"]] == [
@@ -44,7 +44,7 @@ def test_triage_of_every_class_names_each_one(three_class):
 
 def test_feature_named_as_target_gets_its_own_message(three_class):
     model, data = three_class
-    proc = run("triage", model, "--data", data, "--target", "glaze_mm", "--null-refits", "1", check_code=1)
+    proc = run("triage", model, "--data", data, "--target", "glaze_mm", "--null-refits", "1", "--level", "0.5", check_code=1)
     assert "the target column 'glaze_mm' is one of the model's features" in proc.stderr
     assert "Traceback" not in proc.stderr
 
@@ -55,9 +55,9 @@ def test_refits_on_a_dask_scheduler(three_class):
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, protocol="tcp",
                                   host="127.0.0.1", dashboard_address=None) as cluster:
         payload = json.loads(run("triage", model, "--data", data, "--target", "grade", "--sample", "150",
-                                 "--resamples", "0", "--null-refits", "2", "--scheduler", cluster.scheduler_address,
+                                 "--resamples", "0", "--null-refits", "2", "--level", "0.34", "--scheduler", cluster.scheduler_address,
                                  "--format", "json", "--quiet").stdout)
     assert payload["facts"]["refit_threads_per_fit"] == 1 and len(payload["facts"]["null_rounds"]) == 2
-    proc = run("triage", model, "--data", data, "--target", "grade", "--null-refits", "1",
+    proc = run("triage", model, "--data", data, "--target", "grade", "--null-refits", "1", "--level", "0.5",
                "--scheduler", "tcp://127.0.0.1:9", check_code=1)
     assert "no Dask scheduler answered at 'tcp://127.0.0.1:9'" in proc.stderr

@@ -150,7 +150,7 @@ def test_triage_with_text_labels_runs_the_noise_floor(tmp_path):
     X = pd.DataFrame(rng.uniform(-1, 1, size=(400, 3)), columns=["dwell", "reach", "noise"])
     positive = (X["dwell"] * X["reach"] + 0.3 * X["dwell"] + rng.normal(0, 0.2, 400)) > 0
     model = xgb.XGBClassifier(n_estimators=30, max_depth=3, learning_rate=0.2, n_jobs=1).fit(X, positive.astype(int))
-    result = treeprobe.triage(model, X, np.where(positive, "yes", "no"), null_refits=2, resamples=2, sample=200)
+    result = treeprobe.triage(model, X, np.where(positive, "yes", "no"), null_refits=2, level=0.34, resamples=2, sample=200)
     assert result.facts["null_refits"] == 2
     assert result.pairs["null_h"].notna().any()
 
@@ -172,7 +172,7 @@ def test_unrefittable_model_fails_before_any_h_computation(monkeypatch):
 
     monkeypatch.setattr(verdicts_module, "h_statistic", no_h)
     with pytest.raises(UnsupportedModelError, match="needs the estimator object") as caught:
-        treeprobe.triage(treeprobe.load_model(forest), X, y.to_numpy(), null_refits=2)
+        treeprobe.triage(treeprobe.load_model(forest), X, y.to_numpy(), null_refits=2, level=0.34)
     assert "without them the triage still runs" in str(caught.value)
 
 

@@ -81,7 +81,7 @@ def test_triage_and_validation_of_categorical_models(dock_data, library, tmp_pat
         model = lgb.LGBMRegressor(n_estimators=25, max_depth=4, learning_rate=0.3, n_jobs=1, verbose=-1).fit(frame, y)
         path = tmp_path / "dock.txt"
         model.booster_.save_model(path)
-    result = treeprobe.triage(str(path), frame, y, sample=300, resamples=0, null_refits=2)
+    result = treeprobe.triage(str(path), frame, y, sample=300, resamples=0, null_refits=2, level=0.34)
     assert result.facts["refit_recipe"]["categorical"] == [0, 1]
     assert result.pairs.loc[result.pairs["paths"] > 0, "null_h"].notna().all()
     top = result.pairs.iloc[0]
@@ -111,7 +111,7 @@ def test_histgradientboosting_refits_and_validation_use_interaction_cst(sklearn_
     assert 1 <= rounds <= 240 and refit.n_iter_ == rounds
     assert _crossing(treeprobe.load_model(refit, feature_names=list(X.columns)),
                      [["oven_c", "proof_min"], ["flour_pct"], ["salt_g"]]) == []
-    result = treeprobe.triage(model, X, y, sample=300, resamples=0, null_refits=2)
+    result = treeprobe.triage(model, X, y, sample=300, resamples=0, null_refits=2, level=0.34)
     assert result.facts["additive_family"] == "HistGradientBoostingRegressor"
     first = result.pairs.iloc[0]
     assert {first["feature_a"], first["feature_b"]} == {"oven_c", "proof_min"} and first["verdict"] == "interaction"
@@ -129,7 +129,7 @@ def test_forest_refits_by_cloning_and_validates_on_the_nearest_constrained_famil
     assert recipe.trainer == "clone" and not recipe.supports_constraints and recipe.rounds == 15
     substitute = constrained_substitute(recipe)
     assert substitute.family == "HistGradientBoostingRegressor" and "has no interaction constraints" in substitute.notes[0]
-    result = treeprobe.triage(forest, X, y, sample=250, resamples=0, null_refits=2)
+    result = treeprobe.triage(forest, X, y, sample=250, resamples=0, null_refits=2, level=0.34)
     assert result.facts["additive_family"] == "HistGradientBoostingRegressor"
     assert any("own 15 rounds" in note for note in result.facts["refit_notes"])
     assert result.pairs.loc[result.pairs["paths"] > 0, "null_h"].notna().all()
@@ -150,7 +150,7 @@ def test_text_labels_for_scikit_learn_classifiers(sklearn_data):
                          (RandomForestClassifier(n_estimators=10, max_depth=5, random_state=0, n_jobs=1),
                           "class late (output 0 of 2)")):
         model.fit(X, labels)
-        result = treeprobe.triage(model, X, labels, sample=200, resamples=0, null_refits=2)
+        result = treeprobe.triage(model, X, labels, sample=200, resamples=0, null_refits=2, level=0.34)
         assert result.facts["null_refits"] == 2 and result.facts["class_analysed"] == named
         checked = treeprobe.validate_constraints(model, X, labels, [["oven_c", "proof_min"]], folds=2)
         assert set(checked.folds["metric"]) == {"log_loss", "auc"}
@@ -163,19 +163,19 @@ def test_separable_classification_null_is_detected():
     labels = (X["grain"] + X["roast"] > 0).astype(int).to_numpy()
     X["grain"] += np.where(labels == 1, 0.5, -0.5)  # a wide margin: the classes are separable
     model = xgb.XGBClassifier(n_estimators=60, max_depth=3, learning_rate=0.3, n_jobs=1).fit(X, labels)
-    result = treeprobe.triage(model, X, labels, sample=200, resamples=0, null_refits=2)
+    result = treeprobe.triage(model, X, labels, sample=200, resamples=0, null_refits=2, level=0.34)
     assert result.facts["null_separable"] and result.facts["label_change_share"] < 0.01
     assert any("separates the classes almost perfectly" in note for note in result.facts["refit_notes"])
     noisy = np.where(rng.random(600) < 0.2, 1 - labels, labels)
     other = xgb.XGBClassifier(n_estimators=30, max_depth=3, n_jobs=1).fit(X, noisy)
-    assert not treeprobe.triage(other, X, noisy, sample=200, resamples=0, null_refits=1).facts["null_separable"]
+    assert not treeprobe.triage(other, X, noisy, sample=200, resamples=0, null_refits=1, level=0.5).facts["null_separable"]
 
 
 def test_multiclass_names_the_class(sklearn_data):
     X, y = sklearn_data
     classes = np.digitize(y, np.quantile(y, [1 / 3, 2 / 3]))
     model = xgb.XGBClassifier(n_estimators=20, max_depth=3, n_jobs=1).fit(X, classes)
-    result = treeprobe.triage(model, X, classes, sample=200, resamples=0, null_refits=1, output=2)
+    result = treeprobe.triage(model, X, classes, sample=200, resamples=0, null_refits=1, level=0.5, output=2)
     assert result.facts["class_analysed"] == "class 2 (output 2 of 3)"
     assert result.facts["refit_recipe"]["params"]["objective"]["value"] == "multi:softprob"
     checked = treeprobe.validate_constraints(model, X, classes, [["oven_c", "proof_min"]], folds=2)
@@ -199,7 +199,7 @@ def test_refits_and_folds_run_on_a_dask_cluster(sklearn_data):
     with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=2) as cluster, \
             distributed.Client(cluster) as client, joblib.parallel_config(backend="dask"), \
             distributed.get_task_stream(client) as stream:
-        result = treeprobe.triage(model, X, y, sample=200, resamples=0, null_refits=2)
+        result = treeprobe.triage(model, X, y, sample=200, resamples=0, null_refits=2, level=0.34)
         checked = treeprobe.validate_constraints(model, X, y, [["oven_c", "proof_min"]], folds=2)
     assert result.facts["refit_threads_per_fit"] == 1 and len(result.facts["null_rounds"]) == 2
     assert checked.summary["threads_per_fit"] == 1 and len(checked.folds) == 2

@@ -108,8 +108,9 @@ _OPTION_CHECKS: dict[str, Callable[[Any], Any]] = {
     "sample": _check_sample,
     "seed": lambda v: check_seed("--seed", v, allow_none=False),
     "jobs": lambda v: check_n_jobs(v, name="--jobs"),
-    "resamples": lambda v: check_int("--resamples", v, low=0),
+    "resamples": lambda v: v if v is None else check_int("--resamples", v, low=0),
     "null_refits": lambda v: check_int("--null-refits", v, low=0),
+    "level": lambda v: check_float("--level", v, low=0, high=0.5),
     "min_h2": lambda v: check_float("--min-h2", v, low=0, high=1),
     "min_effect": lambda v: check_float("--min-effect", v, low=0),
     "max_dependence": lambda v: check_float("--max-dependence", v, low=0, high=1),
@@ -136,6 +137,10 @@ def _check_options(args: argparse.Namespace) -> None:
     for dest, check in _OPTION_CHECKS.items():
         if hasattr(args, dest):
             check(getattr(args, dest))
+    if getattr(args, "target", None) is not None and getattr(args, "null_refits", 0) and hasattr(args, "level"):
+        from .verdicts import check_refit_level
+
+        check_refit_level(args.null_refits, args.level, names=("--null-refits", "--level"))
     if getattr(args, "class_index", None) == "all" and args.command != "triage":
         raise ParameterError(f"--class all is for triage; {args.command} takes one class index (0, 1, ...)")
 
@@ -367,8 +372,8 @@ def _cmd_measure(args: argparse.Namespace) -> int:
 
 
 # ------------------------------------------------------------------- triage
-_TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "strength", "h2", "h2_low", "h", "h_low", "null_h",
-                   "dependence", "paths", "cover_share"]
+_TRIAGE_COLUMNS = ["feature_a", "feature_b", "verdict", "faint", "strength", "h2", "h2_low", "h", "h_low", "null_h",
+                   "p_adjusted", "dependence", "paths", "cover_share"]
 _TRIAGE_TRIPLE_COLUMNS = ["feature_a", "feature_b", "feature_c", "verdict", "strength", "h2", "h", "dependence",
                           "paths"]
 
@@ -393,6 +398,7 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame, output: 
         sample=None if args.sample == 0 else args.sample,
         resamples=args.resamples,
         null_refits=args.null_refits,
+        level=args.level,
         min_h2=args.min_h2,
         min_effect=args.min_effect,
         max_dependence=args.max_dependence,
@@ -404,14 +410,24 @@ def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame, output: 
     )
 
 
+def _shown(pairs: pd.DataFrame, column: str, facts: dict) -> bool:
+    """A triage column goes into the text table when it holds something: no all-NaN intervals, no floor columns without one."""
+    if column not in pairs.columns:
+        return False
+    if column == "faint":
+        return bool(facts["null_refits"])
+    return not (pairs[column].dtype.kind == "f" and len(pairs) and pairs[column].isna().all())
+
+
 def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
     from .verdicts import VERDICTS
 
     facts = result.facts
     counts = result.pairs["verdict"].value_counts()
     tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in VERDICTS)
-    floor = (f"noise floor from {facts['null_refits']} refits" if facts["null_refits"]
-             else "no noise-floor refits" + ("" if facts["has_target"] else " (give --target)"))
+    retests = (f" + {facts['retest_rounds']} retest round(s)" if facts.get("retest_rounds") else "")
+    floor = (f"noise floor from {facts['null_refits']} refits{retests} at level {result.thresholds['level']:g}"
+             if facts["null_refits"] else "no noise-floor refits" + ("" if facts["has_target"] else " (give --target)"))
     lines = [
         _model_line(result.ensemble),
         f"data       {args.data}: {facts['n_rows']:,} of {facts['n_rows_available']:,} rows, "
@@ -419,7 +435,7 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
         f"pairs      {tally}",
         *([f"class      {facts['class_analysed']}"] if facts.get("class_analysed") else []),
         "",
-        _table(result.pairs[[c for c in _TRIAGE_COLUMNS if c in result.pairs.columns]],
+        _table(result.pairs[[c for c in _TRIAGE_COLUMNS if _shown(result.pairs, c, facts)]],
                "Pairs, strongest evidence first", args.top),
     ]
     if len(result.triples):
@@ -812,12 +828,18 @@ def _add_rows(p: argparse.ArgumentParser, *, use: str, seed_use: str, jobs_use: 
 def _add_triage_options(p: argparse.ArgumentParser) -> None:
     _add_rows(p, use="H and dependence", seed_use="the row sample, subsamples and refits", jobs_use="refits")
     p.add_argument("--target", metavar="COL", help="target column in the data; enables the noise-floor refits")
-    p.add_argument("--null-refits", type=int, default=10, metavar="R",
-                   help="refits on targets without interaction for the noise floor (default 10; each costs about "
-                        "one training of the model)")
-    p.add_argument("--resamples", type=int, default=20, metavar="B",
-                   help="half-size row subsamples for the intervals of H² and h (default 20)")
-    p.add_argument("--min-h2", type=float, default=0.05, help="smallest H² counted as interaction (default 0.05)")
+    p.add_argument("--null-refits", type=int, default=19, metavar="R",
+                   help="refits on targets without interaction for the noise floor (default 19, the fewest that can "
+                        "reach --level 0.05; each costs about one training of the model, and pairs retested next "
+                        "to another interaction cost R more per round)")
+    p.add_argument("--level", type=float, default=0.05, metavar="A",
+                   help="family-wise level of the noise-floor test: for a model without interaction, the chance that "
+                        "any pair clears the floor (default 0.05; needs --null-refits >= 1/A - 1)")
+    p.add_argument("--resamples", type=int, default=None, metavar="B",
+                   help="half-size row subsamples for the intervals of H² and h (default 20 without --target, 0 with "
+                        "it: the refits give the evidence)")
+    p.add_argument("--min-h2", type=float, default=0.05,
+                   help="smallest H² counted as interaction when there is no noise floor (default 0.05)")
     p.add_argument("--min-effect", type=float, default=0.05,
                    help="smallest interaction size h as a share of the prediction spread (default 0.05)")
     p.add_argument("--max-dependence", type=float, default=0.7,
