@@ -38,16 +38,19 @@ scenarios already there. ``--size small`` shrinks rows and trees (for tests).
 
 Cost
 ----
-With the full size (2,000-5,000 rows, 300-500 trees) one scenario costs one
-model fit plus one triage, whose ten noise-floor refits dominate: on the order
-of tens of seconds to a few minutes per scenario on two cores, so the
-45-scenario study takes roughly an hour or more; a baseline doubles it. The
-per-scenario wall times are in the report.
+Each triage runs in a fresh Python process (the studied code and the baseline
+alike, so both start equally cold). Measured on the 2-core development machine
+under a load average of 2-3.5 (full size, ``--jobs 2``, 6 scenarios): 5-7 s of
+triage per scenario, about 1 s of model fit and 2-3 s of process start and
+truth, so about 8 s per scenario and side: the 45-scenario study takes roughly
+6 minutes, twice that with a baseline of similar speed.
 """
 
 from __future__ import annotations
 
 import argparse
+import hashlib
+import importlib.util
 import json
 import math
 import os
@@ -78,6 +81,8 @@ WILSON_Z = 1.959963984540054  # the standard normal's 97.5% quantile
 TRUTH_ROWS = 500
 RESULT_PREFIX = "STUDY-RESULT "
 RUN_FIELDS = ("verdict", "faint", "p_value", "p_adjusted", "effect", "h", "dependence", "listed")
+# Kept for studying misses and false positives: the numbers the verdict rule read.
+DIAGNOSTICS = ("h2", "h2_low", "h_low", "null_h")
 
 
 @dataclass(frozen=True)
@@ -431,10 +436,17 @@ def verdict_rows(scenario: Scenario, pairs: pd.DataFrame) -> dict[tuple[int, int
             "verdict": str(record["verdict"]), "faint": _flag(record.get("faint")),
             "p_value": _plain(record.get("p_value")), "p_adjusted": _plain(record.get("p_adjusted")),
             "effect": _plain(record["effect"]), "h": _plain(record["h"]), "dependence": _plain(record["dependence"]),
-            "listed": True}
+            **{name: _plain(record.get(name)) for name in DIAGNOSTICS}, "listed": True}
     unlisted = {"verdict": "absent", "faint": False, "p_value": None, "p_adjusted": None, "effect": None, "h": None,
-                "dependence": None, "listed": False}
+                "dependence": None, **dict.fromkeys(DIAGNOSTICS), "listed": False}
     return {pair: out.get(pair, dict(unlisted)) for pair in combinations(range(len(scenario.names)), 2)}
+
+
+def fingerprint(scenario: Scenario) -> str:
+    """A short digest of the scenario's data, so that a worker proves it re-made the same scenario."""
+    digest = hashlib.sha256(np.ascontiguousarray(scenario.X).tobytes())
+    digest.update(np.ascontiguousarray(scenario.y).tobytes())
+    return digest.hexdigest()[:16]
 
 
 def run_triage(scenario: Scenario, jobs: int) -> dict:
@@ -447,25 +459,40 @@ def run_triage(scenario: Scenario, jobs: int) -> dict:
     result = treeprobe.triage(model, scenario.frame(), scenario.y, random_state=scenario.seed, n_jobs=jobs,
                               progress=False)
     rows = verdict_rows(scenario, result.pairs)
-    return {"seconds": float(result.facts["seconds"]), "fit_seconds": fit_seconds,
+    return {"seconds": float(result.facts["seconds"]), "fit_seconds": fit_seconds, "fingerprint": fingerprint(scenario),
             "code": {"path": str(Path(treeprobe.__file__).resolve().parent),
                      "columns": sorted(set(result.pairs.columns) & {"faint", "p_value", "p_adjusted"})},
             "pairs": [{"feature_a": scenario.names[a], "feature_b": scenario.names[b], **row}
                       for (a, b), row in rows.items()]}
 
 
-def run_baseline(seed: int, size: str, jobs: int, source: Path) -> dict:
-    """The same scenario triaged by the package in ``source``, in a subprocess (the scenario re-made from its seed)."""
+def studied_source() -> Path:
+    """The folder holding the treeprobe package this process imports (the code under study)."""
+    spec = importlib.util.find_spec("treeprobe")
+    if spec is None or spec.origin is None:
+        raise SystemExit("treeprobe is not importable: run with PYTHONPATH set to the source tree under study")
+    return Path(spec.origin).resolve().parent.parent
+
+
+def run_worker(scenario: Scenario, jobs: int, source: Path) -> dict:
+    """The scenario triaged by the package in ``source`` in a fresh process (re-made there from its seed).
+
+    Both the studied code and the baseline run this way, so that each
+    triage starts equally cold (imports, joblib workers) and their times compare.
+    """
     env = {**os.environ, "PYTHONPATH": str(source)}
-    command = [sys.executable, str(Path(__file__).resolve()), "--worker", str(seed), "--size", size, "--jobs", str(jobs)]
+    command = [sys.executable, str(Path(__file__).resolve()), "--worker", str(scenario.seed), "--size", scenario.size,
+               "--jobs", str(jobs), "--worker-source", str(source.resolve())]
     done = subprocess.run(command, env=env, capture_output=True, text=True, check=False)
     lines = [line for line in done.stdout.splitlines() if line.startswith(RESULT_PREFIX)]
     if done.returncode != 0 or not lines:
         tail = " | ".join(done.stderr.strip().splitlines()[-3:])
-        return {"error": f"baseline run exited with code {done.returncode}: {tail or 'no output'}"}
+        return {"error": f"triage with {source} exited with code {done.returncode}: {tail or 'no output'}"}
     result = json.loads(lines[-1][len(RESULT_PREFIX):])
     if not result["code"]["path"].startswith(str(source.resolve())):
-        return {"error": f"baseline imported treeprobe from {result['code']['path']}, not from {source}"}
+        return {"error": f"the run meant for {source} imported treeprobe from {result['code']['path']}"}
+    if result["fingerprint"] != fingerprint(scenario):
+        return {"error": f"the run with {source} re-made different data for scenario {scenario.seed}"}
     return result
 
 
@@ -473,11 +500,13 @@ def scenario_record(seed: int, *, size: str, jobs: int, baseline: Path | None, o
     """One scenario: the truth, the studied code's verdicts and (optionally) the baseline's, as one JSON record."""
     scenario = make_scenario(seed, size=size)
     truth = true_sizes(scenario)
-    first_baseline = baseline is not None and order % 2 == 1  # alternate so neither side always runs first
-    old = run_baseline(seed, size, jobs, baseline) if first_baseline else None
-    new = run_triage(scenario, jobs)
-    if baseline is not None and old is None:
-        old = run_baseline(seed, size, jobs, baseline)
+    sides = [("new", studied_source())] + ([("baseline", baseline)] if baseline is not None else [])
+    if order % 2 == 1:
+        sides.reverse()  # alternate so that neither side always runs first
+    runs = {name: run_worker(scenario, jobs, source) for name, source in sides}
+    new = runs["new"]
+    if "error" in new:
+        raise SystemExit(f"scenario {seed}: {new['error']}")
     pairs = []
     for row in new["pairs"]:
         a, b = scenario.names.index(row["feature_a"]), scenario.names.index(row["feature_b"])
@@ -489,7 +518,7 @@ def scenario_record(seed: int, *, size: str, jobs: int, baseline: Path | None, o
             "model": scenario.params, "terms": [[t.kind, [scenario.names[j] for j in t.features], t.weak]
                                                 for t in scenario.terms],
             "seconds": new["seconds"], "fit_seconds": new["fit_seconds"], "code": new["code"], "pairs": pairs,
-            "baseline": old, "load": list(os.getloadavg()) if hasattr(os, "getloadavg") else None}
+            "baseline": runs.get("baseline"), "load": list(os.getloadavg()) if hasattr(os, "getloadavg") else None}
 
 
 # --------------------------------------------------------------------- records
@@ -638,20 +667,30 @@ def _cell(entry: dict | None) -> str:
     return f"{entry['successes']}/{entry['trials']} = {entry['share']:.2f} | [{entry['low']:.2f}, {entry['high']:.2f}]"
 
 
-def _false_positives(records: list[dict]) -> list[str]:
+def _pair_list(records: list[dict], which: str) -> list[str]:
+    """Markdown rows of the false positives (``which="false"``) or of the missed strong interactions ("missed")."""
     table = pair_table(records)
     if table.empty:
-        return []
-    wrong = table[(table["verdict"] == "interaction") & (table["type"] != "true")]
-    lines = ["| scenario | pair | type | effect | dependence | p | p adjusted |", "|---|---|---|---|---|---|---|"]
-    for row in wrong.itertuples():
+        return ["none"]
+    called = table["verdict"] == "interaction"
+    if which == "false":
+        chosen = table[called & (table["type"] != "true")]
+    else:
+        chosen = table[~called & (table["type"] == "true") & (table["true_size"].astype(float) >= STRONG)]
+    lines = ["| scenario | pair | type | true size | verdict | effect | H² low | h low | floor | dependence | p | p adjusted |",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+    for row in chosen.itertuples():
+        numbers = " | ".join(_num(getattr(row, name, None)) for name in
+                             ("true_size", "verdict", "effect", "h2_low", "h_low", "null_h", "dependence", "p_value",
+                              "p_adjusted"))
         lines.append(f"| {row.scenario} ({row.task}, {row.library}{', overfit' if row.overfit else ''}) | "
-                     f"{row.feature_a}-{row.feature_b} | {row.type} | {_num(row.effect)} | {_num(row.dependence)} | "
-                     f"{_num(row.p_value)} | {_num(row.p_adjusted)} |")
-    return lines if len(wrong) else ["none"]
+                     f"{row.feature_a}-{row.feature_b} | {row.type} | {numbers} |")
+    return lines if len(chosen) else ["none"]
 
 
 def _num(value: Any) -> str:
+    if isinstance(value, str):
+        return value
     return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else f"{float(value):.3g}"
 
 
@@ -678,7 +717,9 @@ def render_report(records: list[dict]) -> str:
                      f"median of per-scenario ratios new/old {times['median_ratio_new_over_old']:.2f}")
     lines += [f"Baseline failed on scenario {e['scenario']}: {e['error']}" for e in facts["baseline_errors"]]
     lines += ["", "### False positives (interaction verdict on a pair without true interaction)", "",
-              *_false_positives(records)]
+              *_pair_list(records, "false"),
+              "", "### Missed strong interactions (true size >= 10%, verdict other than interaction)", "",
+              *_pair_list(records, "missed")]
     return "\n".join(lines)
 
 
@@ -696,6 +737,7 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--report", type=Path, help="print the report of an existing study file and stop")
     parser.add_argument("--summary-json", type=Path, help="also write the summary as JSON here")
     parser.add_argument("--worker", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--worker-source", type=Path, help=argparse.SUPPRESS)
     return parser
 
 
@@ -754,6 +796,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = _parser()
     args = _checked(parser.parse_args(argv), parser)
     if args.worker is not None:
+        if args.worker_source is not None and studied_source() != args.worker_source:
+            raise SystemExit(f"treeprobe is imported from {studied_source()}, not from {args.worker_source}")
         result = run_triage(make_scenario(args.worker, size=args.size), args.jobs)
         print(RESULT_PREFIX + json.dumps(result, allow_nan=False), flush=True)
         return 0

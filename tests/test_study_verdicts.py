@@ -281,11 +281,17 @@ def test_report_counts_every_pair(study, e2e_records):
     assert "| recall: strong (size >= 10%) |" in report and "Wilson" in report
 
 
-def test_baseline_subprocess_reproduces_the_scenario(study, e2e_records):
-    # This source tree as its own baseline: the scenario is re-made from its seed in a fresh process,
-    # so the verdicts must be the in-process ones.
-    old = study.run_baseline(1, "small", 1, ROOT)
-    assert "error" not in old, old.get("error")
-    assert old["code"]["path"] == str(ROOT / "treeprobe")
-    here = {(p["feature_a"], p["feature_b"]): p["verdict"] for p in e2e_records[1]["pairs"]}
-    assert {(p["feature_a"], p["feature_b"]): p["verdict"] for p in old["pairs"]} == here
+def test_worker_process_reproduces_the_in_process_run(study, e2e_records):
+    # The records come from worker processes that re-make the scenario from its seed; the same triage
+    # run here, in this process, must give the same verdicts (and the worker proved the same data).
+    s = study.make_scenario(1, size="small")
+    here = study.run_triage(s, 1)
+    assert here["fingerprint"] == study.fingerprint(s)
+    assert e2e_records[1]["code"]["path"] == str(ROOT / "treeprobe")
+    verdicts = {(p["feature_a"], p["feature_b"]): p["verdict"] for p in here["pairs"]}
+    assert {(p["feature_a"], p["feature_b"]): p["verdict"] for p in e2e_records[1]["pairs"]} == verdicts
+
+
+def test_worker_refuses_a_source_without_the_package(study, tmp_path):
+    failed = study.run_worker(study.make_scenario(1, size="small"), 1, tmp_path)
+    assert "imported from" in failed["error"]
