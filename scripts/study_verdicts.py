@@ -154,7 +154,8 @@ class Scenario:
     """A known-truth data set: features, the signal function that made the target, the target, the model recipe.
 
     ``signal(X)`` is the regression function (regression) or the logit of
-    P(y = 1) (binary), a fixed function of the feature columns.
+    P(y = 1) (binary), a fixed function of the feature columns. ``notes``
+    holds drawn targets worth keeping (the R² aimed at, for regression).
     """
 
     seed: int
@@ -226,8 +227,9 @@ def _features(rng: np.random.Generator, n_rows: int, n_features: int, dependent:
             X[:, j] = location + rng.standard_normal(n_rows)
         else:
             X[:, j] = location + rng.uniform(-math.sqrt(3.0), math.sqrt(3.0), n_rows)
-    # For a bivariate normal, Spearman's rho_s = (6 / pi) asin(rho / 2) (Pearson 1907, as in Kendall &
-    # Stuart); invert it for the noise that gives the Spearman correlation drawn.
+    # For a bivariate normal, Spearman's rho_s = (6 / pi) asin(rho / 2) (K. Pearson 1907; the formula is
+    # quoted from memory, and the tests check the result with scipy's spearmanr): invert it for the noise
+    # that gives the Spearman correlation drawn.
     spearman = rng.uniform(0.86, 0.94)
     pearson = 2.0 * math.sin(math.pi * spearman / 6.0)
     X[:, dependent[1]] = X[:, dependent[0]] + math.sqrt(1.0 / pearson**2 - 1.0) * rng.standard_normal(n_rows)
