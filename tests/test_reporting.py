@@ -499,3 +499,20 @@ def test_search_curve_table_and_chosen_groups_appear(fitted, triaged, tmp_path, 
     with pytest.raises(ParameterError, match="search must be a SearchResult"):
         report(ens, X, y, out=tmp_path / "never.html", triage_result=result, search="steps")
     assert not (tmp_path / "never.html").exists()
+
+
+def test_faint_pair_is_marked_in_the_pair_table(fitted, triaged, tmp_path):
+    """A pair whose h clears the noise floor while under min_effect carries the 'faint' note in its verdict cell."""
+    model, X, y = fitted
+    _, result = triaged
+    pairs = result.pairs.copy()
+    pairs["faint"] = False
+    row = pairs.index[pairs["verdict"] == "co-split"][0]
+    pairs.loc[row, "faint"] = True
+    path = tmp_path / "faint.html"
+    report(model, X.assign(late_minutes=y), "late_minutes", out=path, triage_result=replace(result, pairs=pairs),
+           top_pairs=TOP_PAIRS)
+    table = _sections(path.read_text(encoding="utf-8"))["pairs"]
+    assert table.count("faint: clears the floor, small") == 1
+    marked = re.search(r"<tr>(?:(?!</tr>).)*faint: clears the floor(?:(?!</tr>).)*</tr>", table, re.S).group(0)
+    assert f"<td>{escape(pairs.loc[row, 'feature_a'])}</td><td>{escape(pairs.loc[row, 'feature_b'])}</td>" in marked

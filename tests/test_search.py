@@ -263,6 +263,21 @@ def test_moves_join_add_and_never_bring_in_a_dependent_pair():
     assert search_module._candidates(state, search_module._Space(space.sources, names, set(), 1))[0][1] == "join b, c"
 
 
+def test_faint_pairs_are_the_first_candidates_after_the_interactions():
+    """A weak interaction (h clears the noise floor, effect under min_effect: 'faint') is tried before a stronger
+    co-split without evidence; a triage without the column ranks by strength alone."""
+    names = ("a", "b", "c", "d")
+    pairs = pd.DataFrame({"feature_a": ["a", "b", "a", "c"], "feature_b": ["b", "c", "c", "d"],
+                          "verdict": ["interaction", "co-split", "co-split", "absent"],
+                          "strength": [0.30, 0.04, 0.09, 0.0], "paths": [5, 3, 4, 0],
+                          "faint": [False, True, False, False]})
+    result = SimpleNamespace(pairs=pairs, triples=pd.DataFrame())
+    space = search_module._space(result, names, 5)
+    assert [source.label for source in space.sources] == ["a × b", "b × c", "a × c"]
+    plain = search_module._space(SimpleNamespace(pairs=pairs.drop(columns="faint"), triples=pd.DataFrame()), names, 5)
+    assert [source.label for source in plain.sources] == ["a × b", "a × c", "b × c"]
+
+
 def test_ctrl_c_keeps_the_finished_steps(pottery, known_losses, monkeypatch):
     model, X, y = pottery
     scorer = search_module.cross_validated_scores

@@ -99,11 +99,16 @@ Groups = tuple[frozenset[int], ...]
 # --------------------------------------------------------------------- candidates
 @dataclass(frozen=True)
 class _Source:
-    """A pair or triple the triage ranks: its members (indices), strength and label."""
+    """A pair or triple the triage ranks: its members (indices), strength, label and tier.
+
+    Tier 0: the triage found evidence (verdict ``interaction``, or a pair it
+    marks ``faint``: its h clears the noise floor while small); tier 1: the rest.
+    """
 
     members: frozenset[int]
     strength: float
     label: str
+    tier: int = 1
 
 
 def _pair_sources(triage_result: Any, known: dict[str, int]) -> tuple[list[_Source], set[frozenset[str]]]:
@@ -113,9 +118,11 @@ def _pair_sources(triage_result: Any, known: dict[str, int]) -> tuple[list[_Sour
     strength = _check_strength(pairs, "pairs")
     sharing_rows = pairs["paths"] > 0 if "paths" in pairs.columns else pairs["verdict"] != "absent"
     sharing = {frozenset((str(a), str(b))) for a, b in pairs.loc[sharing_rows, ["feature_a", "feature_b"]].to_numpy()}
-    sources = [_Source(frozenset((known[str(a)], known[str(b)])), float(s), f"{a} × {b}")
-               for a, b, verdict, s in zip(pairs["feature_a"], pairs["feature_b"], pairs["verdict"], strength,
-                                           strict=True)
+    faint = pairs["faint"].fillna(False).astype(bool) if "faint" in pairs.columns else np.zeros(len(pairs), dtype=bool)
+    sources = [_Source(frozenset((known[str(a)], known[str(b)])), float(s), f"{a} × {b}",
+                       0 if verdict == "interaction" or weak else 1)
+               for a, b, verdict, s, weak in zip(pairs["feature_a"], pairs["feature_b"], pairs["verdict"], strength,
+                                                 faint, strict=True)
                if verdict in SOURCE_VERDICTS and a != b]
     return sources, sharing
 
@@ -132,7 +139,8 @@ def _triple_sources(triage_result: Any, known: dict[str, int], sharing: set[froz
     rows = zip(triples[members].astype(str).to_numpy(), triples["verdict"], strength, strict=True)
     for (a, b, c), verdict, s in rows:
         if verdict in SOURCE_VERDICTS and all(frozenset(p) in sharing for p in combinations((a, b, c), 2)):
-            sources.append(_Source(frozenset((known[a], known[b], known[c])), float(s), f"{a} × {b} × {c}"))
+            sources.append(_Source(frozenset((known[a], known[b], known[c])), float(s), f"{a} × {b} × {c}",
+                                   0 if verdict == "interaction" else 1))
     return sources
 
 
@@ -147,10 +155,16 @@ class _Space:
 
 
 def _space(triage_result: Any, names: tuple[str, ...], limit: int) -> _Space:
-    """Candidate pairs and triples, strongest first (pairs before triples at equal strength), and dependent pairs."""
+    """Candidate pairs and triples, dependent pairs aside.
+
+    Order: those with evidence first (``interaction`` or ``faint``: the weak
+    interactions come before stronger co-splits), then strongest first, pairs
+    before triples at equal strength.
+    """
     known = {name: j for j, name in enumerate(names)}
     pairs, sharing = _pair_sources(triage_result, known)
-    ranked = sorted(pairs + _triple_sources(triage_result, known, sharing), key=lambda source: -source.strength)
+    ranked = sorted(pairs + _triple_sources(triage_result, known, sharing),
+                    key=lambda source: (source.tier, -source.strength))
     table = triage_result.pairs
     dependent = {frozenset((known[str(a)], known[str(b)]))
                  for a, b in table.loc[table["verdict"] == "dependent", ["feature_a", "feature_b"]].to_numpy()}

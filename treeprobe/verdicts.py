@@ -640,7 +640,7 @@ def _floor_test(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np
     share = label_change_share(task, target, fitted)
     draw = "additive fit plus permuted residuals" if task == REGRESSION else "labels drawn from the additive fit"
     trained = (f"each trained as the model was, {recipe.rounds} rounds" if recipe.boosted
-               else "each with the estimator's own settings")
+               else f"each with the estimator's own {recipe.rounds} rounds (trees, not boosted rounds)")
     notes = [*recipe.notes, *(base.notes if base is not recipe else []),
              f"Noise floor from {refits} refits of the {recipe.family} model on synthetic targets without interaction "
              f"({draw}; additive fit early-stopped at {additive_rounds} rounds), {trained}. The pairs that are not "

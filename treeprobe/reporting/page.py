@@ -48,6 +48,7 @@ _PAIR_COLUMNS = (
     ("null_h2", "Null H²", False),
     ("h", "h [interval]", True),
     ("null_h", "Noise floor of h", False),
+    ("p_adjusted", "p (family-wise)", False),
     ("dependence", "Dependence", False),
     ("paths", "Paths", False),
     ("cover_share", "Cover share", False),
@@ -116,8 +117,10 @@ def _summary(graph: ForestGraph, result: Any, *, rows_available: int, target_tex
                              f"{number_text(n_rows)} rows"),
             ("Interval", f"{resamples} half-size row subsamples, {confidence:.0%} subsampling interval"
              if resamples else "none (no resamples): point values only"),
-            ("Noise floor", f"{refits} refits on targets without interaction" if refits
-             else "no refits: the floor is the convention min_h2 only"),
+            ("Noise floor", f"{refits} refits on targets without interaction, all pairs tested together at "
+                            f"family-wise level {result.thresholds.get('level', 0.05):g}"
+                            + (f", {facts['retest_rounds']} retest round(s)" if facts.get("retest_rounds") else "")
+             if refits else "no refits: the floor is the convention min_h2 only"),
             *([("Refit recipe", facts["refit_recipe_text"])] if facts.get("refit_recipe_text") else []),
             ("Triage", f"run by this report (it took {took})" if triage_origin is None
              else f"{triage_origin} (it took {took})"),
@@ -138,6 +141,7 @@ def _pairs(result: Any) -> dict:
             "rank": rank, "feature_a": str(row["feature_a"]), "feature_b": str(row["feature_b"]),
             "verdict": _verdict(verdict),
             "leans": str(row["leans"]) if verdict == "dependent" and "leans" in row else None,
+            "faint": bool(row.get("faint", False)) and not pd.isna(row.get("faint", False)),
             "cells": [(number_text(row[field]), _interval(row, field) if interval else None)
                       for field, _, interval in columns],
         })
