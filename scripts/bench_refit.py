@@ -72,7 +72,7 @@ def check_planted(model: Path, data: Path, folds: int) -> list[tuple[str, str, s
     for a, b in (("bmi", "bp"), ("age", "s6")):
         row = pairs[((pairs.feature_a == a) & (pairs.feature_b == b)) | ((pairs.feature_a == b) & (pairs.feature_b == a))].iloc[0]
         rows.append((f"planted {a} x {b}: verdict", "interaction",
-                     f"{row.verdict} (h_low {row.h_low:.2f}, null h {row.null_h:.2f})", row.verdict == "interaction"))
+                     f"{row.verdict} (h {row.h:.2f}, floor {row.null_h:.2f}, p {row.p_value:.2f}, adjusted {row.p_adjusted:.2f})", row.verdict == "interaction"))
     groups = payload["suggestion"]["groups"]
     kept = all(any({a, b} <= set(g) for g in groups) for a, b in (("bmi", "bp"), ("age", "s6")))
     rows.append(("planted pairs kept in the groups", "both", str(groups), kept))
@@ -99,7 +99,7 @@ def check_known_answer(folds: int) -> tuple[str, str, str, bool]:
 
 
 def check_busy(model: Path, data: Path, repeats: int) -> tuple[str, str, str, bool]:
-    args = ("triage", str(model), "--data", str(data), "--target", "target", "--null-refits", "10")
+    args = ("triage", str(model), "--data", str(data), "--target", "target")
     idle = min(cli(*args)[1] for _ in range(repeats))
     spinner = multiprocessing.Process(target=_spin, daemon=True)
     spinner.start()

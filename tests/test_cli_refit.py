@@ -57,7 +57,7 @@ def test_refits_on_a_dask_scheduler(three_class):
         payload = json.loads(run("triage", model, "--data", data, "--target", "grade", "--sample", "150",
                                  "--resamples", "0", "--null-refits", "2", "--level", "0.34", "--scheduler", cluster.scheduler_address,
                                  "--format", "json", "--quiet").stdout)
-    assert payload["facts"]["refit_threads_per_fit"] == 1 and payload["facts"]["refits_total"] == 2 * (1 + payload["facts"]["retest_rounds"])
+    assert payload["facts"]["refit_threads_per_fit"] == 1 and payload["facts"]["refits_total"] == 2 * payload["facts"]["floor_rounds"]
     proc = run("triage", model, "--data", data, "--target", "grade", "--null-refits", "1", "--level", "0.5",
                "--scheduler", "tcp://127.0.0.1:9", check_code=1)
     assert "no Dask scheduler answered at 'tcp://127.0.0.1:9'" in proc.stderr

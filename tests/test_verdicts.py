@@ -275,11 +275,11 @@ def test_refits_in_parallel_workers_use_one_thread_each(planted_diabetes, monkey
     with joblib.parallel_backend("threading"):
         result = triage(path, data, "target", sample=150, null_refits=3, level=0.25, n_jobs=2)
     # Per round: two lone null fits (early-stopped, then all rows at the best rounds), then three refits in workers.
-    assert seen == [5, 5, 1, 1, 1] * (1 + result.facts["retest_rounds"])
+    assert seen == [5, 5, 1, 1, 1] * result.facts["floor_rounds"]
     assert result.facts["refit_threads_per_fit"] == 1
     seen.clear()
     result = triage(path, data, "target", sample=150, null_refits=2, level=0.34, n_jobs=1)
-    assert seen == [5, 5, 5, 5] * (1 + result.facts["retest_rounds"])
+    assert seen == [5, 5, 5, 5] * result.facts["floor_rounds"]
 
 
 # ------------------------------------------------------------- the floor test
@@ -329,18 +329,21 @@ def test_too_few_refits_for_the_level_are_refused_before_any_fit(friedman1):
     assert triage(model, X, sample=100, null_refits=3).facts["null_refits"] == 0
 
 
-def test_neighbouring_interactions_are_retested_against_a_null_that_keeps_the_other():
-    """y = x0 x1 + x1 x2: both pairs clear the first round and share x1, so each is retested against a null fitted
-    under XGBoost's interaction constraints allowing the other (two rounds: the pairs share a feature). Both stay
-    interactions; the noise feature x3 never is one."""
+def test_clear_interactions_are_kept_in_the_null_of_the_second_round():
+    """y = 2 x0 x1 + 2 x1 x2: both pairs clear the first round by a wide margin, so every other pair is tested again
+    against a null fitted under XGBoost's interaction constraints allowing exactly those two pairs. Both stay
+    interactions; no pair with the noise feature x3, and not x0 x x2 (no term), is one."""
     rng = np.random.default_rng(21)
     X = _frame(rng.uniform(-1, 1, size=(900, 4)))
     y = 2 * X["x0"] * X["x1"] + 2 * X["x1"] * X["x2"] + 0.2 * rng.normal(size=900)
     result = triage(_fit(X, y), X, y, sample=300)
     verdicts = _verdicts(result)
     assert verdicts[frozenset(("x0", "x1"))] == verdicts[frozenset(("x1", "x2"))] == "interaction"
-    assert result.facts["retest_rounds"] == 2
-    assert sorted(map(sorted, result.facts["retested_pairs"])) == [["x0", "x1"], ["x1", "x2"]]
-    assert result.facts["refits_total"] == 19 * 3
-    assert any("retested" in note for note in result.facts["refit_notes"])
+    assert result.facts["floor_rounds"] == 2 and result.facts["refits_total"] == 2 * 19
+    assert sorted(map(sorted, result.facts["kept_in_null"])) == [["x0", "x1"], ["x1", "x2"]]
+    assert any("wide margin" in note for note in result.facts["refit_notes"])
     assert all(v != "interaction" for k, v in verdicts.items() if "x3" in k)
+    assert verdicts[frozenset(("x0", "x2"))] != "interaction"
+    # The kept pairs keep their first-round floor; the others were tested again, each against its own floor.
+    pairs = result.pairs.set_index(["feature_a", "feature_b"])
+    assert (pairs.loc[[("x0", "x1"), ("x1", "x2")], "h"] >= 1.5 * pairs.loc[[("x0", "x1"), ("x1", "x2")], "null_h"]).all()

@@ -425,7 +425,7 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
     facts = result.facts
     counts = result.pairs["verdict"].value_counts()
     tally = ", ".join(f"{counts.get(v, 0)} {v}" for v in VERDICTS)
-    retests = (f" + {facts['retest_rounds']} retest round(s)" if facts.get("retest_rounds") else "")
+    retests = " (2 rounds)" if facts.get("floor_rounds") == 2 else ""
     floor = (f"noise floor from {facts['null_refits']} refits{retests} at level {result.thresholds['level']:g}"
              if facts["null_refits"] else "no noise-floor refits" + ("" if facts["has_target"] else " (give --target)"))
     lines = [
@@ -830,8 +830,8 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--target", metavar="COL", help="target column in the data; enables the noise-floor refits")
     p.add_argument("--null-refits", type=int, default=19, metavar="R",
                    help="refits on targets without interaction for the noise floor (default 19, the fewest that can "
-                        "reach --level 0.05; each costs about one training of the model, and pairs retested next "
-                        "to another interaction cost R more per round)")
+                        "reach --level 0.05; each costs about one training of the model, twice when a second round "
+                        "runs)")
     p.add_argument("--level", type=float, default=0.05, metavar="A",
                    help="family-wise level of the noise-floor test: for a model without interaction, the chance that "
                         "any pair clears the floor (default 0.05; needs --null-refits >= 1/A - 1)")

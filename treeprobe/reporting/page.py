@@ -119,7 +119,8 @@ def _summary(graph: ForestGraph, result: Any, *, rows_available: int, target_tex
              if resamples else "none (no resamples): point values only"),
             ("Noise floor", f"{refits} refits on targets without interaction, all pairs tested together at "
                             f"family-wise level {result.thresholds.get('level', 0.05):g}"
-                            + (f", {facts['retest_rounds']} retest round(s)" if facts.get("retest_rounds") else "")
+                            + (", second round with the clear interactions kept in the null"
+                               if facts.get("floor_rounds") == 2 else "")
              if refits else "no refits: the floor is the convention min_h2 only"),
             *([("Refit recipe", facts["refit_recipe_text"])] if facts.get("refit_recipe_text") else []),
             ("Triage", f"run by this report (it took {took})" if triage_origin is None
