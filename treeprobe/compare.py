@@ -70,7 +70,7 @@ _RTOL = 1e-9
 # Options of the triage a comparison passes on: not those that need a target (it triages without one), and not
 # output and progress, which compare_models takes itself.
 TRIAGE_OPTIONS = tuple(name for name, p in inspect.signature(triage).parameters.items() if p.kind == p.KEYWORD_ONLY
-                       and name not in ("null_refits", "null_quantile", "params", "n_jobs", "output", "progress"))
+                       and name not in ("null_refits", "level", "params", "n_jobs", "output", "progress"))
 
 
 # --------------------------------------------------------------------- matching the two versions
