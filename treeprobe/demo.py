@@ -499,8 +499,8 @@ def _details(X: pd.DataFrame, truth: dict, walked: Any, truth_h: Any, result: An
         f"  (rank correlation of {_CORRELATED[0]} and {_CORRELATED[1]}: {rho:.3f})",
         "",
         f"XGBoost model: {walked.n_trees_walked} trees, depth {_XGBOOST_PARAMS['max_depth']}, reloaded from model_xgboost.json. "
-        f"Triage on {result.facts['n_rows']:,} rows, {result.facts['resamples']} resamples, "
-        f"{result.facts['null_refits']} noise-floor refits.",
+        f"Triage on {result.facts['n_rows']:,} rows, {result.facts['null_refits']} noise-floor refits "
+        f"(family-wise level {result.thresholds['level']:g}).",
         format_table(_shown_pairs(result.pairs), precision=3),
         f"Why 'absent' appears: {_ISOLATED} was trained alone in an interaction-constraint group, so no path pairs it "
         "with another feature and H = 0 exactly.",
