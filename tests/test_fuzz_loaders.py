@@ -16,32 +16,22 @@ hundred cases keep the suite fast.
 
 from __future__ import annotations
 
-import importlib.util
 import json
 import random
 import re
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
+from script_module import loaded
 
 from treeprobe import load_model
 from treeprobe.errors import ModelFormatError
 from treeprobe.io.ubjson import decode_ubjson
 
-SCRIPT = Path(__file__).resolve().parent.parent / "scripts" / "fuzz_loaders.py"
-
 
 @pytest.fixture(scope="module")
 def fuzzer():
-    spec = importlib.util.spec_from_file_location("fuzz_loaders", SCRIPT)
-    module = importlib.util.module_from_spec(spec)
-    # Registered first: its dataclasses look their module up while being built.
-    sys.modules[spec.name] = module
-    spec.loader.exec_module(module)
-    yield module
-    sys.modules.pop(spec.name, None)
+    yield from loaded("fuzz_loaders")
 
 
 def _same(a, b) -> bool:

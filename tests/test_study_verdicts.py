@@ -14,31 +14,23 @@ Outside references:
 
 from __future__ import annotations
 
-import importlib.util
 import itertools
 import json
 import math
-import sys
 from argparse import Namespace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from script_module import loaded
 
 ROOT = Path(__file__).resolve().parent.parent
-SCRIPT = ROOT / "scripts" / "study_verdicts.py"
 
 
 @pytest.fixture(scope="module")
 def study():
-    spec = importlib.util.spec_from_file_location("study_verdicts", SCRIPT)
-    module = importlib.util.module_from_spec(spec)
-    # Registered first: its dataclasses look their module up while being built.
-    sys.modules[spec.name] = module
-    spec.loader.exec_module(module)
-    yield module
-    sys.modules.pop(spec.name, None)
+    yield from loaded("study_verdicts")
 
 
 # --------------------------------------------------------------------- Wilson's interval
