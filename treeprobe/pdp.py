@@ -368,7 +368,11 @@ def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray,
 
 def _subset_counts(words: np.ndarray, masks: np.ndarray) -> np.ndarray:
     """(n, k): set bits of each row of ``words`` inside each of the ``k`` row sets ``masks`` (k, n_words)."""
-    return np.stack([_popcount(words & mask) for mask in masks], axis=-1)
+    out = np.empty((masks.shape[0], words.shape[0]), dtype=np.int64)
+    for b, mask in enumerate(masks):
+        out[b] = _popcount(words & mask)
+    # A transposed view: copying into (n, k) order costs more than the strided reads that follow.
+    return out.T
 
 
 def _column_bincount(index: np.ndarray, weights: np.ndarray, length: int) -> np.ndarray:
@@ -378,6 +382,14 @@ def _column_bincount(index: np.ndarray, weights: np.ndarray, length: int) -> np.
     k = weights.shape[1]
     spots = (index[:, None] * k + np.arange(k)).ravel()
     return np.bincount(spots, weights=weights.ravel(), minlength=length * k).reshape(length, k)
+
+
+def _summed_by_index(index: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct values of ``index`` and the summed rows of ``weights`` (n, ...) at each: a sparse bincount."""
+    order = np.argsort(index, kind="stable")
+    ordered = index[order]
+    starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
+    return ordered[starts], np.add.reduceat(weights[order], starts, axis=0)
 
 
 def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
@@ -660,8 +672,9 @@ def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second
     ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
     and ``C_b`` alone, one column per row set of :attr:`_ExactJob.masks`. Boxes (first feature's interval x second feature's) are
     returned with corners snapped to the occupied cells (:attr:`RowCells.snap`);
-    the linear terms come back already summed as jumps of the per (pair, side)
-    step functions laid out at :attr:`_ExactJob.segment_offset`.
+    the linear terms come back summed as jumps of the per (pair, side) step
+    functions laid out at :attr:`_ExactJob.segment_offset`: the positions that
+    have one, and their sums (a dense layout would be mostly zeros, once per row set).
     """
     cells = job.cells
     both, alone_first, alone_second = weights
@@ -685,8 +698,8 @@ def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second
     alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
     base = job.segment_offset[np.concatenate((2 * target[combo_a], 2 * target[combo_b] + 1))]
     weight = np.concatenate((alone_first[combo_a], alone_second[combo_b]))
-    steps = _column_bincount(np.concatenate((base + low[alone], base + high[alone])), np.concatenate((weight, -weight)),
-                             int(job.segment_offset[-1]))
+    steps = _summed_by_index(np.concatenate((base + low[alone], base + high[alone])),
+                             np.concatenate((weight, -weight)))
     return boxes, steps
 
 
@@ -832,8 +845,20 @@ def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n
     return np.cumsum(present.reshape(n_pairs, span), axis=1)
 
 
+def _running_sum_down(grid: np.ndarray) -> None:
+    """``np.cumsum(grid, axis=0)`` in place; line by line when lines are long (one vector add each, several times
+    faster than numpy's cumsum over a leading axis)."""
+    if grid[0].size < 256:
+        np.cumsum(grid, axis=0, out=grid)
+        return
+    for line in range(1, grid.shape[0]):
+        grid[line] += grid[line - 1]
+
+
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray) -> np.ndarray:
     """Add to ``out`` (n_pairs, n_rows, ...), per pair, the summed weights (n_boxes, ...) of its boxes holding each row.
+
+    ``boxes`` are sorted by pair.
 
     Box corners, snapped to the cells the rows occupy, are numbered among
     the pair's own distinct corners, so a pair's grid has one line per distinct
@@ -850,30 +875,30 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray
     a_count = _pair_axes(pair, boxes["a_low"], boxes["a_high"], span, n_pairs)
     b_count = _pair_axes(pair, boxes["b_low"], boxes["b_high"], span, n_pairs)
     height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
-    order = np.argsort(pair, kind="stable")
-    bounds = np.searchsorted(pair[order], np.arange(n_pairs + 1))
+    bounds = np.searchsorted(pair, np.arange(n_pairs + 1))
+    weight = boxes["weight"]
+    trailing = weight.shape[1:]
     # Corners are built for batches of pairs holding about CELL_BUDGET / 32 boxes (~100 bytes each at work).
     per_batch = max(1, CELL_BUDGET // 32)
     cuts = np.unique(np.r_[np.searchsorted(bounds, np.arange(per_batch, bounds[-1], per_batch)), n_pairs])
     first = 0
     for last in cuts[cuts > 0]:
-        pick = order[bounds[first]:bounds[last]]
+        pick = slice(bounds[first], bounds[last])
         box_pair = pair[pick]
         # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
         a_low, a_high = a_count[box_pair, boxes["a_low"][pick]], a_count[box_pair, boxes["a_high"][pick]]
         b_low, b_high = b_count[box_pair, boxes["b_low"][pick]], b_count[box_pair, boxes["b_high"][pick]]
         line = width[box_pair]
         corner = np.stack([a_low * line + b_low, a_high * line + b_low, a_low * line + b_high,
-                           a_high * line + b_high], axis=1).ravel()
-        weight = boxes["weight"][pick]
-        trailing = weight.shape[1:]
-        weight = np.stack([weight, -weight, -weight, weight], axis=1).reshape((-1,) + trailing)
-        local = 4 * (bounds[first:last + 1] - bounds[first])
+                           a_high * line + b_high])
+        local = bounds[first:last + 1] - bounds[first]
         for k in np.flatnonzero(np.diff(local)):
-            grid = _column_bincount(corner[local[k]:local[k + 1]], weight[local[k]:local[k + 1]],
+            # Per pair, so that the signed corner weights (one column per row set) are never all held at once.
+            own = weight[bounds[first + k]:bounds[first + k + 1]]
+            grid = _column_bincount(corner[:, local[k]:local[k + 1]].ravel(), np.concatenate((own, -own, -own, own)),
                                     int(height[first + k] * width[first + k]))
             grid = grid.reshape((-1, width[first + k]) + trailing)
-            np.cumsum(grid, axis=0, out=grid)
+            _running_sum_down(grid)
             np.cumsum(grid, axis=1, out=grid)
             fa, fb = members[first + k]
             out[first + k] += grid.reshape((-1,) + trailing)[a_count[first + k, cells.rank[fa]] * width[first + k]
@@ -949,13 +974,15 @@ def _run_exact_job(job: _ExactJob, trees: np.ndarray, n_jobs: int, label: str, p
     cells, n_sets = job.cells, job.masks.shape[0]
     tasks = [(job, chunk) for chunk in tree_chunks(job.ens, trees, cells.n_rows)]
     linear = np.zeros((int(job.segment_offset[-1]), n_sets))
-    dense = {**dense, "linear": linear}
     pieces = []
 
     def consume(part: dict) -> None:
         # Dense pieces are added as they come, so memory does not grow with the number of chunks.
         if part["main"] is None:
             return
+        if part["linear"] is not None:
+            positions, sums = part.pop("linear")
+            linear[positions] += sums
         for name, total in dense.items():
             if part[name] is not None:
                 total += part.pop(name)
