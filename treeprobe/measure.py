@@ -448,8 +448,10 @@ def _rows(fitted: FittedModel, X: Any, sample: int | None, random_state: int | N
 # --------------------------------------------------------------------------- row subsets
 def _centred_in(values: np.ndarray, inside: np.ndarray, n_inside: np.ndarray) -> np.ndarray:
     """``values`` (..., n_rows, k) centred over the rows of each subset (``inside`` (n_rows, k)), zero outside it."""
-    mean = (values * inside).sum(axis=-2, keepdims=True) / n_inside
-    return (values - mean) * inside
+    mean = np.einsum("...rk,rk->...k", values, inside) / n_inside
+    centred = values - mean[..., None, :]
+    centred *= inside
+    return centred
 
 
 def subset_pair_h(
@@ -494,9 +496,11 @@ def subset_pair_h(
     column = np.array([position[pair] for pair in wanted])
     statistics = np.zeros((2, members.shape[0], subsets.shape[0]))
     for start, stop, numerator in blocks:
-        numerator = _centred_in(numerator, inside, n_inside)
-        total = main[members[start:stop, 0]] + main[members[start:stop, 1]] + numerator
-        top, bottom = np.sum(numerator**2, axis=1), np.sum(total**2, axis=1)
+        total = _centred_in(numerator, inside, n_inside)
+        top = np.einsum("prk,prk->pk", total, total)
+        total += main[members[start:stop, 0]]
+        total += main[members[start:stop, 1]]
+        bottom = np.einsum("prk,prk->pk", total, total)
         with np.errstate(divide="ignore", invalid="ignore"):
             statistics[0, start:stop] = np.where(bottom > 0, top / bottom, np.nan)
         statistics[1, start:stop] = np.sqrt(top / n_inside)
