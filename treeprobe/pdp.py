@@ -384,12 +384,13 @@ def _column_bincount(index: np.ndarray, weights: np.ndarray, length: int) -> np.
     return np.bincount(spots, weights=weights.ravel(), minlength=length * k).reshape(length, k)
 
 
-def _summed_by_index(index: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The distinct values of ``index`` and the summed rows of ``weights`` (n, ...) at each: a sparse bincount."""
-    order = np.argsort(index, kind="stable")
-    ordered = index[order]
-    starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
-    return ordered[starts], np.add.reduceat(weights[order], starts, axis=0)
+def _summed_by_index(index: np.ndarray, scale: np.ndarray, source: np.ndarray,
+                     table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct values of ``index`` and, at each, the sum of ``scale[m] * table[source[m]]`` over the items
+    ``m`` there: a sparse bincount whose wide weights (rows of ``table``, (n_sources, k)) are never gathered."""
+    positions, inverse = np.unique(index, return_inverse=True)
+    spread = csr_matrix((scale, (inverse.ravel(), source)), shape=(positions.size, table.shape[0]))
+    return positions, np.asarray(spread @ table)
 
 
 def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
@@ -666,18 +667,20 @@ class _ExactJob:
 
 
 def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
-                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, np.ndarray]:
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, tuple[np.ndarray, np.ndarray]]:
     """Cell boxes of the product terms and the step functions of the linear terms of entry pairs.
 
-    ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
-    and ``C_b`` alone, one column per row set of :attr:`_ExactJob.masks`. Boxes (first feature's interval x second feature's) are
+    ``weights`` are, per entry pair, the weight of ``C_a C_b`` (one column per
+    row set of :attr:`_ExactJob.masks`), the factor of the weights of ``C_a`` and
+    ``C_b`` alone, and, per entry, what that factor multiplies (the shares
+    ``w_L({j})``, one column per row set). Boxes (first feature's interval x second feature's) are
     returned with corners snapped to the occupied cells (:attr:`RowCells.snap`);
     the linear terms come back summed as jumps of the per (pair, side) step
     functions laid out at :attr:`_ExactJob.segment_offset`: the positions that
     have one, and their sums (a dense layout would be mostly zeros, once per row set).
     """
     cells = job.cells
-    both, alone_first, alone_second = weights
+    both, alone, share_one = weights
     n_first, n_second = intervals.count[first], intervals.count[second]
     combo, k = _expand(n_first * n_second)
     i_first = intervals.start[first][combo] + k // n_second[combo]
@@ -695,11 +698,12 @@ def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second
              "b_high": cells.snap[snap_b + high[i_second]].astype(np.int32)}
     combo_a, k_a = _expand(n_first)
     combo_b, k_b = _expand(n_second)
-    alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
+    intervals_alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
     base = job.segment_offset[np.concatenate((2 * target[combo_a], 2 * target[combo_b] + 1))]
-    weight = np.concatenate((alone_first[combo_a], alone_second[combo_b]))
-    steps = _summed_by_index(np.concatenate((base + low[alone], base + high[alone])),
-                             np.concatenate((weight, -weight)))
+    factor = np.concatenate((alone[combo_a], alone[combo_b]))
+    entry = np.concatenate((first[combo_a], second[combo_b]))
+    steps = _summed_by_index(np.concatenate((base + low[intervals_alone], base + high[intervals_alone])),
+                             np.concatenate((factor, -factor)), np.concatenate((entry, entry)), share_one)
     return boxes, steps
 
 
@@ -711,9 +715,9 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     the rows failing nothing but a given entry or pair of entries are a few
     AND/popcount steps, counted inside each row set of ``job.masks`` (the
     shares, and so the weights of ``main``, ``boxes`` and ``linear``, carry one
-    column per row set). Per-row functions come back as weighted cell intervals
-    (``main``), cell boxes and the jumps of per-feature step functions (``boxes``
-    and ``linear``, the pair terms), evaluated once for all groups, and as dense
+    column per row set). Per-row functions come back as the summed jumps of
+    weighted cell intervals (``main``), cell boxes and the jumps of per-feature
+    step functions (``boxes`` and ``linear``, the pair terms), evaluated once for all groups, and as dense
     sums where they need whole rows (``rest``, ``triple``); ``rest_leaf`` holds the
     per-leaf weights read at the leaves the rows reach.
     """
@@ -735,8 +739,10 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     exactly_count = _subset_counts(exactly, job.masks)
     share_one = (none[leaf] + exactly_count) / n_kept
     value = table.leaf_value[leaf]
-    parts["main"] = (table.entry_feature[intervals.entry], intervals.low, intervals.high,
-                     (value[:, None] * share_one)[intervals.entry])
+    base = cells.prefix_offset[table.entry_feature[intervals.entry]]
+    scale = value[intervals.entry]
+    parts["main"] = _summed_by_index(np.r_[base + intervals.low, base + intervals.high], np.r_[scale, -scale],
+                                     np.r_[intervals.entry, intervals.entry], share_one)
     if job.against_rest:
         passing = _popcount(passes) / n_rows
         parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
@@ -751,7 +757,7 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
         share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_kept
         leaf_value = table.leaf_value[combo_leaf][:, None]
         parts["boxes"], parts["linear"] = _pair_boxes(job, intervals, first, second, target, (
-            leaf_value * share_two, -leaf_value * share_one[first], -leaf_value * share_one[second]))
+            leaf_value * share_two, -leaf_value[:, 0], share_one))
     if triple_keys.size:
         # Triples and the rest are asked for with the single row set of all rows only.
         parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one[:, 0], triple_keys,
@@ -806,13 +812,11 @@ def _interaction_term(
     return term * table.leaf_value[leaf][:, None]
 
 
-def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: np.ndarray,
-                   weight: np.ndarray) -> np.ndarray:
-    """(p, n_rows, ...): per feature, the summed weights (n_intervals, ...) of the cell intervals holding each row's cell."""
-    base = cells.prefix_offset[feature]
-    steps = _column_bincount(np.r_[base + low, base + high], np.concatenate((weight, -weight)),
-                             int(cells.prefix_offset[-1]))
-    out = np.empty((cells.n_cells.size, cells.n_rows) + weight.shape[1:])
+def _interval_sums(cells: RowCells, steps: np.ndarray) -> np.ndarray:
+    """(p, n_rows, ...): per feature, the summed weights of the cell intervals holding each row's cell, from the
+    intervals' jumps ``steps`` (+weight at the first cell, -weight one past the last; laid out at
+    :attr:`RowCells.prefix_offset`)."""
+    out = np.empty((cells.n_cells.size, cells.n_rows) + steps.shape[1:])
     for j in range(out.shape[0]):
         out[j] = np.cumsum(steps[cells.prefix_offset[j]:cells.prefix_offset[j + 1]], axis=0)[cells.cell[j]]
     return out
@@ -966,31 +970,33 @@ def _run_exact_job(job: _ExactJob, trees: np.ndarray, n_jobs: int, label: str, p
                    dense: dict[str, np.ndarray]) -> tuple[np.ndarray, dict | None, np.ndarray, list[dict]]:
     """Run :func:`_exact_chunk` over the tree chunks of ``trees``; the pieces every pair and row-set run needs.
 
-    Dense pieces named in ``dense`` are added into its arrays. Returns ``main``
-    (p, n_rows, k) from :func:`_interval_sums`, the joined pair boxes sorted by
+    Dense pieces named in ``dense`` are added into its arrays, the jumps of
+    ``main`` and ``linear`` as they come. Returns ``main`` (p, n_rows, k) from
+    :func:`_interval_sums`, the joined pair boxes sorted by
     pair (None without pairs), the summed linear jumps (n_segments, k) and the
     chunks' remaining pieces.
     """
     cells, n_sets = job.cells, job.masks.shape[0]
     tasks = [(job, chunk) for chunk in tree_chunks(job.ens, trees, cells.n_rows)]
     linear = np.zeros((int(job.segment_offset[-1]), n_sets))
+    main_steps = np.zeros((int(cells.prefix_offset[-1]), n_sets))
     pieces = []
 
     def consume(part: dict) -> None:
         # Dense pieces are added as they come, so memory does not grow with the number of chunks.
         if part["main"] is None:
             return
-        if part["linear"] is not None:
-            positions, sums = part.pop("linear")
-            linear[positions] += sums
+        for name, steps in (("main", main_steps), ("linear", linear)):
+            if part[name] is not None:
+                positions, sums = part.pop(name)
+                steps[positions] += sums
         for name, total in dense.items():
             if part[name] is not None:
                 total += part.pop(name)
         pieces.append(part)
 
     _run_tasks(_exact_chunk, tasks, n_jobs, label, progress, consume=consume)
-    main = (_interval_sums(cells, *_joined([part.pop("main") for part in pieces], 4)) if pieces
-            else np.zeros((cells.n_cells.size, cells.n_rows, n_sets)))
+    main = _interval_sums(cells, main_steps)
     boxes = None
     if job.pair_keys.size and pieces:
         # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
