@@ -48,7 +48,9 @@ point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
 of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
 ``F - F_notj`` for H-statistics, from the tree structure) and
 :func:`brute_parts` (``F_S`` by averaging predictions), besides the row
-preparation helpers. Paths and parents come from :mod:`treeprobe.paths`.
+preparation helpers, and :func:`exact_subset_parts` (``F_j`` and the pair
+terms of many row subsets from one pass: the row sets above are built once
+for all rows and each share is counted inside each subset). Paths and parents come from :mod:`treeprobe.paths`.
 
 References
 ----------
