@@ -83,6 +83,7 @@ from .pdp import (
     check_output,
     choose_exact,
     exact_parts,
+    exact_subset_parts,
     feature_index,
     prepare_rows,
     resolve_model,
@@ -442,6 +443,68 @@ def _rows(fitted: FittedModel, X: Any, sample: int | None, random_state: int | N
     data = _sample_rows(prepare_rows(fitted, X, min_rows=2), sample, random_state)
     _warn_constant(data)
     return data
+
+
+# --------------------------------------------------------------------------- row subsets
+def _centred_in(values: np.ndarray, inside: np.ndarray, n_inside: np.ndarray) -> np.ndarray:
+    """``values`` (..., n_rows, k) centred over the rows of each subset (``inside`` (n_rows, k)), zero outside it."""
+    mean = np.einsum("...rk,rk->...k", values, inside) / n_inside
+    centred = values - mean[..., None, :]
+    centred *= inside
+    return centred
+
+
+def subset_pair_h(
+    ensemble: Any,
+    X: Any,
+    pairs: Sequence[Sequence[Any]],
+    subsets: np.ndarray,
+    *,
+    output: int | None = None,
+    progress: bool | None = None,
+) -> np.ndarray:
+    """H² and h (eq. 44) of ``pairs`` on many row subsets of ``X`` from one exact pass, shape (k, 2, n_pairs).
+
+    Row ``i`` of ``X`` is in subset ``b`` when ``subsets[b, i]``; each subset is
+    both the background and the evaluation rows, so entry ``[b, :, m]`` equals
+    ``h2`` and ``h`` of ``pairs[m]`` from ``h_statistic(ensemble, X[subsets[b]],
+    pairs=pairs, against_rest=False, sample=None, output=output)`` (to
+    rounding), without one engine pass per subset
+    (:func:`treeprobe.pdp.exact_subset_parts`). ``output`` None means output 0
+    (single-output models). Pairs name features by name or position. For the
+    resampling intervals of :func:`treeprobe.triage`; checks ``X`` against the model.
+    """
+    fitted = resolve_model(ensemble)
+    if not fitted.is_tree:
+        raise ParameterError("subset H-statistics need a tree ensemble")
+    data = prepare_rows(fitted, X, min_rows=2)
+    subsets = np.asarray(subsets, dtype=bool)
+    if subsets.ndim != 2 or subsets.shape[1] != data.n_rows or np.any(subsets.sum(axis=1) < 2):
+        raise ParameterError(f"subsets must be a boolean (k, {data.n_rows}) matrix with at least 2 rows in every "
+                             f"subset, got shape {subsets.shape}")
+    output_index = 0 if output is None else check_output(fitted.ensemble, output)
+    wanted = [tuple(sorted(feature_index(data.names, f, parameter="pairs") for f in pair)) for pair in pairs]
+    out = np.zeros((subsets.shape[0], 2, len(wanted)))
+    if not wanted:
+        return out
+    main, members, blocks = exact_subset_parts(fitted.ensemble, data.matrix, output_index, wanted, subsets,
+                                               progress=progress)
+    inside = subsets.T.astype(np.float64)
+    n_inside = inside.sum(axis=0)
+    main = _centred_in(main, inside, n_inside)
+    position = {tuple(pair): m for m, pair in enumerate(members.tolist())}
+    column = np.array([position[pair] for pair in wanted])
+    statistics = np.zeros((2, members.shape[0], subsets.shape[0]))
+    for start, stop, numerator in blocks:
+        total = _centred_in(numerator, inside, n_inside)
+        top = np.einsum("prk,prk->pk", total, total)
+        total += main[members[start:stop, 0]]
+        total += main[members[start:stop, 1]]
+        bottom = np.einsum("prk,prk->pk", total, total)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            statistics[0, start:stop] = np.where(bottom > 0, top / bottom, np.nan)
+        statistics[1, start:stop] = np.sqrt(top / n_inside)
+    return statistics[:, column].transpose(2, 0, 1)
 
 
 # --------------------------------------------------------------------------- public

@@ -48,7 +48,9 @@ point; :mod:`treeprobe.measure` calls only :func:`exact_parts` (per-row pieces
 of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
 ``F - F_notj`` for H-statistics, from the tree structure) and
 :func:`brute_parts` (``F_S`` by averaging predictions), besides the row
-preparation helpers. Paths and parents come from :mod:`treeprobe.paths`.
+preparation helpers, and :func:`exact_subset_parts` (``F_j`` and the pair
+terms of many row subsets from one pass: the row sets above are built once
+for all rows and each share is counted inside each subset). Paths and parents come from :mod:`treeprobe.paths`.
 
 References
 ----------
@@ -64,7 +66,7 @@ import itertools
 import os
 import time
 import warnings
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -366,6 +368,33 @@ def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray,
     return out[:, :n_rows]
 
 
+def _subset_counts(words: np.ndarray, masks: np.ndarray) -> np.ndarray:
+    """(n, k): set bits of each row of ``words`` inside each of the ``k`` row sets ``masks`` (k, n_words)."""
+    out = np.empty((masks.shape[0], words.shape[0]), dtype=np.int64)
+    for b, mask in enumerate(masks):
+        out[b] = _popcount(words & mask)
+    # A transposed view: copying into (n, k) order costs more than the strided reads that follow.
+    return out.T
+
+
+def _column_bincount(index: np.ndarray, weights: np.ndarray, length: int) -> np.ndarray:
+    """``np.bincount`` of every column of ``weights`` (n,) or (n, k) at once: shape (length,) or (length, k)."""
+    if weights.ndim == 1:
+        return np.bincount(index, weights=weights, minlength=length)
+    k = weights.shape[1]
+    spots = (index[:, None] * k + np.arange(k)).ravel()
+    return np.bincount(spots, weights=weights.ravel(), minlength=length * k).reshape(length, k)
+
+
+def _summed_by_index(index: np.ndarray, scale: np.ndarray, source: np.ndarray,
+                     table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct values of ``index`` and, at each, the sum of ``scale[m] * table[source[m]]`` over the items
+    ``m`` there: a sparse bincount whose wide weights (rows of ``table``, (n_sources, k)) are never gathered."""
+    positions, inverse = np.unique(index, return_inverse=True)
+    spread = csr_matrix((scale, (inverse.ravel(), source)), shape=(positions.size, table.shape[0]))
+    return positions, np.asarray(spread @ table)
+
+
 def _unpack(words: np.ndarray, n_rows: int) -> np.ndarray:
     """Boolean (k, n_rows) matrix of uint64 row sets (bit ``i % 64`` of word ``i // 64`` is row ``i``)."""
     return np.unpackbits(np.ascontiguousarray(words).view(np.uint8), axis=-1, count=n_rows, bitorder="little")
@@ -629,6 +658,8 @@ class _ExactJob:
     pair_members: np.ndarray     # (n_pairs, 2) their features
     triple_keys: np.ndarray
     against_rest: bool
+    # (k, n_words) row sets, each both background and evaluation rows of one run (all rows: ``cells.valid``).
+    masks: np.ndarray
 
     @property
     def segment_offset(self) -> np.ndarray:
@@ -638,23 +669,26 @@ class _ExactJob:
 
 
 def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second: np.ndarray, target: np.ndarray,
-                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, np.ndarray]:
+                weights: tuple[np.ndarray, np.ndarray, np.ndarray]) -> tuple[dict, tuple[np.ndarray, np.ndarray]]:
     """Cell boxes of the product terms and the step functions of the linear terms of entry pairs.
 
-    ``weights`` are, per entry pair, the weight of ``C_a C_b`` and of ``C_a``
-    and ``C_b`` alone. Boxes (first feature's interval x second feature's) are
+    ``weights`` are, per entry pair, the weight of ``C_a C_b`` (one column per
+    row set of :attr:`_ExactJob.masks`), the factor of the weights of ``C_a`` and
+    ``C_b`` alone, and, per entry, what that factor multiplies (the shares
+    ``w_L({j})``, one column per row set). Boxes (first feature's interval x second feature's) are
     returned with corners snapped to the occupied cells (:attr:`RowCells.snap`);
-    the linear terms come back already summed as jumps of the per (pair, side)
-    step functions laid out at :attr:`_ExactJob.segment_offset`.
+    the linear terms come back summed as jumps of the per (pair, side) step
+    functions laid out at :attr:`_ExactJob.segment_offset`: the positions that
+    have one, and their sums (a dense layout would be mostly zeros, once per row set).
     """
     cells = job.cells
-    both, alone_first, alone_second = weights
+    both, alone, share_one = weights
     n_first, n_second = intervals.count[first], intervals.count[second]
     combo, k = _expand(n_first * n_second)
     i_first = intervals.start[first][combo] + k // n_second[combo]
     i_second = intervals.start[second][combo] + k % n_second[combo]
     low, high = intervals.low, intervals.high
-    keep = (low[i_first] < high[i_first]) & (low[i_second] < high[i_second]) & (both[combo] != 0)
+    keep = (low[i_first] < high[i_first]) & (low[i_second] < high[i_second]) & np.any(both[combo] != 0, axis=1)
     combo, i_first, i_second = combo[keep], i_first[keep], i_second[keep]
     pair = target[combo]
     snap_a = cells.snap_offset[job.pair_members[pair, 0]]
@@ -666,11 +700,12 @@ def _pair_boxes(job: _ExactJob, intervals: EntryCells, first: np.ndarray, second
              "b_high": cells.snap[snap_b + high[i_second]].astype(np.int32)}
     combo_a, k_a = _expand(n_first)
     combo_b, k_b = _expand(n_second)
-    alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
+    intervals_alone = np.concatenate((intervals.start[first][combo_a] + k_a, intervals.start[second][combo_b] + k_b))
     base = job.segment_offset[np.concatenate((2 * target[combo_a], 2 * target[combo_b] + 1))]
-    weight = np.concatenate((alone_first[combo_a], alone_second[combo_b]))
-    steps = np.bincount(np.concatenate((base + low[alone], base + high[alone])),
-                        weights=np.concatenate((weight, -weight)), minlength=int(job.segment_offset[-1]))
+    factor = np.concatenate((alone[combo_a], alone[combo_b]))
+    entry = np.concatenate((first[combo_a], second[combo_b]))
+    steps = _summed_by_index(np.concatenate((base + low[intervals_alone], base + high[intervals_alone])),
+                             np.concatenate((factor, -factor)), np.concatenate((entry, entry)), share_one)
     return boxes, steps
 
 
@@ -680,9 +715,11 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     Shares ``w_L(S)`` come from bit-packed row sets: per leaf, the rows failing
     at least one, two and three of its path features (bit-sliced counting), so
     the rows failing nothing but a given entry or pair of entries are a few
-    AND/popcount steps. Per-row functions come back as weighted cell intervals
-    (``main``), cell boxes and the jumps of per-feature step functions (``boxes``
-    and ``linear``, the pair terms), evaluated once for all groups, and as dense
+    AND/popcount steps, counted inside each row set of ``job.masks`` (the
+    shares, and so the weights of ``main``, ``boxes`` and ``linear``, carry one
+    column per row set). Per-row functions come back as the summed jumps of
+    weighted cell intervals (``main``), cell boxes and the jumps of per-feature
+    step functions (``boxes`` and ``linear``, the pair terms), evaluated once for all groups, and as dense
     sums where they need whole rows (``rest``, ``triple``); ``rest_leaf`` holds the
     per-leaf weights read at the leaves the rows reach.
     """
@@ -698,13 +735,16 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     fail = passes ^ cells.valid
     ones, twos, threes = _failure_counts(table, fail)
     leaf = table.entry_leaf
-    none = _popcount(~ones & cells.valid)
+    n_kept = _popcount(job.masks)
+    none = _subset_counts(~ones, job.masks)
     exactly = ~twos[leaf] & fail
-    exactly_count = _popcount(exactly)
-    share_one = (none[leaf] + exactly_count) / n_rows
+    exactly_count = _subset_counts(exactly, job.masks)
+    share_one = (none[leaf] + exactly_count) / n_kept
     value = table.leaf_value[leaf]
-    parts["main"] = (table.entry_feature[intervals.entry], intervals.low, intervals.high,
-                     (value * share_one)[intervals.entry])
+    base = cells.prefix_offset[table.entry_feature[intervals.entry]]
+    scale = value[intervals.entry]
+    parts["main"] = _summed_by_index(np.r_[base + intervals.low, base + intervals.high], np.r_[scale, -scale],
+                                     np.r_[intervals.entry, intervals.entry], share_one)
     if job.against_rest:
         passing = _popcount(passes) / n_rows
         parts["rest_leaf"] = (table.leaf_node[leaf], table.entry_feature, value * (1.0 - passing))
@@ -715,13 +755,14 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
         wanted = target >= 0
         first, second, target = first[wanted], second[wanted], target[wanted]
         combo_leaf = leaf[first]
-        double = _popcount(~threes[combo_leaf] & fail[first] & fail[second])
-        share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_rows
-        leaf_value = table.leaf_value[combo_leaf]
+        double = _subset_counts(~threes[combo_leaf] & fail[first] & fail[second], job.masks)
+        share_two = (none[combo_leaf] + exactly_count[first] + exactly_count[second] + double) / n_kept
+        leaf_value = table.leaf_value[combo_leaf][:, None]
         parts["boxes"], parts["linear"] = _pair_boxes(job, intervals, first, second, target, (
-            leaf_value * share_two, -leaf_value * share_one[first], -leaf_value * share_one[second]))
+            leaf_value * share_two, -leaf_value[:, 0], share_one))
     if triple_keys.size:
-        parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one, triple_keys,
+        # Triples and the rest are asked for with the single row set of all rows only.
+        parts["triple"] = _triple_sums(table, _unpack(fail, n_rows).astype(bool), share_one[:, 0], triple_keys,
                                        n_features)
     return parts
 
@@ -773,26 +814,24 @@ def _interaction_term(
     return term * table.leaf_value[leaf][:, None]
 
 
-def _interval_sums(cells: RowCells, feature: np.ndarray, low: np.ndarray, high: np.ndarray,
-                   weight: np.ndarray) -> np.ndarray:
-    """(p, n_rows): per feature, the summed weights of the cell intervals holding each row's cell."""
-    base = cells.prefix_offset[feature]
-    steps = np.bincount(np.r_[base + low, base + high], weights=np.r_[weight, -weight],
-                        minlength=int(cells.prefix_offset[-1]))
-    out = np.empty((cells.n_cells.size, cells.n_rows))
+def _interval_sums(cells: RowCells, steps: np.ndarray) -> np.ndarray:
+    """(p, n_rows, ...): per feature, the summed weights of the cell intervals holding each row's cell, from the
+    intervals' jumps ``steps`` (+weight at the first cell, -weight one past the last; laid out at
+    :attr:`RowCells.prefix_offset`)."""
+    out = np.empty((cells.n_cells.size, cells.n_rows) + steps.shape[1:])
     for j in range(out.shape[0]):
-        out[j] = np.cumsum(steps[cells.prefix_offset[j]:cells.prefix_offset[j + 1]])[cells.cell[j]]
+        out[j] = np.cumsum(steps[cells.prefix_offset[j]:cells.prefix_offset[j + 1]], axis=0)[cells.cell[j]]
     return out
 
 
 def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
-    """(n_pairs, n_rows): the linear terms of each pair, a step function of each of its two features,
-    from their summed jumps (``steps``, segments starting at ``offset``)."""
+    """(n_pairs, n_rows, ...): the linear terms of each pair, a step function of each of its two features,
+    from their summed jumps (``steps``, segments starting at ``offset``; trailing axes kept)."""
     size = np.diff(offset)
     # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
-    running = np.cumsum(steps)
-    running -= np.repeat(np.r_[0.0, running[offset[1:-1] - 1]], size)
-    out = np.zeros((members.shape[0], cells.n_rows))
+    running = np.cumsum(steps, axis=0)
+    running -= np.repeat(np.concatenate((np.zeros((1,) + steps.shape[1:]), running[offset[1:-1] - 1])), size, axis=0)
+    out = np.zeros((members.shape[0], cells.n_rows) + steps.shape[1:])
     # Feature by feature: a small table of that feature's step functions, read at the rows' cells.
     for side in (0, 1):
         for feature in np.unique(members[:, side]):
@@ -812,8 +851,20 @@ def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n
     return np.cumsum(present.reshape(n_pairs, span), axis=1)
 
 
+def _running_sum_down(grid: np.ndarray) -> None:
+    """``np.cumsum(grid, axis=0)`` in place; line by line when lines are long (one vector add each, several times
+    faster than numpy's cumsum over a leading axis)."""
+    if grid[0].size < 256:
+        np.cumsum(grid, axis=0, out=grid)
+        return
+    for line in range(1, grid.shape[0]):
+        grid[line] += grid[line - 1]
+
+
 def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray) -> np.ndarray:
-    """Add to ``out`` (n_pairs, n_rows), per pair, the summed weights of its boxes holding each row.
+    """Add to ``out`` (n_pairs, n_rows, ...), per pair, the summed weights (n_boxes, ...) of its boxes holding each row.
+
+    ``boxes`` are sorted by pair.
 
     Box corners, snapped to the cells the rows occupy, are numbered among
     the pair's own distinct corners, so a pair's grid has one line per distinct
@@ -830,32 +881,34 @@ def _box_sums(cells: RowCells, members: np.ndarray, boxes: dict, out: np.ndarray
     a_count = _pair_axes(pair, boxes["a_low"], boxes["a_high"], span, n_pairs)
     b_count = _pair_axes(pair, boxes["b_low"], boxes["b_high"], span, n_pairs)
     height, width = a_count[:, -1] + 1, b_count[:, -1] + 1
-    order = np.argsort(pair, kind="stable")
-    bounds = np.searchsorted(pair[order], np.arange(n_pairs + 1))
+    bounds = np.searchsorted(pair, np.arange(n_pairs + 1))
+    weight = boxes["weight"]
+    trailing = weight.shape[1:]
     # Corners are built for batches of pairs holding about CELL_BUDGET / 32 boxes (~100 bytes each at work).
     per_batch = max(1, CELL_BUDGET // 32)
     cuts = np.unique(np.r_[np.searchsorted(bounds, np.arange(per_batch, bounds[-1], per_batch)), n_pairs])
     first = 0
     for last in cuts[cuts > 0]:
-        pick = order[bounds[first]:bounds[last]]
+        pick = slice(bounds[first], bounds[last])
         box_pair = pair[pick]
         # Grid line of a corner: its rank among the pair's corners, after the leading zero line.
         a_low, a_high = a_count[box_pair, boxes["a_low"][pick]], a_count[box_pair, boxes["a_high"][pick]]
         b_low, b_high = b_count[box_pair, boxes["b_low"][pick]], b_count[box_pair, boxes["b_high"][pick]]
         line = width[box_pair]
         corner = np.stack([a_low * line + b_low, a_high * line + b_low, a_low * line + b_high,
-                           a_high * line + b_high], axis=1).ravel()
-        weight = boxes["weight"][pick]
-        weight = np.stack([weight, -weight, -weight, weight], axis=1).ravel()
-        local = 4 * (bounds[first:last + 1] - bounds[first])
+                           a_high * line + b_high])
+        local = bounds[first:last + 1] - bounds[first]
         for k in np.flatnonzero(np.diff(local)):
-            grid = np.bincount(corner[local[k]:local[k + 1]], weights=weight[local[k]:local[k + 1]],
-                               minlength=int(height[first + k] * width[first + k])).reshape(-1, width[first + k])
-            np.cumsum(grid, axis=0, out=grid)
+            # Per pair, so that the signed corner weights (one column per row set) are never all held at once.
+            own = weight[bounds[first + k]:bounds[first + k + 1]]
+            grid = _column_bincount(corner[:, local[k]:local[k + 1]].ravel(), np.concatenate((own, -own, -own, own)),
+                                    int(height[first + k] * width[first + k]))
+            grid = grid.reshape((-1, width[first + k]) + trailing)
+            _running_sum_down(grid)
             np.cumsum(grid, axis=1, out=grid)
             fa, fb = members[first + k]
-            out[first + k] += grid.ravel()[a_count[first + k, cells.rank[fa]] * width[first + k]
-                                           + b_count[first + k, cells.rank[fb]]]
+            out[first + k] += grid.reshape((-1,) + trailing)[a_count[first + k, cells.rank[fa]] * width[first + k]
+                                                             + b_count[first + k, cells.rank[fb]]]
         first = last
     return out
 
@@ -915,6 +968,64 @@ class ExactParts:
     rest: np.ndarray
 
 
+def _run_exact_job(job: _ExactJob, trees: np.ndarray, n_jobs: int, label: str, progress: bool | None,
+                   dense: dict[str, np.ndarray]) -> tuple[np.ndarray, dict | None, np.ndarray, list[dict]]:
+    """Run :func:`_exact_chunk` over the tree chunks of ``trees``; the pieces every pair and row-set run needs.
+
+    Dense pieces named in ``dense`` are added into its arrays, the jumps of
+    ``main`` and ``linear`` as they come. Returns ``main`` (p, n_rows, k) from
+    :func:`_interval_sums`, the joined pair boxes sorted by
+    pair (None without pairs), the summed linear jumps (n_segments, k) and the
+    chunks' remaining pieces.
+    """
+    cells, n_sets = job.cells, job.masks.shape[0]
+    tasks = [(job, chunk) for chunk in tree_chunks(job.ens, trees, cells.n_rows)]
+    linear = np.zeros((int(job.segment_offset[-1]), n_sets))
+    main_steps = np.zeros((int(cells.prefix_offset[-1]), n_sets))
+    pieces = []
+
+    def consume(part: dict) -> None:
+        # Dense pieces are added as they come, so memory does not grow with the number of chunks.
+        if part["main"] is None:
+            return
+        for name, steps in (("main", main_steps), ("linear", linear)):
+            if part[name] is not None:
+                positions, sums = part.pop(name)
+                steps[positions] += sums
+        for name, total in dense.items():
+            if part[name] is not None:
+                total += part.pop(name)
+        pieces.append(part)
+
+    _run_tasks(_exact_chunk, tasks, n_jobs, label, progress, consume=consume)
+    main = _interval_sums(cells, main_steps)
+    boxes = None
+    if job.pair_keys.size and pieces:
+        # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
+        boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
+                 for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
+        order = np.argsort(boxes["pair"], kind="stable")
+        boxes = {name: values[order] for name, values in boxes.items()}
+    return main, boxes, linear, pieces
+
+
+def _pair_sums(job: _ExactJob, boxes: dict | None, linear: np.ndarray, start: int, stop: int) -> np.ndarray:
+    """(stop - start, n_rows, k): ``F_jk - F_j - F_k`` (up to a constant) of the pairs ``start:stop`` of the job.
+
+    ``boxes`` are sorted by pair, so a range of pairs owns a slice of them, and a
+    slice of the linear jumps (:attr:`_ExactJob.segment_offset`).
+    """
+    cells, members = job.cells, job.pair_members[start:stop]
+    if boxes is None:
+        return np.zeros((stop - start, cells.n_rows, linear.shape[1]))
+    segments = job.segment_offset[2 * start:2 * stop + 1]
+    low, high = np.searchsorted(boxes["pair"], [start, stop])
+    part = {name: values[low:high] for name, values in boxes.items()}
+    part["pair"] = part["pair"] - start
+    return _box_sums(cells, members, part,
+                     _linear_sums(cells, members, segments - segments[0], linear[segments[0]:segments[-1]]))
+
+
 def exact_parts(
     ens: ForestGraph,
     matrix: np.ndarray,
@@ -938,40 +1049,21 @@ def exact_parts(
     triple_keys = encode_sets(np.array(triples, dtype=np.int64).reshape(-1, 3), p)
     sorted_pairs, sorted_triples = np.unique(pair_keys), np.unique(triple_keys)
     trees, node_value = leaf_value_column(ens, output)
-    job = _ExactJob(ens=ens, cells=row_cells(ens, matrix), node_value=node_value, links=parent_links(ens),
-                    pair_keys=sorted_pairs, pair_members=decode_sets(sorted_pairs, p, 2), triple_keys=sorted_triples,
-                    against_rest=bool(against_rest))
-    tasks = [(job, chunk) for chunk in tree_chunks(ens, trees, n_rows)]
+    cells = row_cells(ens, matrix)
+    job = _ExactJob(ens=ens, cells=cells, node_value=node_value, links=parent_links(ens), pair_keys=sorted_pairs,
+                    pair_members=decode_sets(sorted_pairs, p, 2), triple_keys=sorted_triples,
+                    against_rest=bool(against_rest), masks=cells.valid[None])
     rest = np.zeros((p, n_rows))
     triple = np.zeros((sorted_triples.size, n_rows))
-    linear = np.zeros(int(job.segment_offset[-1]))
-    pieces = []
-
-    def consume(part: dict) -> None:
-        # Dense pieces are added as they come, so memory does not grow with the number of chunks.
-        if part["main"] is None:
-            return
-        for name, total in (("rest", rest), ("triple", triple), ("linear", linear)):
-            if part[name] is not None:
-                total += part.pop(name)
-        pieces.append(part)
-
-    _run_tasks(_exact_chunk, tasks, n_jobs, f"H-statistics (exact, output {output})", progress, consume=consume)
+    main, boxes, linear, pieces = _run_exact_job(job, trees, n_jobs, f"H-statistics (exact, output {output})",
+                                                 progress, {"rest": rest, "triple": triple})
     leaves = ens.apply(matrix, checked=True)[:, trees]
-    main = _interval_sums(job.cells, *_joined([part.pop("main") for part in pieces], 4)) if pieces else np.zeros(
-        (p, n_rows))
-    pair = np.zeros((sorted_pairs.size, n_rows))
-    if sorted_pairs.size and pieces:
-        # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
-        boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
-                 for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
-        pair = _box_sums(job.cells, job.pair_members, boxes,
-                         _linear_sums(job.cells, job.pair_members, job.segment_offset, linear))
+    pair = _pair_sums(job, boxes, linear, 0, sorted_pairs.size)
     if against_rest and pieces:
         rest += _reached_leaf_sums(leaves, ens.n_nodes, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
-        main=main.T,
-        pair=pair.T[:, np.searchsorted(sorted_pairs, pair_keys)],
+        main=main[..., 0].T,
+        pair=pair[..., 0].T[:, np.searchsorted(sorted_pairs, pair_keys)],
         triple=triple.T[:, np.searchsorted(sorted_triples, triple_keys)],
         prediction=node_value[leaves].sum(axis=1),
         rest=rest.T,
@@ -1295,3 +1387,64 @@ def partial_dependence(
     predict = ensemble_predictor(fitted.ensemble, scale) if fitted.is_tree else fitted.predict
     return brute_partial_dependence(predict, data, points, columns, output,
                                     predictor_row_bytes(fitted.ensemble, data.matrix.shape[1]))
+
+
+# --------------------------------------------------------------------------- exact engine on row subsets
+def _subset_masks(subsets: np.ndarray, n_words: int) -> np.ndarray:
+    """(k, n_words) uint64 row sets of a boolean (k, n_rows) matrix (bit ``i % 64`` of word ``i // 64`` is row ``i``)."""
+    n_sets, n_rows = subsets.shape
+    bits = np.zeros((n_sets, n_words * 64), dtype=np.uint64)
+    bits[:, :n_rows] = subsets
+    bits = bits.reshape(n_sets, n_words, 64) << np.arange(64, dtype=np.uint64)
+    return np.bitwise_or.reduce(bits, axis=2)
+
+
+def exact_subset_parts(
+    ens: ForestGraph,
+    matrix: np.ndarray,
+    output: int,
+    pairs: Sequence[tuple[int, int]],
+    subsets: np.ndarray,
+    *,
+    progress: bool | None = None,
+) -> tuple[np.ndarray, np.ndarray, Iterator[tuple[int, int, np.ndarray]]]:
+    """The exact engine for many row subsets at once: per-row pieces of ``F_j`` and ``F_jk - F_j - F_k``.
+
+    Row subset ``b`` (row ``i`` is in it when ``subsets[b, i]``) is both the
+    background and the evaluation rows of its own partial dependence functions,
+    as if :func:`exact_parts` ran on ``matrix[subsets[b]]``. Everything that does
+    not depend on which rows are in a subset (the rows' cells, the path
+    tables, which rows fail which conditions, the boxes of every pair) is built
+    once; only the shares ``w_L(S)`` are counted per subset (a popcount of the
+    failure row sets AND the subset), and the per-row sums carry one column per
+    subset.
+
+    Returns
+    -------
+    main : ndarray (p, n_rows, k)
+        ``F_j`` of subset ``b`` at every row (rows outside the subset hold values too: ignore them).
+    members : ndarray (n_unique_pairs, 2)
+        The distinct ``pairs`` (ascending features), in the order of the blocks.
+    blocks : iterator of (start, stop, ndarray (stop - start, n_rows, k))
+        ``F_jk - F_j - F_k`` of pairs ``members[start:stop]``, in blocks of about
+        ``CELL_BUDGET / 4`` values so that all pairs need not be held at once.
+
+    Every value is uncentred, exact up to an additive constant per (function, subset).
+    """
+    p, n_rows = ens.n_features, matrix.shape[0]
+    subsets = np.asarray(subsets, dtype=bool).reshape(-1, n_rows)
+    keys = np.unique(encode_sets(np.array(pairs, dtype=np.int64).reshape(-1, 2), p))
+    trees, node_value = leaf_value_column(ens, output)
+    cells = row_cells(ens, matrix)
+    job = _ExactJob(ens=ens, cells=cells, node_value=node_value, links=parent_links(ens), pair_keys=keys,
+                    pair_members=decode_sets(keys, p, 2), triple_keys=np.zeros(0, dtype=np.int64),
+                    against_rest=False, masks=_subset_masks(subsets, cells.n_words))
+    main, boxes, linear, _ = _run_exact_job(job, trees, 1, f"resampling (exact, output {output})", progress, {})
+    per_block = max(1, CELL_BUDGET // 4 // max(n_rows * subsets.shape[0], 1))
+
+    def blocks() -> Iterator[tuple[int, int, np.ndarray]]:
+        for start in range(0, keys.size, per_block):
+            stop = min(start + per_block, keys.size)
+            yield start, stop, _pair_sums(job, boxes, linear, start, stop)
+
+    return main, job.pair_members, blocks()

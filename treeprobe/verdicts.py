@@ -86,10 +86,9 @@ from .dependence import pair_dependence
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
 from .graph import ForestGraph
 from .io import load_model
-from .measure import h_statistic
+from .measure import h_statistic, subset_pair_h
 from .output import to_jsonable
 from .parallel import run_tasks, threads_per_fit
-from .progress import progress_bar
 from .refit import (
     BINARY,
     REGRESSION,
@@ -392,14 +391,14 @@ def _subsample_intervals(graph: ForestGraph, rows: Any, point: np.ndarray, names
     # bootstrap sample repeats rows, and since the rows are both the partial-dependence
     # background and the evaluation points, repeated rows bias H (we saw bootstrap
     # intervals lying wholly above the point value).
+    # All subsamples share one exact pass over the trees (subset_pair_h); each equals
+    # _pair_h on its own rows.
     n_rows = len(rows)
     half = max(2, n_rows // 2)
-    subs = np.empty((resamples, 2, len(names)))
-    with progress_bar(resamples, "resampling", enabled=progress) as bar:
-        for b in range(resamples):
-            pick = np.sort(rng.choice(n_rows, size=half, replace=False))
-            subs[b] = _pair_h(graph, _take_rows(rows, pick), names, output)
-            bar.update()
+    subsets = np.zeros((resamples, n_rows), dtype=bool)
+    for b in range(resamples):
+        subsets[b, rng.choice(n_rows, size=half, replace=False)] = True
+    subs = subset_pair_h(graph, rows, names, subsets, output=output, progress=progress)
     alpha = (1.0 - confidence) / 2.0
     shrink = np.sqrt(half / n_rows)
     spread = subs - point[None]
