@@ -653,8 +653,16 @@ def _floor_account(recipe: Recipe, base: Recipe, target: np.ndarray, fitted: np.
 
 
 # ------------------------------------------------------------------ tables
-def _lookup(table: pd.DataFrame, keys: list[tuple], column: str, default: Any) -> list:
-    return [table[column].get(k, default) if k in table.index else default for k in keys]
+def _lookup(table: pd.DataFrame, keys: list, column: str, default: Any) -> list:
+    """``table[column]`` at each key of ``keys`` (index labels or label tuples), ``default`` where absent; one reindex."""
+    if not keys:
+        return []
+    index = pd.MultiIndex.from_tuples(keys) if isinstance(keys[0], tuple) else pd.Index(keys)
+    found = table[column].reindex(index)
+    values = found.where(found.notna(), default)
+    if table[column].dtype.kind in "iub":
+        values = values.astype(table[column].dtype)
+    return values.tolist()
 
 
 def _pair_frame(walked: Any, hres: Any, used_names: list[str], include_absent: bool) -> pd.DataFrame:
