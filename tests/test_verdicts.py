@@ -247,6 +247,9 @@ def test_planted_diabetes_pairs_pass_the_noise_floor_of_a_saved_json(planted_dia
     pairs = result.pairs.set_index(["feature_a", "feature_b"])
     assert pairs.loc[("bmi", "bp"), "p_value"] == pairs.loc[("age", "s6"), "p_value"] == pytest.approx(1 / 20)
     assert pairs["effect"].idxmax() == ("bmi", "bp")
+    # The output says so: bmi x bp is named as a near miss, with its family-wise p-value.
+    near = [note for note in result.facts["refit_notes"] if note.startswith("Near the floor")]
+    assert len(near) == 1 and "bmi × bp (effect 0.26, p_adjusted" in near[0]
     recipe = result.facts["refit_recipe"]
     assert recipe["params"]["eta"] == {"value": pytest.approx(0.05, rel=1e-5), "origin": "recovered"}
     assert recipe["params"]["max_depth"] == {"value": 4, "origin": "recovered"}

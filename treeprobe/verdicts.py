@@ -794,6 +794,21 @@ def check_refit_level(refits: int, level: float, *, names: tuple[str, str] = ("n
             f"1/{refits + 1} = {smallest:.3g}; give {names[0]} >= {need} or {names[1]} >= {smallest:.3g}")
 
 
+def _near_misses(frame: pd.DataFrame, thresholds: dict, shown: int = 5) -> list[str]:
+    """A note naming the pairs of non-negligible size that beat their own refits but not the family-wise floor."""
+    level = thresholds["level"]
+    missed = frame[(frame["verdict"] == "co-split") & (frame["p_value"] <= level) & (frame["p_adjusted"] > level)
+                   & (frame["effect"] >= thresholds["min_effect"])].sort_values("effect", ascending=False)
+    if missed.empty:
+        return []
+    named = ", ".join(f"{a} × {b} (effect {e:.2f}, p_adjusted {p:.2f})" for a, b, e, p in
+                      missed[["feature_a", "feature_b", "effect", "p_adjusted"]].head(shown).itertuples(index=False))
+    more = f" and {len(missed) - shown} more" if len(missed) > shown else ""
+    return [f"Near the floor: {named}{more} beat every refit of their own (p_value {level:g} or less) but not the "
+            "largest over all pairs tested together, so they stay co-split at this level. With few rows many pairs "
+            "raise the floor; a higher --level (API: level) calls them, at the cost of more chance calls."]
+
+
 def _checked_thresholds(*, min_h2: Any, min_effect: Any, max_dependence: Any, level: Any, confidence: Any) -> dict:
     confidence = check_float("confidence", confidence, low=0.5, high=1.0)
     if confidence == 1.0:
@@ -1004,6 +1019,7 @@ def triage(
                                                        max_dependence=thresholds["max_dependence"], output=h_output,
                                                        random_state=random_state, n_jobs=n_jobs, progress=progress)
     frame = _with_verdicts(frame, thresholds)
+    refit_notes = [*refit_notes, *_near_misses(frame, thresholds)]
     triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
                     else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
 
