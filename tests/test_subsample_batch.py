@@ -16,8 +16,9 @@ import pytest
 
 from treeprobe import load_model
 from treeprobe.errors import ParameterError
+from treeprobe.floor import pair_h as _pair_h
 from treeprobe.measure import h_statistic, subset_pair_h
-from treeprobe.verdicts import _pair_h, _subsample_intervals
+from treeprobe.verdicts import _subsample_intervals
 
 N_ROWS = 120
 N_SUBSETS = 4
