@@ -178,7 +178,7 @@ def _verdict(h2_low: np.ndarray, h_low: np.ndarray, p_adjusted: np.ndarray, effe
     clears = np.where(tested, evidence & large, untested)
     leans = np.where(~shares_path, "absent", np.where(clears, "interaction", "co-split"))
     dependent = shares_path & (np.nan_to_num(np.asarray(dependence, dtype=float)) >= thresholds["max_dependence"])
-    return np.where(dependent, "dependent", leans), leans, evidence & ~large
+    return np.where(dependent, "dependent", leans), leans, evidence & ~large & ~dependent
 
 
 def _same(left: Any, right: Any) -> bool:
