@@ -47,9 +47,14 @@ _SCALE_OFFSET = 0.02
 # cleared the first round reached 1.02-1.32 times their floor; most strong true pairs, 1.5-5.6 times.
 _DECISIVE = 1.5
 
+
 def pair_h(graph: ForestGraph, rows: pd.DataFrame | np.ndarray, names: list[tuple[str, str]],
-            output: int | None) -> np.ndarray:
-    """H² and h of the given pairs on ``rows`` (background = evaluation rows), shape (2, n_pairs)."""
+           output: int | None) -> np.ndarray:
+    """H² and h of the given pairs on ``rows`` (background = evaluation rows), shape (2, n_pairs).
+
+    One exact pass of :func:`treeprobe.h_statistic` (eq. 44 of [1]_ and its
+    square root); pairs that share no path get 0.
+    """
     out = np.zeros((2, len(names)))
     if not names:
         return out
