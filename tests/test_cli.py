@@ -223,6 +223,10 @@ def test_package_exports_its_errors_and_warning_lazily():
         (("measure", "--jobs", "0"), "--jobs must be a non-zero integer"),
         (("triage", "--resamples", "-1"), "--resamples must be an integer >= 0, got -1"),
         (("triage", "--null-refits", "-2"), "--null-refits must be an integer >= 0, got -2"),
+        (("triage", "--target", "y", "--null-refits", "10"),
+         "--null-refits=10 cannot reach --level 0.05: the smallest p-value of 10 refits is 1/11 = 0.0909; "
+         "give --null-refits >= 19 or --level >= 0.0909"),
+        (("triage", "--level", "0.7"), "--level must be a finite number in 0..0.5, got 0.7"),
         (("measure", "--sample", "1"), "--sample must be 0 (all rows) or at least 2, got 1"),
         (("triage", "--min-h2", "1.5"), "--min-h2 must be a finite number in 0..1, got 1.5"),
         (("measure", "--top", "0"), "--top must be an integer >= 1, got 0"),
