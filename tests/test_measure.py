@@ -15,6 +15,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
+from fleet_data import fleet
 from sklearn.datasets import make_friedman1
 
 from treeprobe import DataError, load_model
@@ -74,19 +75,7 @@ def test_closed_form_three_way():
 # --------------------------------------------------------------------------- exact == brute
 @pytest.fixture(scope="module")
 def fleet_frame():
-    rng = np.random.default_rng(11)
-    n = 500
-    frame = pd.DataFrame({
-        "fuel_price": rng.normal(1.5, 0.3, n),
-        "shift_length": rng.uniform(4, 12, n),
-        "depot": pd.Categorical(rng.choice(["north", "south", "east", "west"], n)),
-        "load_kg": rng.gamma(2.0, 100.0, n),
-    })
-    frame.loc[rng.random(n) < 0.15, "fuel_price"] = np.nan
-    cost = (np.nan_to_num(frame.fuel_price, nan=1.0) * frame.shift_length
-            + (frame.depot.cat.codes == 2) * frame.load_kg / 100 + rng.normal(scale=0.3, size=n))
-    classes = np.digitize(cost, np.quantile(cost, [0.4, 0.75]))
-    return frame, cost.to_numpy(), classes
+    return fleet(11, 500)
 
 
 def _compare(exact: MeasureResult, brute: MeasureResult, rtol: float) -> None:

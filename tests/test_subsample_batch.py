@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from fleet_data import fleet
 
 from treeprobe import load_model
 from treeprobe.errors import ParameterError
@@ -26,18 +27,7 @@ N_SUBSETS = 4
 
 @pytest.fixture(scope="module")
 def depot_frame():
-    rng = np.random.default_rng(5)
-    frame = pd.DataFrame({
-        "fuel_price": rng.normal(1.5, 0.3, N_ROWS),
-        "shift_length": rng.uniform(4, 12, N_ROWS),
-        "depot": pd.Categorical(rng.choice(["north", "south", "east", "west"], N_ROWS)),
-        "load_kg": rng.gamma(2.0, 100.0, N_ROWS),
-    })
-    frame.loc[rng.random(N_ROWS) < 0.15, "fuel_price"] = np.nan
-    cost = (np.nan_to_num(frame.fuel_price, nan=1.0) * frame.shift_length
-            + (frame.depot.cat.codes == 2) * frame.load_kg / 100 + rng.normal(scale=0.3, size=N_ROWS))
-    classes = np.digitize(cost, np.quantile(cost, [0.4, 0.75]))
-    return frame, cost.to_numpy(), classes
+    return fleet(5, N_ROWS)
 
 
 @pytest.fixture(scope="module")
