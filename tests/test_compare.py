@@ -18,6 +18,7 @@ import re
 import numpy as np
 import pandas as pd
 import pytest
+from library_paths import library_leaves
 
 from treeprobe import compare_models, structure
 from treeprobe.compare import FEATURE_COLUMNS, PAIR_COLUMNS, VERDICT_COLUMNS
@@ -70,26 +71,7 @@ def versions(depot, tmp_path_factory):
 
 def _dump_pairs(booster) -> set[frozenset[str]]:
     """Pairs of features on one root-to-leaf path, from the library's own ``trees_to_dataframe``."""
-    frame = booster.trees_to_dataframe()
-    if "Tree" in frame.columns:
-        node, feature, children = frame["ID"], frame["Feature"], (frame["Yes"], frame["No"])
-        leaf = frame["Feature"] == "Leaf"
-    else:
-        node, feature = frame["node_index"], frame["split_feature"]
-        children, leaf = (frame["left_child"], frame["right_child"]), frame["split_feature"].isna()
-    parent = {}
-    for here, left, right in zip(node, *children, strict=True):
-        if isinstance(left, str):
-            parent[left] = parent[right] = here
-    split_on = dict(zip(node, feature, strict=True))
-    pairs = set()
-    for start in node[leaf]:
-        above, up = set(), parent.get(start)
-        while up is not None:
-            above.add(split_on[up])
-            up = parent.get(up)
-        pairs |= {frozenset((a, b)) for a in above for b in above if a != b}
-    return pairs
+    return {frozenset((a, b)) for _, above in library_leaves(booster) for a in above for b in above if a != b}
 
 
 def _by_status(diff, status) -> set[frozenset[str]]:

@@ -19,6 +19,7 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 import pytest
+from library_paths import library_leaves
 
 from treeprobe import load_model
 from treeprobe.constraints import suggest_constraints
@@ -87,30 +88,6 @@ def group_file(tmp_path_factory):
     return path
 
 
-def _library_leaves(booster) -> list[tuple[int, frozenset[str]]]:
-    """(tree, names split on above the leaf) of every leaf, from the library's own ``trees_to_dataframe``."""
-    frame = booster.trees_to_dataframe()
-    if "Tree" in frame.columns:  # XGBoost
-        tree, node, feature = frame["Tree"], frame["ID"], frame["Feature"]
-        children, is_leaf = (frame["Yes"], frame["No"]), frame["Feature"] == "Leaf"
-    else:  # LightGBM
-        tree, node, feature = frame["tree_index"], frame["node_index"], frame["split_feature"]
-        children, is_leaf = (frame["left_child"], frame["right_child"]), frame["split_feature"].isna()
-    parent = {}
-    for here, left, right in zip(node, *children, strict=True):
-        if isinstance(left, str):
-            parent[left] = parent[right] = here
-    split_on = dict(zip(node, feature, strict=True))
-    leaves = []
-    for t, leaf in zip(tree[is_leaf], node[is_leaf], strict=True):
-        above, up = set(), parent.get(leaf)
-        while up is not None:
-            above.add(split_on[up])
-            up = parent.get(up)
-        leaves.append((int(t), frozenset(above)))
-    return leaves
-
-
 def _expected_pairs(leaves, allowed) -> dict[tuple[str, str], tuple[int, int, int]]:
     """Per pair sharing a path and failing ``allowed``: (leaves, trees, first tree), counted from the dump."""
     found: dict[tuple[str, str], list] = {}
@@ -139,7 +116,7 @@ def test_models_trained_under_the_groups_pass(models, group_file, name):
     result = check_constraints(path, group_file)
     assert result.ok and result.violations.empty
     assert list(result.violations.columns) == list(VIOLATION_COLUMNS)
-    leaves = _library_leaves(booster)
+    leaves = library_leaves(booster)
     assert result.facts["n_paths"] == len(leaves) and result.facts["n_paths_breaking"] == 0
     assert result.facts["n_pairs_on_paths"] >= 2, "control: the model does combine features within its groups"
 
@@ -149,7 +126,7 @@ def test_unconstrained_models_fail_with_the_pairs_their_dumps_show(models, group
     booster, path = models[name]
     result = check_constraints(path, group_file)
     assert not result.ok
-    leaves = _library_leaves(booster)
+    leaves = library_leaves(booster)
     expected = _expected_pairs(leaves, _in_groups(GROUPS))
     assert ("fuel_price", "crew_size") in expected
     assert _pair_rows(result) == expected
@@ -172,7 +149,7 @@ def test_a_path_through_three_pairwise_groups_is_a_path_row(models):
     groups = [[NAMES[j] for j in g] for g in TRIANGLE]
     result = check_constraints(path, groups)
     triple = frozenset(NAMES[:3])
-    holding = [tree for tree, features in _library_leaves(booster) if features == triple]
+    holding = [tree for tree, features in library_leaves(booster) if features == triple]
     assert holding, "control: the unconstrained model has paths on exactly the three features"
     rows = result.violations[result.violations["kind"] == "path"]
     assert [tuple(f) for f in rows["features"]] == [tuple(NAMES[:3])]
@@ -187,7 +164,7 @@ def test_unlisted_features_may_be_used_alone_only(models):
     booster, path = models["xgb_free"]
     result = check_constraints(path, [["fuel_price", "shift_length"]])
     assert set(result.facts["features_alone"]) == {"crew_size", "route_km"}
-    expected = _expected_pairs(_library_leaves(booster), _in_groups([["fuel_price", "shift_length"]]))
+    expected = _expected_pairs(library_leaves(booster), _in_groups([["fuel_price", "shift_length"]]))
     assert _pair_rows(result) == expected
 
 
@@ -197,7 +174,7 @@ def test_forbidden_with_any_feature(models):
     assert check_constraints(alone_path, forbid="route_km:*").ok
     booster, path = models["xgb_free"]
     result = check_constraints(path, forbid="route_km:*")
-    expected = _expected_pairs(_library_leaves(booster), lambda a, b: "route_km" not in (a, b))
+    expected = _expected_pairs(library_leaves(booster), lambda a, b: "route_km" not in (a, b))
     assert expected and _pair_rows(result) == expected
     assert set(result.violations["rule"]) == {"forbidden route_km:*"}
     mirrored = check_constraints(path, forbid="*:route_km").violations
@@ -207,7 +184,7 @@ def test_forbidden_with_any_feature(models):
 def test_forbidden_pair_and_groups_together(models, group_file):
     booster, path = models["xgb_grouped"]
     result = check_constraints(path, group_file, forbid=[("fuel_price", "shift_length")])
-    expected = _expected_pairs(_library_leaves(booster), lambda a, b: {a, b} != {"fuel_price", "shift_length"})
+    expected = _expected_pairs(library_leaves(booster), lambda a, b: {a, b} != {"fuel_price", "shift_length"})
     assert _pair_rows(result) == expected
     assert result.violations["rule"].tolist() == ["forbidden fuel_price:shift_length"]
     _, free = models["xgb_free"]
