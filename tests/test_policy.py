@@ -225,6 +225,18 @@ def test_group_sources_agree(models, group_file, tmp_path):
     assert sorted(read_groups(constrain_file)) == sorted(GROUPS)
 
 
+def test_a_search_in_constrain_json_gives_its_chosen_groups():
+    """constrain --search prints the search's chosen groups; its JSON must hand those on, not the verdict suggestion."""
+    verdict_groups = [["fuel_price", "shift_length"]]
+    chosen = [["fuel_price", "shift_length", "crew_size"]]
+    written = {"schema": "treeprobe.constrain/2", "suggestion": {"groups": verdict_groups},
+               "search": {"chosen": {"step": 2, "groups": chosen}}}
+    assert read_groups(written) == chosen
+    assert read_groups({**written, "search": None}) == verdict_groups, "without --search the suggestion is used"
+    assert read_groups({"schema": "treeprobe.search/1", "search": {"chosen": {"groups": chosen}}}) == chosen
+    assert read_groups(SimpleNamespace(chosen_groups=chosen, groups=verdict_groups)) == chosen
+
+
 @pytest.mark.parametrize(
     "groups, forbid, message",
     [

@@ -917,8 +917,9 @@ def _constrain_options(p: argparse.ArgumentParser) -> None:
 def _check_command_options(p: argparse.ArgumentParser) -> None:
     _add_model(p)
     p.add_argument("--groups", metavar="FILE",
-                   help="feature groups allowed to interact: the JSON that 'treeprobe constrain --format json' writes, "
-                        "or a JSON list of lists of feature names; features in no group may only be used alone")
+                   help="feature groups allowed to interact: the JSON that 'treeprobe constrain --format json' writes "
+                        "(its search's chosen groups when it ran with --search), or a JSON list of lists of "
+                        "feature names; features in no group may only be used alone")
     p.add_argument("--forbid", metavar="A:B,...",
                    help="pairs that must never share a root-to-leaf path; '*' stands for any feature "
                         "(e.g. postcode:*,age:income)")

@@ -100,9 +100,17 @@ def _feature_index(name: Any, names: Sequence[str], where: str) -> int:
 
 
 def _groups_from_json(content: Any, where: str) -> Any:
-    """The group list inside what ``constrain --format json`` writes, a suggestion's JSON, or a plain list."""
+    """The group list inside what ``constrain --format json`` writes, a search's or a suggestion's JSON, or a list.
+
+    When the JSON holds a search (``constrain --search``), its chosen groups are
+    the recommendation the command printed, so they win over the suggestion
+    from verdicts that the same file also carries.
+    """
     if isinstance(content, dict):
-        if isinstance(content.get("suggestion"), dict):
+        search = content.get("search")
+        if isinstance(search, dict) and isinstance(search.get("chosen"), dict):
+            content = search["chosen"]
+        elif isinstance(content.get("suggestion"), dict):
             content = content["suggestion"]
         if "groups" not in content:
             raise DataError(f"{where}: expected a list of feature groups or the JSON of treeprobe constrain "
@@ -132,9 +140,12 @@ def read_groups(source: Any) -> list[list[str]]:
     source : str, path, list of lists of str, dict or ConstraintSuggestion
         A JSON file holding a list of lists of feature names, or the JSON
         that ``treeprobe constrain --format json`` writes (schema
-        ``treeprobe.constrain/2``; its ``suggestion.groups`` are used), or a
-        suggestion's own JSON (``treeprobe.constraints/2``); or the same
-        already parsed, or an object with a ``groups`` attribute.
+        ``treeprobe.constrain/2``; its ``search.chosen.groups`` when it ran
+        with ``--search``, else its ``suggestion.groups``), a search's own
+        JSON (``treeprobe.search/1``) or a suggestion's
+        (``treeprobe.constraints/2``); or the same already parsed, or an
+        object with a ``groups`` attribute (a search result: its
+        ``chosen_groups``).
 
     Returns
     -------
@@ -157,6 +168,8 @@ def read_groups(source: Any) -> list[list[str]]:
     where = "groups"
     if isinstance(source, (str, os.PathLike)):
         where, source = str(source), _read_json(source)
+    elif not isinstance(source, (list, tuple, dict)) and isinstance(getattr(source, "chosen_groups", None), list):
+        source = source.chosen_groups
     elif not isinstance(source, (list, tuple, dict)) and isinstance(getattr(source, "groups", None), list):
         source = source.groups
     groups = _groups_from_json(source, where)
