@@ -13,8 +13,12 @@ Three measurements, printed as one table with the issue's floors:
    the true groups must report that they help.
 3. ``triage --target`` on the planted case alone, then beside one busy process
    (a pure-Python loop on one core): the ratio must stay at most 2.5.
+4. How often the planted pairs are called over ``--null-seeds`` seeds of the
+   noise floor's random draws (``--seed``), at the default level 0.05 and at
+   0.2: one run's verdict on 442 rows depends on the draw, and this shows by
+   how much.
 
-Run on a quiet machine: ``python scripts/bench_refit.py [--folds 5] [--repeats 2]``.
+Run on a quiet machine: ``python scripts/bench_refit.py [--folds 5] [--repeats 2] [--null-seeds 8]``.
 """
 
 from __future__ import annotations
@@ -113,15 +117,32 @@ def check_busy(model: Path, data: Path, repeats: int) -> tuple[str, str, str, bo
             f"{ratio:.2f}x ({busy:.1f} s vs {idle:.1f} s; load {os.getloadavg()[0]:.1f})", ratio <= 2.5)
 
 
+def check_seeds(model: Path, data: Path, seeds: int) -> list[tuple[str, str, str, bool]]:
+    rows = []
+    for level in ("0.05", "0.2"):
+        called = {("bmi", "bp"): 0, ("age", "s6"): 0}
+        for seed in range(seeds):
+            payload, _ = cli("triage", str(model), "--data", str(data), "--target", "target", "--level", level,
+                             "--seed", str(seed), "--jobs", "2")
+            verdicts = {frozenset((p["feature_a"], p["feature_b"])): p["verdict"] for p in payload["pairs"]}
+            for pair in called:
+                called[pair] += verdicts.get(frozenset(pair)) == "interaction"
+        rows.append((f"planted pairs called over {seeds} null seeds, level {level}", f"{seeds}/{seeds} each",
+                     ", ".join(f"{a} x {b} {n}/{seeds}" for (a, b), n in called.items()),
+                     all(n == seeds for n in called.values())))
+    return rows
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--folds", type=int, default=5)
     parser.add_argument("--repeats", type=int, default=2)
+    parser.add_argument("--null-seeds", type=int, default=8, help="seeds of the floor's draws in check 4 (0: skip)")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as folder:
         model, data = planted(Path(folder))
         rows = [*check_planted(model, data, args.folds), check_known_answer(args.folds),
-                check_busy(model, data, args.repeats)]
+                check_busy(model, data, args.repeats), *check_seeds(model, data, args.null_seeds)]
     width = max(len(r[0]) for r in rows)
     print(f"{'check':<{width}}  {'floor':<14} {'result':<6} measured")
     for name, floor, measured, ok in rows:

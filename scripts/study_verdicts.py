@@ -76,6 +76,8 @@ _TERM_UNIT = {"product": 1.0, "sine_product": 1.5, "thresholds": 4.0, "maximum":
               "three_way": 1.0}
 BANDS = ((0.0, 0.05, "<5%"), (0.05, 0.10, "5-10%"), (0.10, 0.20, "10-20%"), (0.20, math.inf, ">20%"))
 STRONG = 0.10
+# The family-wise level triage runs at in the study (its default).
+LEVEL = 0.05
 PAIR_TYPES = ("true", "noise", "additive", "dependent")
 WILSON_Z = 1.959963984540054  # the standard normal's 97.5% quantile
 TRUTH_ROWS = 500
@@ -611,6 +613,12 @@ def measures(table: pd.DataFrame, *, faint_known: bool = True) -> dict[str, tupl
         label = "overfit" if column == "overfit" else value
         out[f"precision of interaction: {label}"] = _count(called & (table[column] == value), true)
     out["recall: strong (size >= 10%)"] = _count(true & (size >= STRONG), called)
+    if "p_value" in table.columns and table["p_value"].notna().any():
+        # A miss whose pair did not even beat the model's own refits is one the model did not learn beyond its noise:
+        # no test of this model can call it. The rest beat their refits but not the family-wise floor.
+        unlearned = ~(table["p_value"].astype(float) <= LEVEL)
+        out["strong misses not beating their own refits (p > level)"] = _count(true & (size >= STRONG) & ~called,
+                                                                              unlearned)
     for _, _, label in BANDS:
         out[f"recall: size {label}"] = _count(true & (table["band"] == label), called)
     out["weak (5-10%) called interaction or faint"] = _count(true & (table["band"] == "5-10%"), called | faint)

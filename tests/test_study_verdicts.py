@@ -176,8 +176,10 @@ def test_measures_count_by_hand(study):
         "band": [">20%", None, "5-10%", None, "10-20%"],
         "verdict": ["interaction", "interaction", "co-split", "dependent", "co-split"],
         "faint": [False, False, True, False, False],
+        "p_value": [0.05, 0.05, 0.05, 1.0, 0.3],
     })
     counted = study.measures(table)
+    assert counted["strong misses not beating their own refits (p > level)"] == (1, 1)
     assert counted["precision of interaction: all"] == (1, 2)
     assert counted["precision of interaction: binary"] == (0, 0)
     assert counted["recall: strong (size >= 10%)"] == (1, 2)
@@ -186,6 +188,7 @@ def test_measures_count_by_hand(study):
     assert counted["dependent pair called dependent"] == (1, 1)
     assert counted["faint flag on pairs without interaction"] == (0, 2)
     assert study.measures(table, faint_known=False)["faint flag on pairs without interaction"] is None
+    assert "strong misses not beating their own refits (p > level)" not in study.measures(table.drop(columns="p_value"))
 
 
 def test_resume_skips_recorded_scenarios_and_a_cut_line(study, tmp_path, monkeypatch):
