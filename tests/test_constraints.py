@@ -363,13 +363,15 @@ def test_bad_groups_and_data(three_way_data):
     frame = pd.DataFrame(X, columns=NAMES)
     params = {"max_depth": 2}
     options = {"library": "xgboost", "num_boost_round": 2, "folds": 2}
-    with pytest.raises(DataError, match=r"groups\[1\] holds 'tyre_wear'"):
+    with pytest.raises(DataError, match=r"groups: group 1: the model has no feature 'tyre_wear'"):
         validate_constraints(params, frame, y, [["fuel_price"], ["tyre_wear"]], **options)
-    with pytest.raises(DataError, match=r"groups\[0\] must be a non-empty list"):
+    with pytest.raises(DataError, match=r"no feature 'fuel_prise'; did you mean 'fuel_price'\?"):
+        validate_constraints(params, frame, y, [["fuel_prise", "shift_length"]], **options)
+    with pytest.raises(DataError, match=r"groups: group 0 must be a non-empty list"):
         validate_constraints(params, frame, y, [[]], **options)
     with pytest.raises(DataError, match="groups must be a non-empty list"):
         validate_constraints(params, frame, y, [], **options)
-    with pytest.raises(DataError, match=r"groups\[0\] holds index 9"):
+    with pytest.raises(DataError, match=r"groups: group 0 holds index 9; the features are 0\.\.3"):
         validate_constraints(params, frame, y, [[0, 9]], **options)
     with pytest.raises(DataError, match="lists a feature twice"):
         validate_constraints(params, frame, y, [[0, 0]], **options)

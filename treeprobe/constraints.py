@@ -88,6 +88,7 @@ from .graph import ForestGraph
 from .io import load_model
 from .output import atomic_write, dumps_json, to_jsonable
 from .parallel import run_tasks, threads_per_fit
+from .policy import index_groups
 from .policy import paths_outside_groups as _cross_group  # the one check of paths against groups
 from .refit import (
     INNER_FRACTION,
@@ -651,24 +652,7 @@ def _index_groups(groups: Any, columns: tuple[str, ...]) -> list[list[int]]:
         groups = groups.xgboost_param_by_name
     if isinstance(groups, (str, bytes)) or not isinstance(groups, Sequence) or len(groups) == 0:
         raise DataError(f"groups must be a non-empty list of feature groups (lists of names or indices), got {groups!r}")
-    position = {name: j for j, name in enumerate(columns)}
-    out: list[list[int]] = []
-    for g, group in enumerate(groups):
-        if isinstance(group, (str, bytes)) or not isinstance(group, Sequence) or len(group) == 0:
-            raise DataError(f"groups[{g}] must be a non-empty list of feature names or indices, got {group!r}")
-        indices = []
-        for member in group:
-            if isinstance(member, (int, np.integer)) and not isinstance(member, (bool, np.bool_)):
-                if not 0 <= member < len(columns):
-                    raise DataError(f"groups[{g}] holds index {member}; the features are 0..{len(columns) - 1}")
-                indices.append(int(member))
-            elif isinstance(member, str) and member in position:
-                indices.append(position[member])
-            else:
-                raise DataError(f"groups[{g}] holds {member!r}, which is not a feature; features are {', '.join(columns)}")
-        if len(set(indices)) != len(indices):
-            raise DataError(f"groups[{g}] lists a feature twice: {list(group)!r}")
-        out.append(sorted(indices))
+    out = index_groups(groups, columns, indices=True)
     listed = {j for group in out for j in group}
     return out + [[j] for j in range(len(columns)) if j not in listed]
 

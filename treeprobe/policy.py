@@ -63,6 +63,7 @@ __all__ = [
     "PolicyResult",
     "check_constraints",
     "read_groups",
+    "index_groups",
     "parse_forbidden",
     "paths_outside_groups",
     "VIOLATION_COLUMNS",
@@ -231,13 +232,36 @@ def parse_forbidden(forbid: str | Sequence[Sequence[str]] | None, *, name: str =
 
 
 # --------------------------------------------------------------------- the path check
-def _index_groups(groups: list[list[str]], names: Sequence[str], where: str) -> list[list[int]]:
+def _member_index(member: Any, names: Sequence[str], where: str, indices: bool) -> int:
+    if indices and isinstance(member, (int, np.integer)) and not isinstance(member, (bool, np.bool_)):
+        if not 0 <= member < len(names):
+            raise DataError(f"{where} holds index {member}; the features are 0..{len(names) - 1}")
+        return int(member)
+    return _feature_index(member, names, where)
+
+
+def index_groups(groups: Any, names: Sequence[str], *, where: str = "groups", indices: bool = False) -> list[list[int]]:
+    """Feature groups as sorted lists of positions in ``names``: the one place groups meet a model's features.
+
+    Members are feature names (``indices=True`` also takes 0-based positions,
+    as the Python API does). Every error is one line naming ``where``, the
+    group and the member, with a close match for a misspelt name.
+
+    Examples
+    --------
+    >>> index_groups([["shift_length", "fuel_price"]], ["fuel_price", "shift_length", "crew_size"])
+    [[0, 1]]
+    """
+    if isinstance(groups, (str, bytes)) or not isinstance(groups, Sequence):
+        raise DataError(f"{where}: expected a list of feature groups, found {type(groups).__name__}")
     out = []
     for g, group in enumerate(groups):
-        indices = [_feature_index(member, names, f"{where}: group {g}") for member in group]
-        if len(set(indices)) != len(indices):
-            raise DataError(f"{where}: group {g} lists a feature twice: {group!r}")
-        out.append(sorted(indices))
+        if isinstance(group, (str, bytes)) or not isinstance(group, Sequence) or len(group) == 0:
+            raise DataError(f"{where}: group {g} must be a non-empty list of feature names, found {group!r}")
+        positions = [_member_index(member, names, f"{where}: group {g}", indices) for member in group]
+        if len(set(positions)) != len(positions):
+            raise DataError(f"{where}: group {g} lists a feature twice: {list(group)!r}")
+        out.append(sorted(positions))
     return out
 
 
@@ -489,9 +513,9 @@ def check_constraints(
         raise ParameterError("check_constraints needs groups, forbidden pairs (forbid=), or both")
     graph = load_model(model)
     names = graph.feature_names
-    index_groups = None if named_groups is None else _index_groups(named_groups, names, where)
+    grouped = None if named_groups is None else index_groups(named_groups, names, where=where)
     rules = list(zip([f"{a}:{b}" for a, b in forbidden], _forbidden_matrices(forbidden, names), strict=True))
-    membership = None if index_groups is None else _membership(index_groups, graph.n_features)
+    membership = None if grouped is None else _membership(grouped, graph.n_features)
     allowed = None if membership is None else (membership.T.astype(np.int64) @ membership.astype(np.int64)) > 0
     pairs = structure(graph, max_order=2).pairs
     position = {name: j for j, name in enumerate(names)}
