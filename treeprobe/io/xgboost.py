@@ -49,6 +49,10 @@ References
 from __future__ import annotations
 
 import json
+import operator
+import struct
+from collections.abc import Callable, Sequence
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -89,6 +93,20 @@ _NODE_KEYS = ("left_children", "right_children", "split_indices", "split_conditi
 _CATEGORY_KEYS = ("categories", "categories_nodes", "categories_segments", "categories_sizes")
 _INT32_MIN, _INT32_MAX = -(2**31), 2**31 - 1
 _COMPACT_KEYS = _NODE_KEYS + ("split_type", "leaf_weights")
+_NODE_PARTS = operator.itemgetter(*_NODE_KEYS)
+# How the JSON hook packs a node list in one C call: struct code (None: bytes()) and the packed dtype.
+# float32 and int32 are XGBoost's own node types; the flags are 0/1.
+_PACKINGS = (
+    ("left_children", "i", np.dtype("<i4")),
+    ("right_children", "i", np.dtype("<i4")),
+    ("split_indices", "i", np.dtype("<i4")),
+    ("split_conditions", "f", np.dtype("<f4")),
+    ("loss_changes", "f", np.dtype("<f4")),
+    ("sum_hessian", "f", np.dtype("<f4")),
+    ("default_left", None, np.dtype("u1")),
+    ("split_type", None, np.dtype("u1")),
+)
+_PACK_ERRORS = (struct.error, TypeError, ValueError, OverflowError)
 # Without stored names every feature gets a generated one, so a corrupt count
 # must not be able to demand billions of them.
 _MAX_FEATURES = 10_000_000
@@ -101,13 +119,26 @@ _MAX_UNNAMED_FEATURES = 2**21
 _MAX_CATEGORY = 2**24
 
 
+@lru_cache(maxsize=1024)
+def _packer(code: str, count: int) -> Callable[..., bytes]:
+    return struct.Struct(f"<{count}{code}").pack
+
+
 def _compact_tree_lists(obj: dict) -> dict:
     """``json.loads`` object hook: turn a tree's number lists into numpy arrays as soon as it is parsed.
 
     A JSON number list costs about 32 bytes per entry as Python objects and
     at most 8 as numpy, so compacting tree by tree keeps the peak memory of
-    reading a large model near the file size. Lists numpy cannot make into a
-    flat numeric array stay lists, for the strict checks to report.
+    reading a large model near the file size. The node lists are packed by
+    one ``struct``/``bytes`` call each, straight into XGBoost's own float32
+    and int32 (0/1 flags as bytes): that is what makes loading not much
+    slower than parsing. A list that does not pack (a value of another type
+    or out of range, or booleans, which numpy would keep as such) goes
+    through ``np.array``'s inference as before, and a list numpy cannot make
+    into a flat numeric array stays a list, for the strict checks to report.
+    An integer literal in a float list packs as that number, however large
+    (JSON does not tell integers from decimals), where numpy's inference
+    refused integers beyond 64 bits.
     """
     if "split_conditions" not in obj or "left_children" not in obj:
         return obj
@@ -115,6 +146,15 @@ def _compact_tree_lists(obj: dict) -> dict:
     # weights) play no part in predictions; dropping them saves a third of the work.
     obj.pop("parents", None)
     obj.pop("base_weights", None)
+    for key, code, dtype in _PACKINGS:
+        value = obj.get(key)
+        if type(value) is not list or not value or type(value[0]) is bool:
+            continue
+        try:
+            packed = bytes(value) if code is None else _packer(code, len(value))(*value)
+        except _PACK_ERRORS:
+            continue
+        obj[key] = np.frombuffer(packed, dtype)
     for key in _COMPACT_KEYS:
         value = obj.get(key)
         if type(value) is not list or not value:
@@ -160,6 +200,27 @@ def _int_param(params: dict, key: str, where: str, source: str, default: int | N
     return value
 
 
+def _tree_params(trees: list, key: str, source: str, *, default: int | np.ndarray,
+                 usual: str | list[str]) -> np.ndarray:
+    """``tree_param[key]`` of every tree, read and checked by :func:`_int_param` (``default`` where absent).
+
+    When every tree stores the text ``usual`` (one for all, or one per tree),
+    as XGBoost writes it, the values follow without a per-tree call.
+    """
+    try:
+        texts = [tree["tree_param"][key] for tree in trees]
+    except (KeyError, TypeError):
+        texts = None
+    if isinstance(usual, str) and texts is not None and texts.count(usual) == len(texts):
+        return np.full(len(trees), int(usual), dtype=np.int64)
+    if texts == usual:
+        return np.array([int(text) for text in usual], dtype=np.int64)
+    defaults = np.broadcast_to(default, (len(trees),)).tolist()
+    # No dtype: a corrupt count beyond int64 must reach the callers' range checks, not overflow here.
+    return np.array([_int_param(tree.get("tree_param", {}), key, f"tree {t}.tree_param", source, defaults[t])
+                     for t, tree in enumerate(trees)])
+
+
 def _parse_base_score(text: Any, source: str) -> np.ndarray:
     """``"5E-1"`` (XGBoost 1.x/2.x) or ``"[5E-1]"`` / ``"[1E0,2E0]"`` (3.x) as float64."""
     where = f"{source}: learner.learner_model_param.base_score"
@@ -192,16 +253,16 @@ def _base_margin(stored: np.ndarray, transform: str, objective: str, source: str
     return stored
 
 
-def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
-    """One per-node key of every tree, concatenated into one array.
+def _node_column(parts: Sequence, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
+    """One per-node key of every tree (``parts``, one per tree), concatenated into one array.
 
     Trees arrive as numpy arrays (UBJSON, or JSON compacted by
     :func:`_compact_tree_lists`) and are joined in one ``np.concatenate``; a
-    per-tree scan runs only to name the tree when something is wrong. The key
-    is removed from every tree so that the per-tree copies are freed as the
-    columns are built.
+    per-tree scan runs only to name the tree when something is wrong.
     """
-    parts = [tree.pop(key) for tree in trees]
+    values = _packed_column(parts, key, sizes)
+    if values is not None:
+        return _typed_column(values, key, sizes, source)
 
     def bad_tree(message: str) -> ModelFormatError:
         for t, part in enumerate(parts):
@@ -231,11 +292,35 @@ def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.nd
         raise ModelFormatError(
             f"{source}: tree {t}: '{key}' has {lengths[t]} entries, 'left_children' has {sizes[t]} (arrays of unequal length)"
         )
+    return _typed_column(values, key, sizes, source)
+
+
+def _packed_column(parts: list, key: str, sizes: np.ndarray) -> np.ndarray | None:
+    """The parts joined, when every tree's is a non-empty array of the declared length and kind; else None.
+
+    This is the common case, checked without a per-tree Python step. Arrays
+    in the document are 1-D: the JSON hook and the UBJSON decoder make no
+    others. Anything else goes through the general path of
+    :func:`_node_column`, which names the tree at fault.
+    """
+    # Sizes are positive (checked before), so matching lengths also means no empty array.
+    if set(map(type, parts)) != {np.ndarray}:
+        return None
+    if not np.array_equal(np.fromiter(map(len, parts), dtype=np.int64, count=len(parts)), sizes):
+        return None
+    values = np.concatenate(parts)
+    return values if values.ndim == 1 and _kind_ok(values, key) else None
+
+
+def _typed_column(values: np.ndarray, key: str, sizes: np.ndarray, source: str) -> np.ndarray:
+    """A joined node column of checked kind in the common type of its key: float64, bool or int32."""
     if key in _FLOAT_KEYS:
         # XGBoost stores float32; JSON prints the shortest decimal of it, so round back.
-        return values.astype(np.float32).astype(np.float64)
+        return values.astype(np.float32, copy=False).astype(np.float64)
     if key == "default_left":
         return values != 0
+    if values.dtype.itemsize <= 4 and values.dtype != np.uint32:
+        return values.astype(np.int32, copy=False)
     outside = (values < _INT32_MIN) | (values > _INT32_MAX) if values.size else None
     if outside is not None and outside.any():
         t = int(np.searchsorted(np.cumsum(sizes), np.flatnonzero(outside)[0], side="right"))
@@ -442,8 +527,7 @@ def _learner_params(learner: dict, source: str) -> dict:
 
 def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, bool]:
     """Node count of every tree (checked against ``tree_param.num_nodes``) and whether leaves are vectors."""
-    leaf_sizes = np.array([_int_param(tree.get("tree_param", {}), "size_leaf_vector", f"tree {t}.tree_param", source, 1)
-                           for t, tree in enumerate(trees)])
+    leaf_sizes = _tree_params(trees, "size_leaf_vector", source, default=1, usual="1")
     vector_leaves = bool(np.any(leaf_sizes > 1))
     if vector_leaves and np.any(leaf_sizes != n_outputs):
         raise ModelFormatError(f"{source}: trees have leaf vectors of size {sorted(set(leaf_sizes.tolist()))}, "
@@ -460,14 +544,14 @@ def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, b
             if not isinstance(weights, (list, np.ndarray)) or len(weights) < n_outputs:
                 raise ModelFormatError(f"{source}: tree {t}: 'leaf_weights' holds fewer values than the "
                                        f"{n_outputs} outputs each leaf vector needs")
-    for t, tree in enumerate(trees):
-        if not isinstance(tree["left_children"], (list, np.ndarray)):
-            raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
-    sizes = np.fromiter((len(tree["left_children"]) for tree in trees), dtype=np.int64, count=len(trees))
+    lefts = [tree["left_children"] for tree in trees]
+    if not set(map(type, lefts)) <= {list, np.ndarray}:
+        t = next(t for t, left in enumerate(lefts) if not isinstance(left, (list, np.ndarray)))
+        raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
+    sizes = np.fromiter(map(len, lefts), dtype=np.int64, count=len(trees))
     if np.any(sizes == 0):
         raise ModelFormatError(f"{source}: tree {int(np.flatnonzero(sizes == 0)[0])} has no nodes")
-    declared = np.array([_int_param(tree.get("tree_param", {}), "num_nodes", f"tree {t}.tree_param", source,
-                                    int(sizes[t])) for t, tree in enumerate(trees)])
+    declared = _tree_params(trees, "num_nodes", source, default=sizes, usual=[str(n) for n in sizes.tolist()])
     if np.any(declared != sizes):
         t = int(np.flatnonzero(declared != sizes)[0])
         raise ModelFormatError(f"{source}: tree {t}: tree_param.num_nodes is {declared[t]} "
@@ -479,13 +563,13 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
                 source: str) -> dict:
     """Check every node and return the common per-node arrays (global children, pruned nodes dropped).
 
-    Consumes the per-tree node arrays (see :func:`_node_column`); everything
-    not returned is released when this function returns, before
-    ``from_arrays`` makes its own copies.
+    The per-tree node arrays are gathered in one pass over the trees (see
+    :func:`_node_column`).
     """
-    cols = {key: _node_column(trees, key, sizes, source) for key in _NODE_KEYS}
+    parts_by_key = zip(*map(_NODE_PARTS, trees), strict=True)
+    cols = {key: _node_column(parts, key, sizes, source) for key, parts in zip(_NODE_KEYS, parts_by_key, strict=True)}
     if all("split_type" in tree for tree in trees):
-        cols["split_type"] = _node_column(trees, "split_type", sizes, source)
+        cols["split_type"] = _node_column([tree["split_type"] for tree in trees], "split_type", sizes, source)
     else:
         cols["split_type"] = np.zeros(int(sizes.sum()), np.int32)
     left, right, split_type = cols["left_children"], cols["right_children"], cols["split_type"]
@@ -530,8 +614,7 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         "cover": cols["sum_hessian"],
     }
     categories = _category_lists(split_type, sizes, trees, source) if is_categorical.any() else None
-    declared = np.array([_int_param(tree.get("tree_param", {}), "num_deleted", f"tree {t}.tree_param", source, 0)
-                         for t, tree in enumerate(trees)])
+    declared = _tree_params(trees, "num_deleted", source, default=0, usual="0")
     keep = _drop_deleted_nodes(nodes["left"], nodes["right"], leaf, sizes, declared, source)
     if keep is not None:
         remap = np.cumsum(keep) - 1
