@@ -49,7 +49,6 @@ References
 from __future__ import annotations
 
 import json
-import operator
 import struct
 from collections.abc import Callable, Sequence
 from functools import lru_cache
@@ -92,10 +91,9 @@ _NODE_KEYS = ("left_children", "right_children", "split_indices", "split_conditi
               "loss_changes", "sum_hessian")
 _CATEGORY_KEYS = ("categories", "categories_nodes", "categories_segments", "categories_sizes")
 _INT32_MIN, _INT32_MAX = -(2**31), 2**31 - 1
-_COMPACT_KEYS = _NODE_KEYS + ("split_type", "leaf_weights")
-_NODE_PARTS = operator.itemgetter(*_NODE_KEYS)
 # How the JSON hook packs a node list in one C call: struct code (None: bytes()) and the packed dtype.
-# float32 and int32 are XGBoost's own node types; the flags are 0/1.
+# float32 and int32 are XGBoost's own node types; the flags are 0/1. A ``bytes`` value in a parsed tree
+# is always such a packed list: JSON and UBJSON documents hold no bytes otherwise.
 _PACKINGS = (
     ("left_children", "i", np.dtype("<i4")),
     ("right_children", "i", np.dtype("<i4")),
@@ -106,6 +104,7 @@ _PACKINGS = (
     ("default_left", None, np.dtype("u1")),
     ("split_type", None, np.dtype("u1")),
 )
+_PACKED_DTYPE = {key: dtype for key, _, dtype in _PACKINGS}
 _PACK_ERRORS = (struct.error, TypeError, ValueError, OverflowError)
 # Without stored names every feature gets a generated one, so a corrupt count
 # must not be able to demand billions of them.
@@ -125,14 +124,15 @@ def _packer(code: str, count: int) -> Callable[..., bytes]:
 
 
 def _compact_tree_lists(obj: dict) -> dict:
-    """``json.loads`` object hook: turn a tree's number lists into numpy arrays as soon as it is parsed.
+    """``json.loads`` object hook: turn a tree's number lists into packed bytes or numpy arrays as soon as it is parsed.
 
     A JSON number list costs about 32 bytes per entry as Python objects and
-    at most 8 as numpy, so compacting tree by tree keeps the peak memory of
+    at most 8 packed, so compacting tree by tree keeps the peak memory of
     reading a large model near the file size. The node lists are packed by
     one ``struct``/``bytes`` call each, straight into XGBoost's own float32
-    and int32 (0/1 flags as bytes): that is what makes loading not much
-    slower than parsing. A list that does not pack (a value of another type
+    and int32 (0/1 flags as bytes), and left as ``bytes`` until one
+    ``b"".join`` makes each column (see :func:`_as_node_array`): that is what
+    makes loading not much slower than parsing. A list that does not pack (a value of another type
     or out of range, or booleans, which numpy would keep as such) goes
     through ``np.array``'s inference as before, and a list numpy cannot make
     into a flat numeric array stays a list, for the strict checks to report.
@@ -146,29 +146,41 @@ def _compact_tree_lists(obj: dict) -> dict:
     # weights) play no part in predictions; dropping them saves a third of the work.
     obj.pop("parents", None)
     obj.pop("base_weights", None)
-    for key, code, dtype in _PACKINGS:
+    for key, code, _ in _PACKINGS:
         value = obj.get(key)
-        if type(value) is not list or not value or type(value[0]) is bool:
-            continue
-        try:
-            packed = bytes(value) if code is None else _packer(code, len(value))(*value)
-        except _PACK_ERRORS:
-            continue
-        obj[key] = np.frombuffer(packed, dtype)
-    for key in _COMPACT_KEYS:
-        value = obj.get(key)
-        if type(value) is not list or not value:
-            continue
-        try:
-            # No dtype on purpose: numpy would silently accept strings, None or
-            # fractions; the inferred dtype lets _node_column reject them.
-            arr = np.array(value)
-        except (ValueError, TypeError, OverflowError):
-            continue
-        if arr.ndim == 1 and arr.dtype.kind in "biuf":
-            # Floats are float32 printed in shortest form, so narrowing is exact.
-            obj[key] = arr.astype(np.float32) if arr.dtype.kind == "f" else arr
+        # Booleans are left to numpy's inference, which keeps them as booleans.
+        if type(value) is list and value and type(value[0]) is not bool:
+            try:
+                obj[key] = bytes(value) if code is None else _packer(code, len(value))(*value)
+                continue
+            except _PACK_ERRORS:
+                pass
+        if key in obj:
+            obj[key] = _inferred_array(value)
+    if "leaf_weights" in obj:
+        obj["leaf_weights"] = _inferred_array(obj["leaf_weights"])
     return obj
+
+
+def _as_node_array(part: Any, key: str) -> Any:
+    """A tree's node list as the JSON hook left it, with packed bytes viewed as a numpy array."""
+    return np.frombuffer(part, _PACKED_DTYPE[key]) if type(part) is bytes else part
+
+
+def _inferred_array(value: Any) -> Any:
+    """A non-empty list as the flat numeric array numpy infers (floats narrowed to float32), else unchanged."""
+    if type(value) is not list or not value:
+        return value
+    try:
+        # No dtype on purpose: numpy would silently accept strings, None or
+        # fractions; the inferred dtype lets _node_column reject them.
+        arr = np.array(value)
+    except (ValueError, TypeError, OverflowError):
+        return value
+    if arr.ndim == 1 and arr.dtype.kind in "biuf":
+        # Floats are float32 printed in shortest form, so narrowing is exact.
+        return arr.astype(np.float32) if arr.dtype.kind == "f" else arr
+    return value
 
 
 def _member(mapping: Any, key: str, kind: type | tuple[type, ...], where: str, source: str) -> Any:
@@ -263,6 +275,7 @@ def _node_column(parts: Sequence, key: str, sizes: np.ndarray, source: str) -> n
     values = _packed_column(parts, key, sizes)
     if values is not None:
         return _typed_column(values, key, sizes, source)
+    parts = [_as_node_array(part, key) for part in parts]
 
     def bad_tree(message: str) -> ModelFormatError:
         for t, part in enumerate(parts):
@@ -298,17 +311,20 @@ def _node_column(parts: Sequence, key: str, sizes: np.ndarray, source: str) -> n
 def _packed_column(parts: list, key: str, sizes: np.ndarray) -> np.ndarray | None:
     """The parts joined, when every tree's is a non-empty array of the declared length and kind; else None.
 
-    This is the common case, checked without a per-tree Python step. Arrays
-    in the document are 1-D: the JSON hook and the UBJSON decoder make no
-    others. Anything else goes through the general path of
-    :func:`_node_column`, which names the tree at fault.
+    This is the common case, checked without a per-tree Python step: every
+    part packed by the JSON hook (joined as bytes), or every part a numpy
+    array (UBJSON; 1-D, as the decoder makes no others). Anything else goes
+    through the general path of :func:`_node_column`, which names the tree
+    at fault.
     """
+    kinds = set(map(type, parts))
+    if kinds not in ({bytes}, {np.ndarray}):
+        return None
+    itemsize = _PACKED_DTYPE[key].itemsize if kinds == {bytes} else 1
     # Sizes are positive (checked before), so matching lengths also means no empty array.
-    if set(map(type, parts)) != {np.ndarray}:
+    if not np.array_equal(np.fromiter(map(len, parts), dtype=np.int64, count=len(parts)), sizes * itemsize):
         return None
-    if not np.array_equal(np.fromiter(map(len, parts), dtype=np.int64, count=len(parts)), sizes):
-        return None
-    values = np.concatenate(parts)
+    values = np.frombuffer(b"".join(parts), _PACKED_DTYPE[key]) if kinds == {bytes} else np.concatenate(parts)
     return values if values.ndim == 1 and _kind_ok(values, key) else None
 
 
@@ -545,10 +561,15 @@ def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, b
                 raise ModelFormatError(f"{source}: tree {t}: 'leaf_weights' holds fewer values than the "
                                        f"{n_outputs} outputs each leaf vector needs")
     lefts = [tree["left_children"] for tree in trees]
-    if not set(map(type, lefts)) <= {list, np.ndarray}:
-        t = next(t for t, left in enumerate(lefts) if not isinstance(left, (list, np.ndarray)))
+    kinds = set(map(type, lefts))
+    if not kinds <= {list, np.ndarray, bytes}:
+        t = next(t for t, left in enumerate(lefts) if not isinstance(left, (list, np.ndarray, bytes)))
         raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
     sizes = np.fromiter(map(len, lefts), dtype=np.int64, count=len(trees))
+    if bytes in kinds:
+        # Lists packed by the JSON hook count bytes, not entries.
+        packed = np.fromiter((type(left) is bytes for left in lefts), dtype=bool, count=len(trees))
+        sizes[packed] //= _PACKED_DTYPE["left_children"].itemsize
     if np.any(sizes == 0):
         raise ModelFormatError(f"{source}: tree {int(np.flatnonzero(sizes == 0)[0])} has no nodes")
     declared = _tree_params(trees, "num_nodes", source, default=sizes, usual=[str(n) for n in sizes.tolist()])
@@ -563,13 +584,14 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
                 source: str) -> dict:
     """Check every node and return the common per-node arrays (global children, pruned nodes dropped).
 
-    The per-tree node arrays are gathered in one pass over the trees (see
-    :func:`_node_column`).
+    Consumes the per-tree node arrays (see :func:`_node_column`): each key is
+    removed from every tree as its column is built, so that the per-tree
+    copies are freed one column at a time, before ``from_arrays`` makes its
+    own copies.
     """
-    parts_by_key = zip(*map(_NODE_PARTS, trees), strict=True)
-    cols = {key: _node_column(parts, key, sizes, source) for key, parts in zip(_NODE_KEYS, parts_by_key, strict=True)}
+    cols = {key: _node_column([tree.pop(key) for tree in trees], key, sizes, source) for key in _NODE_KEYS}
     if all("split_type" in tree for tree in trees):
-        cols["split_type"] = _node_column([tree["split_type"] for tree in trees], "split_type", sizes, source)
+        cols["split_type"] = _node_column([tree.pop("split_type") for tree in trees], "split_type", sizes, source)
     else:
         cols["split_type"] = np.zeros(int(sizes.sum()), np.int32)
     left, right, split_type = cols["left_children"], cols["right_children"], cols["split_type"]
@@ -583,8 +605,10 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         t = int(tree_of[i])
         return f"tree {t}, node {i - int(offsets[t])}"
 
-    local_size = sizes[tree_of]
-    bad = inner & ((left < 0) | (left >= local_size) | (right < 0) | (right >= local_size))
+    # Columns of indices are int32 (see _typed_column). Viewed as unsigned, a
+    # negative index lies above every tree size, so one comparison checks both ends.
+    local_size = sizes.astype(np.uint32)[tree_of]
+    bad = inner & ((left.view(np.uint32) >= local_size) | (right.view(np.uint32) >= local_size))
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: child index out of range "
                                f"(left_children/right_children must lie in 0..n_nodes-1, or -1 at a leaf)")
@@ -593,8 +617,7 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
     bad = inner & (split_type != 0) & (split_type != 1)
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: split_type must be 0 (numeric) or 1 (categorical)")
-    feature = np.where(leaf, -1, cols["split_indices"])
-    bad = inner & ((feature < 0) | (feature >= n_features))
+    bad = inner & (cols["split_indices"].view(np.uint32) >= n_features)
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: split_indices out of range 0..{n_features - 1}")
     is_categorical = inner & (split_type == 1)
@@ -602,11 +625,12 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         value = _vector_leaf_values(trees, leaf, right, sizes, n_outputs, source)
     else:
         value = np.where(leaf, cols["split_conditions"], np.nan)[:, None]
+    first_node = offsets[:-1][tree_of]
     nodes = {
-        "feature": feature,
+        "feature": np.where(leaf, -1, cols["split_indices"]),
         "threshold": np.where(inner & ~is_categorical, cols["split_conditions"], np.nan),
-        "left": np.where(inner, left + offsets[tree_of], -1),
-        "right": np.where(inner, right + offsets[tree_of], -1),
+        "left": np.where(inner, left + first_node, -1),
+        "right": np.where(inner, right + first_node, -1),
         "missing_left": cols["default_left"],
         "is_categorical": is_categorical,
         "value": value,
