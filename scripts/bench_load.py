@@ -85,8 +85,17 @@ print(tracemalloc.get_traced_memory()[1], ens.n_nodes)
 
 
 def _peak_load_memory(path: Path) -> tuple[int, int]:
-    """Peak traced bytes while loading ``path`` (file bytes included), in a fresh interpreter."""
-    out = subprocess.run([sys.executable, "-c", _PEAK_CODE, str(path)], capture_output=True, text=True, check=True)
+    """Peak traced bytes while loading ``path`` (file bytes included), in a fresh interpreter.
+
+    The child runs in the directory holding the treeprobe package this process
+    imported: ``python -c`` looks in its working directory first, so it then
+    measures the same code as the timings.
+    """
+    import treeprobe
+
+    root = Path(treeprobe.__file__).resolve().parents[1]
+    out = subprocess.run([sys.executable, "-c", _PEAK_CODE, str(path.resolve())], capture_output=True, text=True, check=True,
+                         cwd=root)
     peak, n_nodes = out.stdout.split()
     return int(peak), int(n_nodes)
 

@@ -120,25 +120,26 @@ _MAX_CATEGORY = 2**24
 
 @lru_cache(maxsize=1024)
 def _packer(code: str, count: int) -> Callable[..., bytes]:
+    """``struct`` packer of ``count`` little-endian values of type ``code``; cached, as tree sizes repeat."""
     return struct.Struct(f"<{count}{code}").pack
 
 
 def _compact_tree_lists(obj: dict) -> dict:
-    """``json.loads`` object hook: turn a tree's number lists into packed bytes or numpy arrays as soon as it is parsed.
+    """``json.loads`` object hook: pack a tree's number lists as soon as the tree is parsed.
 
     A JSON number list costs about 32 bytes per entry as Python objects and
     at most 8 packed, so compacting tree by tree keeps the peak memory of
     reading a large model near the file size. The node lists are packed by
     one ``struct``/``bytes`` call each, straight into XGBoost's own float32
-    and int32 (0/1 flags as bytes), and left as ``bytes`` until one
-    ``b"".join`` makes each column (see :func:`_as_node_array`): that is what
-    makes loading not much slower than parsing. A list that does not pack (a value of another type
-    or out of range, or booleans, which numpy would keep as such) goes
-    through ``np.array``'s inference as before, and a list numpy cannot make
-    into a flat numeric array stays a list, for the strict checks to report.
-    An integer literal in a float list packs as that number, however large
-    (JSON does not tell integers from decimals), where numpy's inference
-    refused integers beyond 64 bits.
+    and int32 (0/1 flags as bytes), and stay ``bytes`` until one
+    ``b"".join`` makes each column (:func:`_packed_column`): that is what
+    makes loading not much slower than parsing. A list that does not pack
+    (a value of another type or out of range, or booleans, which numpy would
+    keep as such) goes through ``np.array``'s inference, and a list numpy
+    cannot make into a flat numeric array stays a list, for the strict
+    checks to report. An integer literal in a float list packs as that
+    number, however large (JSON does not tell integers from decimals), where
+    numpy's inference refuses integers beyond 64 bits.
     """
     if "split_conditions" not in obj or "left_children" not in obj:
         return obj
@@ -268,9 +269,9 @@ def _base_margin(stored: np.ndarray, transform: str, objective: str, source: str
 def _node_column(parts: Sequence, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
     """One per-node key of every tree (``parts``, one per tree), concatenated into one array.
 
-    Trees arrive as numpy arrays (UBJSON, or JSON compacted by
-    :func:`_compact_tree_lists`) and are joined in one ``np.concatenate``; a
-    per-tree scan runs only to name the tree when something is wrong.
+    Trees arrive as packed bytes (JSON, see :func:`_compact_tree_lists`) or
+    numpy arrays (UBJSON) and are joined in one step; lists and mixed parts
+    take a per-tree path, which also names the tree when something is wrong.
     """
     values = _packed_column(parts, key, sizes)
     if values is not None:
@@ -336,6 +337,7 @@ def _typed_column(values: np.ndarray, key: str, sizes: np.ndarray, source: str) 
     if key == "default_left":
         return values != 0
     if values.dtype.itemsize <= 4 and values.dtype != np.uint32:
+        # Every value of a narrower type (or of int32 itself) fits in int32.
         return values.astype(np.int32, copy=False)
     outside = (values < _INT32_MIN) | (values > _INT32_MAX) if values.size else None
     if outside is not None and outside.any():
