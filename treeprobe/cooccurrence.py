@@ -650,12 +650,15 @@ def structure(
     The walk is vectorised and reads every set from the split nodes alone:
     per chunk of trees, every node's ancestor feature set is propagated level
     by level as a uint64 bitmask and every subtree's leaf count and leaf
-    weight bottom-up; split nodes with equal (tree, feature, ancestor mask)
-    are merged and expanded into their sets once. A node whose feature is not
-    yet on its path is the unique place where each of its sets completes for
-    the leaves below it, which gives ``paths`` and ``leaf_cover`` without
-    expanding leaves. Memory stays bounded by walking ``_CHUNK_NODES`` nodes
-    at a time.
+    weight bottom-up; each split node's other ancestor features are read off
+    its mask and expanded once into the sets it closes, each set identified
+    by one integer key. Sums per set are ``bincount`` tables indexed by the
+    key when the key space is small, sorted runs otherwise; distinct trees
+    per set come from one sort of (key, tree) packed into an integer. A node
+    whose feature is not yet on its path is the unique place where each of
+    its sets completes for the leaves below it, which gives ``paths`` and
+    ``leaf_cover`` without expanding leaves. Memory stays bounded by walking
+    ``_CHUNK_NODES`` nodes at a time.
 
     ``to_dict()`` returns ``{"schema": "treeprobe.structure/2", "limits":
     LIMITS (one-sentence caveat for readers), "model":
