@@ -284,13 +284,16 @@ def _sorted(frame: pd.DataFrame, size: int) -> pd.DataFrame:
     n_trees=st.integers(1, 5),
     max_depth=st.integers(0, 6),
     chunk_nodes=st.sampled_from([5, 1 << 15]),
+    dense_keys=st.sampled_from([0, 1 << 20]),
 )
-def test_vectorised_walk_equals_naive_walk(seed, n_features, n_trees, max_depth, chunk_nodes):
+def test_vectorised_walk_equals_naive_walk(seed, n_features, n_trees, max_depth, chunk_nodes, dense_keys):
     """Property: every column equals a naive recursive walker (reference: the definitions, written
-    independently in this file), including masks over more than 64 features and many small chunks."""
+    independently in this file), including masks over more than 64 features, many small chunks, and
+    sums taken by sorting records (dense_keys=0) or in tables indexed by the set key."""
     ens = _random_ensemble(seed, n_features, n_trees, max_depth)
     walked = list(range(n_trees))
-    with mock.patch.object(structure_module, "_CHUNK_NODES", chunk_nodes):
+    with mock.patch.object(structure_module, "_CHUNK_NODES", chunk_nodes), \
+            mock.patch.object(structure_module, "_DENSE_KEYS", dense_keys):
         result = structure(ens, max_order=3)
     for size, table in ((2, result.pairs), (3, result.triples)):
         naive = _naive_sets(ens, walked, size)
@@ -312,6 +315,19 @@ def test_vectorised_walk_equals_naive_walk(seed, n_features, n_trees, max_depth,
     for a, b, c, p in result.triples[["feature_a", "feature_b", "feature_c", "paths"]].itertuples(index=False):
         for sub in ((a, b), (a, c), (b, c)):
             assert pair_paths[sub] >= p
+
+
+def test_tree_runs_sort_the_same_packed_or_not():
+    """(set key, tree) runs found by sorting packed integers equal those of a lexicographic sort, used
+    when packing could overflow (reference: numpy's np.unique over the (key, position) rows)."""
+    rng = np.random.default_rng(2)
+    key = rng.integers(0, 50, size=2000)
+    position = rng.integers(3, 40, size=2000)
+    expected = np.unique(np.column_stack([key, position]), axis=0)
+    for n_keys in (50, 2**62):
+        order, starts = structure_module._tree_runs(key, position, n_keys)
+        got = np.column_stack([key[order][starts], position[order][starts]])
+        np.testing.assert_array_equal(got, expected)
 
 
 def test_order_four_matches_naive():

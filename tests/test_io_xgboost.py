@@ -518,6 +518,44 @@ def test_invalid_json_text_and_logistic_base_score(small_doc, models):
         load_xgboost_json(json.dumps(doc), source="late.json")
 
 
+_GRAPH_ARRAYS = ("feature", "threshold", "left", "right", "missing_left", "is_categorical", "value", "gain", "cover",
+                 "tree_offsets", "cat_offsets", "cat_values")
+
+
+def _with_every_tree(edit):
+    def apply(doc: dict) -> None:
+        for tree in _trees(doc):
+            edit(tree)
+    return apply
+
+
+@pytest.mark.parametrize(
+    "edit",
+    [
+        # JSON booleans are not packed (numpy keeps them as booleans), so these lists take numpy's inference.
+        _with_every_tree(lambda t: t.__setitem__("default_left", [bool(v) for v in t["default_left"]])),
+        lambda d: _trees(d)[2].__setitem__("default_left", [bool(v) for v in _trees(d)[2]["default_left"]]),
+        # Integer literals in float arrays (XGBoost writes 0E0) pack as the same float32 numbers.
+        _with_every_tree(lambda t: t.__setitem__("loss_changes", [int(v) if float(v).is_integer() else v
+                                                                  for v in t["loss_changes"]])),
+        # The root's left child (node 1) written as JSON true: numpy reads the list as integers.
+        lambda d: _trees(d)[1].__setitem__("left_children", [True] + _trees(d)[1]["left_children"][1:]),
+    ],
+)
+def test_node_lists_read_the_same_packed_or_not(small_doc, models, check_routes, edit):
+    """The JSON hook packs node lists in one struct/bytes call; lists it does not pack go through numpy's
+    type inference. Both must give the same graph (reference: XGBoost's own compact JSON of the model,
+    and ``Booster.predict(output_margin=True)``)."""
+    expected = load_xgboost_json(json.dumps(small_doc), source="routes.json")
+    got = load_xgboost_json(_broken(small_doc, edit), source="routes.json")
+    for name in _GRAPH_ARRAYS:
+        np.testing.assert_array_equal(getattr(got, name), getattr(expected, name), err_msg=name)
+    pretty = load_xgboost_json(json.dumps(small_doc, indent=2), source="routes.json")
+    np.testing.assert_array_equal(pretty.threshold, expected.threshold)
+    _assert_margin_close(got.predict_raw(check_routes[NUMERIC].to_numpy()),
+                         _native_margin(models["regressor"], check_routes))
+
+
 def test_declared_deleted_nodes_must_match(models):
     """Pruned nodes are dropped only when the count of unreachable nodes equals tree_param.num_deleted."""
     doc = json.loads(bytes(_booster(models["pruned_exact"]).save_raw("json")))

@@ -1,8 +1,9 @@
 """Tests of :mod:`treeprobe.paths`, the one parent builder and path walk.
 
-Outside reference: XGBoost's own tree dump (``Booster.trees_to_dataframe``:
+Outside references: XGBoost's own tree dump (``Booster.trees_to_dataframe``:
 ``Node``, ``Feature``, ``Yes``, ``No`` per node), walked here recursively from
-the root, and hand-built trees.
+the root; hand-built trees; for the set helpers, the same sets held as
+Python lists and expanded with ``itertools.combinations``.
 """
 
 from __future__ import annotations
@@ -17,8 +18,13 @@ from treeprobe.graph import ForestGraph
 from treeprobe.paths import (
     decode_sets,
     encode_sets,
+    encode_sets_with,
     leaf_feature_sets,
     leaf_steps,
+    list_subsets,
+    mask_member_lists,
+    mask_members,
+    member_subsets,
     parent_links,
     path_set_counts,
     sets_on_paths,
@@ -126,3 +132,41 @@ def test_set_keys_round_trip_and_sort_like_tuples():
     np.testing.assert_array_equal(decode_sets(keys, 40, 3), members)
     order = np.lexsort(members.T[::-1])
     assert np.all(np.diff(keys[order]) >= 0)
+
+
+def _random_masks(rng: np.random.Generator, n_rows: int, n_items: int) -> tuple[np.ndarray, list[list[int]]]:
+    """uint64 masks (bit b of word w = item 64 w + b) of random item sets, and the sets as sorted lists."""
+    sets = [sorted(rng.choice(n_items, size=rng.integers(0, min(n_items, 9) + 1), replace=False).tolist())
+            for _ in range(n_rows)]
+    masks = np.zeros((n_rows, -(-n_items // 64)), dtype=np.uint64)
+    for row, items in enumerate(sets):
+        for item in items:
+            masks[row, item // 64] |= np.uint64(1) << np.uint64(item % 64)
+    return masks, sets
+
+
+@pytest.mark.parametrize("n_items", [1, 7, 64, 65, 150])
+def test_mask_member_lists_and_subsets_match_python_sets(n_items):
+    """mask_member_lists, list_subsets and member_subsets against Python lists and itertools.combinations,
+    over masks of one to three words."""
+    rng = np.random.default_rng(n_items)
+    masks, sets = _random_masks(rng, 300, n_items)
+    members, counts = mask_member_lists(masks)
+    assert counts.tolist() == [len(items) for items in sets]
+    assert [row[:c].tolist() for row, c in zip(members, counts, strict=True)] == sets
+    assert np.all(members[np.arange(members.shape[1]) >= counts[:, None]] == -1)
+    for size in (1, 2, 3):
+        expected = sorted((row, combo) for row, items in enumerate(sets) for combo in combinations(items, size))
+        for owner, subsets in (list_subsets(members, counts, size), member_subsets(mask_members(masks, n_items), size)):
+            assert sorted(zip(owner.tolist(), map(tuple, subsets.tolist()), strict=True)) == expected
+
+
+def test_encode_sets_with_equals_encoding_the_sorted_union():
+    """encode_sets_with(T, j) == encode_sets(sorted(T + {j})) for j below, between and above T's members."""
+    rng = np.random.default_rng(1)
+    for width in (0, 1, 2, 4):
+        rows = [rng.choice(30, size=width + 1, replace=False) for _ in range(400)]
+        others = np.array([np.sort(r[1:]) for r in rows], dtype=np.int64).reshape(len(rows), width)
+        extra = np.array([r[0] for r in rows], dtype=np.int64)
+        union = np.sort(np.column_stack([others, extra]), axis=1)
+        np.testing.assert_array_equal(encode_sets_with(others, extra, 30), encode_sets(union, 30))

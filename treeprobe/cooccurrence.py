@@ -48,9 +48,9 @@ from .paths import (
     ancestor_masks,
     decode_sets,
     depth_levels,
-    encode_sets,
-    mask_members,
-    member_subsets,
+    encode_sets_with,
+    list_subsets,
+    mask_member_lists,
     parent_links,
     tree_nodes,
 )
@@ -64,6 +64,8 @@ _FEATURE_COLUMNS = ("feature", "splits", "gain", "cover", "tree_openings", "mean
 # Nodes per walked chunk: bounds the (nodes x words) path masks and the subset
 # expansion (at most C(depth, k) rows per distinct path) to tens of megabytes.
 _CHUNK_NODES = 1 << 15
+# Largest key space summed in a table indexed by the key (see _aggregate_chunk).
+_DENSE_KEYS = 1 << 20
 _SCHEMA = "treeprobe.structure/2"
 LIMITS = (
     "Path co-occurrence shows which feature sets the trees can combine, not that the prediction varies jointly "
@@ -139,7 +141,11 @@ class _SetRecords:
         """Merge rows with equal (key, bucket); tree counts add because chunks hold disjoint trees."""
         if self.key.size == 0:
             return self
-        order, starts = _group_sorted(np.column_stack([self.key, self.bucket]).astype(np.uint64))
+        if self.bucket.min() == self.bucket.max():
+            order = np.argsort(self.key)
+            starts = np.flatnonzero(np.diff(self.key[order], prepend=-1))
+        else:
+            order, starts = _group_sorted(np.column_stack([self.key, self.bucket]).astype(np.uint64))
         return _SetRecords(
             key=self.key[order][starts],
             bucket=self.bucket[order][starts],
@@ -152,22 +158,47 @@ class _SetRecords:
         )
 
 
-def _aggregate_chunk(key, bucket_of_position, position, paths, leaf_cover, nested_gain, depth) -> _SetRecords:
+def _tree_runs(key: np.ndarray, position: np.ndarray, n_keys: int) -> tuple[np.ndarray, np.ndarray]:
+    """Sort rows by (key, position); return the order and the start of every run of one (key, position).
+
+    Both are packed into one int64 (``key * 2**b + position``) when that cannot
+    overflow, so one integer sort does the work of a lexicographic one.
+    """
+    first = int(position.min())
+    shift = (int(position.max()) - first).bit_length()
+    if n_keys << shift < 2**63:
+        packed = (key << shift) | (position - first)
+        order = np.argsort(packed)
+        ordered = packed[order]
+        return order, np.flatnonzero(np.diff(ordered, prepend=-1))
+    order = np.lexsort((position, key))
+    new = np.ones(order.size, dtype=bool)
+    new[1:] = (key[order][1:] != key[order][:-1]) | (position[order][1:] != position[order][:-1])
+    return order, np.flatnonzero(new)
+
+
+def _aggregate_chunk(key, bucket_of_position, position, paths, leaf_cover, nested_gain, depth,
+                     n_keys) -> _SetRecords:
     """Sum per (set, bucket) and count the distinct trees behind each.
 
-    Rows are sorted once on ``key * n_positions + position``; since buckets never
-    decrease with the position, runs of one set are also runs of its buckets.
+    ``n_keys`` bounds the keys. When the chunk's trees share one bucket and the
+    key space is small (at most ``_DENSE_KEYS`` and a few times the row
+    count), sums and minima are taken over the keys directly (``bincount``)
+    and only the packed (key, position) integers are sorted, to count trees;
+    otherwise rows are sorted on (key, position) and summed in runs (buckets
+    never decrease with the position, so runs of one set are runs of its
+    buckets).
     """
     if key.size == 0:
         return _SetRecords.concat([])
-    first = int(position.min())
-    span = int(position.max()) - first + 1
-    combined = key * span + (position - first)
-    order = np.argsort(combined)
-    combined = combined[order]
-    tree_start = np.flatnonzero(np.diff(combined, prepend=-1))
-    tree_key = combined[tree_start] // span
-    tree_position = combined[tree_start] % span + first
+    first, last = int(position.min()), int(position.max())
+    one_bucket = bucket_of_position[first] == bucket_of_position[last]
+    if one_bucket and n_keys <= min(_DENSE_KEYS, 8 * key.size):
+        return _dense_aggregate(key, position, paths, leaf_cover, nested_gain, depth, n_keys,
+                                int(bucket_of_position[first]))
+    order, tree_start = _tree_runs(key, position, n_keys)
+    tree_key = key[order][tree_start]
+    tree_position = position[order][tree_start]
     tree_bucket = bucket_of_position[tree_position]
     group = np.ones(tree_start.size, dtype=bool)
     group[1:] = (tree_key[1:] != tree_key[:-1]) | (tree_bucket[1:] != tree_bucket[:-1])
@@ -185,6 +216,29 @@ def _aggregate_chunk(key, bucket_of_position, position, paths, leaf_cover, neste
     )
 
 
+def _dense_aggregate(key, position, paths, leaf_cover, nested_gain, depth, n_keys, bucket) -> _SetRecords:
+    """:func:`_aggregate_chunk` for one bucket and a small key space: tables indexed by the key itself."""
+    first = int(position.min())
+    shift = (int(position.max()) - first).bit_length()
+    pairs = np.sort((key << shift) | (position - first))
+    pairs = pairs[np.flatnonzero(np.diff(pairs, prepend=-1))]
+    tree_key = pairs >> shift
+    run = np.flatnonzero(np.diff(tree_key, prepend=-1))
+    present = tree_key[run]
+    lowest = np.full(n_keys, np.iinfo(np.int64).max)
+    np.minimum.at(lowest, key, depth)
+    return _SetRecords(
+        key=present,
+        bucket=np.full(present.size, bucket, dtype=np.int64),
+        paths=np.bincount(key, weights=paths, minlength=n_keys)[present].astype(np.int64),
+        leaf_cover=np.bincount(key, weights=leaf_cover, minlength=n_keys)[present],
+        nested_gain=np.bincount(key, weights=nested_gain, minlength=n_keys)[present],
+        first_level=lowest[present],
+        trees=np.diff(np.append(run, tree_key.size)),
+        first_position=(pairs[run] & ((1 << shift) - 1)) + first,
+    )
+
+
 def _leaf_weights(ensemble: ForestGraph, leaves: np.ndarray) -> tuple[np.ndarray, str]:
     cover = ensemble.cover[leaves]
     if np.all(np.isfinite(cover)):
@@ -195,6 +249,13 @@ def _leaf_weights(ensemble: ForestGraph, leaves: np.ndarray) -> tuple[np.ndarray
     return np.full(leaves.size, np.nan), "unknown"
 
 
+def _local_index(nodes: np.ndarray, targets: np.ndarray) -> np.ndarray:
+    """Positions in ``nodes`` (ascending node indices) of the nodes ``targets``; only meaningful where they occur."""
+    if nodes.size and nodes[-1] - nodes[0] == nodes.size - 1:
+        return targets - nodes[0]
+    return np.searchsorted(nodes, targets)
+
+
 def _subtree_totals(
     ensemble: ForestGraph, nodes: np.ndarray, is_leaf: np.ndarray, levels: list[np.ndarray]
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -202,8 +263,8 @@ def _subtree_totals(
     below_leaves = is_leaf.astype(np.int64)
     below_weight = np.zeros(nodes.size)
     below_weight[is_leaf] = _leaf_weights(ensemble, nodes[is_leaf])[0]
-    local_left = np.searchsorted(nodes, ensemble.left[nodes])
-    local_right = np.searchsorted(nodes, ensemble.right[nodes])
+    local_left = _local_index(nodes, ensemble.left[nodes])
+    local_right = _local_index(nodes, ensemble.right[nodes])
     for members in levels[-2::-1]:
         inner = members[~is_leaf[members]]
         below_leaves[inner] = below_leaves[local_left[inner]] + below_leaves[local_right[inner]]
@@ -212,11 +273,14 @@ def _subtree_totals(
 
 
 @dataclass
-class _SplitGroups:
-    """Split nodes of one chunk merged by (tree, feature, ancestor features other than the node's own).
+class _SplitNodes:
+    """What every split node of one chunk adds to the feature sets it closes.
 
-    ``leaves`` and ``weight`` count only nodes where the feature completes on the
-    path (it is not among the ancestors); ``leaf_paths`` is per used feature.
+    ``others`` lists (left-aligned, ``n_others`` per row) the features of the
+    node's strict ancestors other than its own. ``leaves`` and ``weight`` are
+    the subtree's leaf count and leaf weight where the feature completes on
+    the path (it is not among the ancestors), else 0; ``leaf_paths`` is per
+    used feature.
     """
 
     position: np.ndarray
@@ -225,11 +289,12 @@ class _SplitGroups:
     leaves: np.ndarray
     weight: np.ndarray
     depth: np.ndarray
-    ancestor_bits: np.ndarray
+    others: np.ndarray
+    n_others: np.ndarray
     leaf_paths: np.ndarray
 
     @classmethod
-    def of_chunk(cls, ensemble, nodes, node_position, rank, masks, below_leaves, below_weight, n_used) -> _SplitGroups:
+    def of_chunk(cls, ensemble, nodes, node_position, rank, masks, below_leaves, below_weight, n_used) -> _SplitNodes:
         one = np.uint64(1)
         split_nodes = np.flatnonzero(rank >= 0)
         split_rank = rank[split_nodes]
@@ -238,37 +303,32 @@ class _SplitGroups:
         row = np.arange(split_nodes.size)
         completes = (ancestors[row, word] & bit) == 0
         ancestors[row, word] &= ~bit
-        leaf_paths = np.bincount(split_rank[completes], weights=below_leaves[split_nodes][completes],
-                                 minlength=n_used).astype(np.int64)
-        order, starts = _group_sorted(
-            np.column_stack([node_position[split_nodes].astype(np.uint64), split_rank.astype(np.uint64), ancestors])
-        )
-        if starts.size == 0:
-            empty = np.zeros(0, np.int64)
-            return cls(empty, empty, np.zeros(0), empty, np.zeros(0), empty, np.zeros((0, n_used), bool), leaf_paths)
+        leaves = np.where(completes, below_leaves[split_nodes], 0)
+        others, n_others = mask_member_lists(ancestors)
         return cls(
-            position=node_position[split_nodes][order][starts],
-            feature=split_rank[order][starts],
-            gain=np.add.reduceat(np.nan_to_num(ensemble.gain[nodes[split_nodes]])[order], starts),
-            leaves=np.add.reduceat((below_leaves[split_nodes] * completes)[order], starts),
-            weight=np.add.reduceat(np.where(completes, below_weight[split_nodes], 0.0)[order], starts),
-            depth=np.minimum.reduceat(ensemble.depth[nodes[split_nodes]].astype(np.int64)[order], starts) + 1,
-            ancestor_bits=mask_members(ancestors[order][starts], n_used),
-            leaf_paths=leaf_paths,
+            position=node_position[split_nodes],
+            feature=split_rank,
+            gain=np.nan_to_num(ensemble.gain[nodes[split_nodes]]),
+            leaves=leaves,
+            weight=np.where(completes, below_weight[split_nodes], 0.0),
+            depth=ensemble.depth[nodes[split_nodes]].astype(np.int64) + 1,
+            others=others,
+            n_others=n_others,
+            leaf_paths=np.bincount(split_rank, weights=leaves, minlength=n_used).astype(np.int64),
         )
 
     def records(self, size: int, bucket_of_position: np.ndarray, n_used: int) -> _SetRecords:
-        """Records of the ``size``-sets ``{feature} + T``, ``T`` among the ancestors, of every group."""
-        owner, others = member_subsets(self.ancestor_bits, size - 1)
-        members = np.sort(np.column_stack([others, self.feature[owner]]), axis=1)
+        """Records of the ``size``-sets ``{feature} + T``, ``T`` among the other ancestor features, of every node."""
+        owner, subsets = list_subsets(self.others, self.n_others, size - 1)
         return _aggregate_chunk(
-            key=encode_sets(members, n_used),
+            key=encode_sets_with(subsets, self.feature[owner], n_used),
             bucket_of_position=bucket_of_position,
             position=self.position[owner],
             paths=self.leaves[owner],
             leaf_cover=self.weight[owner],
             nested_gain=self.gain[owner],
             depth=self.depth[owner],
+            n_keys=n_used**size,
         )
 
 
@@ -303,10 +363,10 @@ def _walk(
         nodes = tree_nodes(ensemble, walked[positions])
         rank = np.where(ensemble.feature[nodes] >= 0, feature_rank[np.maximum(ensemble.feature[nodes], 0)], -1)
         levels = depth_levels(ensemble.depth[nodes])
-        masks = ancestor_masks(np.searchsorted(nodes, parent[nodes]), rank, levels, n_used)
+        masks = ancestor_masks(_local_index(nodes, parent[nodes]), rank, levels, n_used)
         below_leaves, below_weight = _subtree_totals(ensemble, nodes, rank < 0, levels)
-        split = _SplitGroups.of_chunk(ensemble, nodes, np.repeat(positions, sizes[positions]), rank, masks,
-                                      below_leaves, below_weight, n_used)
+        split = _SplitNodes.of_chunk(ensemble, nodes, np.repeat(positions, sizes[positions]), rank, masks,
+                                     below_leaves, below_weight, n_used)
         leaf_paths += split.leaf_paths
         if split.position.size == 0:
             continue
@@ -590,12 +650,15 @@ def structure(
     The walk is vectorised and reads every set from the split nodes alone:
     per chunk of trees, every node's ancestor feature set is propagated level
     by level as a uint64 bitmask and every subtree's leaf count and leaf
-    weight bottom-up; split nodes with equal (tree, feature, ancestor mask)
-    are merged and expanded into their sets once. A node whose feature is not
-    yet on its path is the unique place where each of its sets completes for
-    the leaves below it, which gives ``paths`` and ``leaf_cover`` without
-    expanding leaves. Memory stays bounded by walking ``_CHUNK_NODES`` nodes
-    at a time.
+    weight bottom-up; each split node's other ancestor features are read off
+    its mask and expanded once into the sets it closes, each set identified
+    by one integer key. Sums per set are ``bincount`` tables indexed by the
+    key when the key space is small, sorted runs otherwise; distinct trees
+    per set come from one sort of (key, tree) packed into an integer. A node
+    whose feature is not yet on its path is the unique place where each of
+    its sets completes for the leaves below it, which gives ``paths`` and
+    ``leaf_cover`` without expanding leaves. Memory stays bounded by walking
+    ``_CHUNK_NODES`` nodes at a time.
 
     ``to_dict()`` returns ``{"schema": "treeprobe.structure/2", "limits":
     LIMITS (one-sentence caveat for readers), "model":

@@ -55,8 +55,11 @@ __all__ = [
     "depth_levels",
     "ancestor_masks",
     "mask_members",
+    "mask_member_lists",
     "member_subsets",
+    "list_subsets",
     "encode_sets",
+    "encode_sets_with",
     "decode_sets",
     "leaf_feature_sets",
     "path_set_counts",
@@ -180,8 +183,51 @@ def _combination_table(n_items: int, size: int) -> np.ndarray:
     return table.reshape(-1, size)
 
 
-def member_subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
-    """Every ``size``-subset of the set items of every row of a boolean matrix.
+def mask_member_lists(masks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The items set in every row of uint64 masks, ascending and left-aligned, and how many there are.
+
+    Bit ``b`` of word ``w`` stands for item ``64 w + b``. The lowest set bit is
+    taken off every row at once, so the work grows with the largest count
+    (a path's depth), not with the number of items.
+
+    Returns
+    -------
+    members : ndarray of int64, shape (n_rows, largest count)
+        Row ``i`` holds its items in ``members[i, :counts[i]]``, then -1.
+    counts : ndarray of int64, shape (n_rows,)
+
+    Examples
+    --------
+    >>> members, counts = mask_member_lists(np.array([[5], [0], [8]], dtype=np.uint64))
+    >>> members.tolist(), counts.tolist()
+    ([[0, 2], [-1, -1], [3, -1]], [2, 0, 1])
+    """
+    masks = np.asarray(masks, dtype=np.uint64)
+    one = np.uint64(1)
+    rounds = []
+    counts = np.zeros(len(masks), dtype=np.int64)
+    for word in range(masks.shape[1]):
+        rows = np.flatnonzero(masks[:, word])
+        rest = masks[rows, word]
+        while rows.size:
+            lowest = rest & (~rest + one)
+            # A power of two converts to float64 exactly; frexp gives its exponent.
+            rounds.append((rows, np.frexp(lowest.astype(np.float64))[1].astype(np.int64) + (64 * word - 1)))
+            counts[rows] += 1
+            rest = rest ^ lowest
+            more = rest != 0
+            rows, rest = rows[more], rest[more]
+    members = np.full((len(masks), int(counts.max(initial=0))), -1, dtype=np.int64)
+    # Rounds meet every row's items in ascending order.
+    filled = np.zeros(len(masks), dtype=np.int64)
+    for rows, items in rounds:
+        members[rows, filled[rows]] = items
+        filled[rows] += 1
+    return members, counts
+
+
+def list_subsets(members: np.ndarray, counts: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``size``-subset of the items of every row (``members[i, :counts[i]]``, ascending).
 
     Returns the owning row of each subset and its members (ascending), shape (n, size).
     Rows are grouped by their item count so that each group is one fancy-indexing
@@ -189,21 +235,36 @@ def member_subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]
 
     Examples
     --------
+    >>> owner, subsets = list_subsets(np.array([[0, 1, 2], [0, 2, -1]]), np.array([3, 2]), 2)
+    >>> owner.tolist(), subsets.tolist()
+    ([1, 0, 0, 0], [[0, 2], [0, 1], [0, 2], [1, 2]])
+    """
+    if size == 1:
+        # Row-major order lists every row's items in turn, ascending.
+        return np.repeat(np.arange(counts.size), counts), members[members >= 0].reshape(-1, 1)
+    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
+    for n_items in np.unique(counts[counts >= size]):
+        owners = np.flatnonzero(counts == n_items)
+        table = _combination_table(int(n_items), size)
+        owner_parts.append(np.repeat(owners, table.shape[0]))
+        member_parts.append(members[owners][:, table].reshape(-1, size))
+    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
+
+
+def member_subsets(bits: np.ndarray, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``size``-subset of the set items of every row of a boolean matrix (see :func:`list_subsets`).
+
+    Examples
+    --------
     >>> owner, members = member_subsets(np.array([[True, True, True], [True, False, True]]), 2)
     >>> owner.tolist(), members.tolist()
     ([1, 0, 0, 0], [[0, 2], [0, 1], [0, 2], [1, 2]])
     """
-    counts = bits.sum(axis=1)
+    counts = bits.sum(axis=1).astype(np.int64)
     rows, items = np.nonzero(bits)
-    starts = np.cumsum(counts) - counts
-    owner_parts, member_parts = [np.zeros(0, np.int64)], [np.zeros((0, size), np.int64)]
-    for n_items in np.unique(counts[counts >= size]):
-        owners = np.flatnonzero(counts == n_items)
-        members = items[starts[owners][:, None] + np.arange(n_items)]
-        table = _combination_table(int(n_items), size)
-        owner_parts.append(np.repeat(owners, table.shape[0]))
-        member_parts.append(members[:, table].reshape(-1, size))
-    return np.concatenate(owner_parts), np.concatenate(member_parts).astype(np.int64)
+    members = np.full((len(bits), int(counts.max(initial=0))), -1, dtype=np.int64)
+    members[rows, np.arange(rows.size) - (np.cumsum(counts) - counts)[rows]] = items
+    return list_subsets(members, counts, size)
 
 
 def encode_sets(members: np.ndarray, radix: int) -> np.ndarray:
@@ -224,6 +285,33 @@ def encode_sets(members: np.ndarray, radix: int) -> np.ndarray:
     for column in members.T:
         key = key * radix + column
     return key
+
+
+def encode_sets_with(members: np.ndarray, extra: np.ndarray, radix: int) -> np.ndarray:
+    """:func:`encode_sets` keys of the sets ``members[i] + {extra[i]}``, without sorting the rows.
+
+    ``members`` rows are ascending and do not hold ``extra[i]``; each member
+    takes the weight of the slot it has once ``extra[i]`` is inserted.
+
+    Examples
+    --------
+    >>> encode_sets_with(np.array([[0, 2], [0, 2]]), np.array([1, 3]), 4).tolist()
+    [6, 11]
+    >>> encode_sets(np.array([[0, 1, 2], [0, 2, 3]]), 4).tolist()
+    [6, 11]
+    """
+    members = np.asarray(members, dtype=np.int64)
+    extra = np.asarray(extra, dtype=np.int64)
+    width = members.shape[1]
+    weight = np.int64(radix) ** np.arange(width, -1, -1, dtype=np.int64)
+    slot = np.zeros(extra.size, dtype=np.int64)
+    key = np.zeros(extra.size, dtype=np.int64)
+    for column in range(width):
+        # Members below ``extra`` keep their slot; the others move one slot down.
+        below = members[:, column] < extra
+        slot += below
+        key += members[:, column] * np.where(below, weight[column], weight[column + 1])
+    return key + extra * weight[slot]
 
 
 def decode_sets(keys: np.ndarray, radix: int, size: int) -> np.ndarray:

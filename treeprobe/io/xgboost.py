@@ -49,6 +49,9 @@ References
 from __future__ import annotations
 
 import json
+import struct
+from collections.abc import Callable, Sequence
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -88,7 +91,21 @@ _NODE_KEYS = ("left_children", "right_children", "split_indices", "split_conditi
               "loss_changes", "sum_hessian")
 _CATEGORY_KEYS = ("categories", "categories_nodes", "categories_segments", "categories_sizes")
 _INT32_MIN, _INT32_MAX = -(2**31), 2**31 - 1
-_COMPACT_KEYS = _NODE_KEYS + ("split_type", "leaf_weights")
+# How the JSON hook packs a node list in one C call: struct code (None: bytes()) and the packed dtype.
+# float32 and int32 are XGBoost's own node types; the flags are 0/1. A ``bytes`` value in a parsed tree
+# is always such a packed list: JSON and UBJSON documents hold no bytes otherwise.
+_PACKINGS = (
+    ("left_children", "i", np.dtype("<i4")),
+    ("right_children", "i", np.dtype("<i4")),
+    ("split_indices", "i", np.dtype("<i4")),
+    ("split_conditions", "f", np.dtype("<f4")),
+    ("loss_changes", "f", np.dtype("<f4")),
+    ("sum_hessian", "f", np.dtype("<f4")),
+    ("default_left", None, np.dtype("u1")),
+    ("split_type", None, np.dtype("u1")),
+)
+_PACKED_DTYPE = {key: dtype for key, _, dtype in _PACKINGS}
+_PACK_ERRORS = (struct.error, TypeError, ValueError, OverflowError)
 # Without stored names every feature gets a generated one, so a corrupt count
 # must not be able to demand billions of them.
 _MAX_FEATURES = 10_000_000
@@ -101,13 +118,28 @@ _MAX_UNNAMED_FEATURES = 2**21
 _MAX_CATEGORY = 2**24
 
 
+@lru_cache(maxsize=1024)
+def _packer(code: str, count: int) -> Callable[..., bytes]:
+    """``struct`` packer of ``count`` little-endian values of type ``code``; cached, as tree sizes repeat."""
+    return struct.Struct(f"<{count}{code}").pack
+
+
 def _compact_tree_lists(obj: dict) -> dict:
-    """``json.loads`` object hook: turn a tree's number lists into numpy arrays as soon as it is parsed.
+    """``json.loads`` object hook: pack a tree's number lists as soon as the tree is parsed.
 
     A JSON number list costs about 32 bytes per entry as Python objects and
-    at most 8 as numpy, so compacting tree by tree keeps the peak memory of
-    reading a large model near the file size. Lists numpy cannot make into a
-    flat numeric array stay lists, for the strict checks to report.
+    at most 8 packed, so compacting tree by tree keeps the peak memory of
+    reading a large model near the file size. The node lists are packed by
+    one ``struct``/``bytes`` call each, straight into XGBoost's own float32
+    and int32 (0/1 flags as bytes), and stay ``bytes`` until one
+    ``b"".join`` makes each column (:func:`_packed_column`): that is what
+    makes loading not much slower than parsing. A list that does not pack
+    (a value of another type or out of range, or booleans, which numpy would
+    keep as such) goes through ``np.array``'s inference, and a list numpy
+    cannot make into a flat numeric array stays a list, for the strict
+    checks to report. An integer literal in a float list packs as that
+    number, however large (JSON does not tell integers from decimals), where
+    numpy's inference refuses integers beyond 64 bits.
     """
     if "split_conditions" not in obj or "left_children" not in obj:
         return obj
@@ -115,20 +147,41 @@ def _compact_tree_lists(obj: dict) -> dict:
     # weights) play no part in predictions; dropping them saves a third of the work.
     obj.pop("parents", None)
     obj.pop("base_weights", None)
-    for key in _COMPACT_KEYS:
+    for key, code, _ in _PACKINGS:
         value = obj.get(key)
-        if type(value) is not list or not value:
-            continue
-        try:
-            # No dtype on purpose: numpy would silently accept strings, None or
-            # fractions; the inferred dtype lets _node_column reject them.
-            arr = np.array(value)
-        except (ValueError, TypeError, OverflowError):
-            continue
-        if arr.ndim == 1 and arr.dtype.kind in "biuf":
-            # Floats are float32 printed in shortest form, so narrowing is exact.
-            obj[key] = arr.astype(np.float32) if arr.dtype.kind == "f" else arr
+        # Booleans are left to numpy's inference, which keeps them as booleans.
+        if type(value) is list and value and type(value[0]) is not bool:
+            try:
+                obj[key] = bytes(value) if code is None else _packer(code, len(value))(*value)
+                continue
+            except _PACK_ERRORS:
+                pass
+        if key in obj:
+            obj[key] = _inferred_array(value)
+    if "leaf_weights" in obj:
+        obj["leaf_weights"] = _inferred_array(obj["leaf_weights"])
     return obj
+
+
+def _as_node_array(part: Any, key: str) -> Any:
+    """A tree's node list as the JSON hook left it, with packed bytes viewed as a numpy array."""
+    return np.frombuffer(part, _PACKED_DTYPE[key]) if type(part) is bytes else part
+
+
+def _inferred_array(value: Any) -> Any:
+    """A non-empty list as the flat numeric array numpy infers (floats narrowed to float32), else unchanged."""
+    if type(value) is not list or not value:
+        return value
+    try:
+        # No dtype on purpose: numpy would silently accept strings, None or
+        # fractions; the inferred dtype lets _node_column reject them.
+        arr = np.array(value)
+    except (ValueError, TypeError, OverflowError):
+        return value
+    if arr.ndim == 1 and arr.dtype.kind in "biuf":
+        # Floats are float32 printed in shortest form, so narrowing is exact.
+        return arr.astype(np.float32) if arr.dtype.kind == "f" else arr
+    return value
 
 
 def _member(mapping: Any, key: str, kind: type | tuple[type, ...], where: str, source: str) -> Any:
@@ -158,6 +211,27 @@ def _int_param(params: dict, key: str, where: str, source: str, default: int | N
     if value < 0:
         raise ModelFormatError(f"{source}: {where}.{key} must not be negative, found {value}")
     return value
+
+
+def _tree_params(trees: list, key: str, source: str, *, default: int | np.ndarray,
+                 usual: str | list[str]) -> np.ndarray:
+    """``tree_param[key]`` of every tree, read and checked by :func:`_int_param` (``default`` where absent).
+
+    When every tree stores the text ``usual`` (one for all, or one per tree),
+    as XGBoost writes it, the values follow without a per-tree call.
+    """
+    try:
+        texts = [tree["tree_param"][key] for tree in trees]
+    except (KeyError, TypeError):
+        texts = None
+    if isinstance(usual, str) and texts is not None and texts.count(usual) == len(texts):
+        return np.full(len(trees), int(usual), dtype=np.int64)
+    if texts == usual:
+        return np.array([int(text) for text in usual], dtype=np.int64)
+    defaults = np.broadcast_to(default, (len(trees),)).tolist()
+    # No dtype: a corrupt count beyond int64 must reach the callers' range checks, not overflow here.
+    return np.array([_int_param(tree.get("tree_param", {}), key, f"tree {t}.tree_param", source, defaults[t])
+                     for t, tree in enumerate(trees)])
 
 
 def _parse_base_score(text: Any, source: str) -> np.ndarray:
@@ -192,16 +266,17 @@ def _base_margin(stored: np.ndarray, transform: str, objective: str, source: str
     return stored
 
 
-def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
-    """One per-node key of every tree, concatenated into one array.
+def _node_column(parts: Sequence, key: str, sizes: np.ndarray, source: str) -> np.ndarray:  # noqa: C901
+    """One per-node key of every tree (``parts``, one per tree), concatenated into one array.
 
-    Trees arrive as numpy arrays (UBJSON, or JSON compacted by
-    :func:`_compact_tree_lists`) and are joined in one ``np.concatenate``; a
-    per-tree scan runs only to name the tree when something is wrong. The key
-    is removed from every tree so that the per-tree copies are freed as the
-    columns are built.
+    Trees arrive as packed bytes (JSON, see :func:`_compact_tree_lists`) or
+    numpy arrays (UBJSON) and are joined in one step; lists and mixed parts
+    take a per-tree path, which also names the tree when something is wrong.
     """
-    parts = [tree.pop(key) for tree in trees]
+    values = _packed_column(parts, key, sizes)
+    if values is not None:
+        return _typed_column(values, key, sizes, source)
+    parts = [_as_node_array(part, key) for part in parts]
 
     def bad_tree(message: str) -> ModelFormatError:
         for t, part in enumerate(parts):
@@ -231,11 +306,39 @@ def _node_column(trees: list, key: str, sizes: np.ndarray, source: str) -> np.nd
         raise ModelFormatError(
             f"{source}: tree {t}: '{key}' has {lengths[t]} entries, 'left_children' has {sizes[t]} (arrays of unequal length)"
         )
+    return _typed_column(values, key, sizes, source)
+
+
+def _packed_column(parts: list, key: str, sizes: np.ndarray) -> np.ndarray | None:
+    """The parts joined, when every tree's is a non-empty array of the declared length and kind; else None.
+
+    This is the common case, checked without a per-tree Python step: every
+    part packed by the JSON hook (joined as bytes), or every part a numpy
+    array (UBJSON; 1-D, as the decoder makes no others). Anything else goes
+    through the general path of :func:`_node_column`, which names the tree
+    at fault.
+    """
+    kinds = set(map(type, parts))
+    if kinds not in ({bytes}, {np.ndarray}):
+        return None
+    itemsize = _PACKED_DTYPE[key].itemsize if kinds == {bytes} else 1
+    # Sizes are positive (checked before), so matching lengths also means no empty array.
+    if not np.array_equal(np.fromiter(map(len, parts), dtype=np.int64, count=len(parts)), sizes * itemsize):
+        return None
+    values = np.frombuffer(b"".join(parts), _PACKED_DTYPE[key]) if kinds == {bytes} else np.concatenate(parts)
+    return values if values.ndim == 1 and _kind_ok(values, key) else None
+
+
+def _typed_column(values: np.ndarray, key: str, sizes: np.ndarray, source: str) -> np.ndarray:
+    """A joined node column of checked kind in the common type of its key: float64, bool or int32."""
     if key in _FLOAT_KEYS:
         # XGBoost stores float32; JSON prints the shortest decimal of it, so round back.
-        return values.astype(np.float32).astype(np.float64)
+        return values.astype(np.float32, copy=False).astype(np.float64)
     if key == "default_left":
         return values != 0
+    if values.dtype.itemsize <= 4 and values.dtype != np.uint32:
+        # Every value of a narrower type (or of int32 itself) fits in int32.
+        return values.astype(np.int32, copy=False)
     outside = (values < _INT32_MIN) | (values > _INT32_MAX) if values.size else None
     if outside is not None and outside.any():
         t = int(np.searchsorted(np.cumsum(sizes), np.flatnonzero(outside)[0], side="right"))
@@ -442,8 +545,7 @@ def _learner_params(learner: dict, source: str) -> dict:
 
 def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, bool]:
     """Node count of every tree (checked against ``tree_param.num_nodes``) and whether leaves are vectors."""
-    leaf_sizes = np.array([_int_param(tree.get("tree_param", {}), "size_leaf_vector", f"tree {t}.tree_param", source, 1)
-                           for t, tree in enumerate(trees)])
+    leaf_sizes = _tree_params(trees, "size_leaf_vector", source, default=1, usual="1")
     vector_leaves = bool(np.any(leaf_sizes > 1))
     if vector_leaves and np.any(leaf_sizes != n_outputs):
         raise ModelFormatError(f"{source}: trees have leaf vectors of size {sorted(set(leaf_sizes.tolist()))}, "
@@ -460,14 +562,19 @@ def _tree_sizes(trees: list, n_outputs: int, source: str) -> tuple[np.ndarray, b
             if not isinstance(weights, (list, np.ndarray)) or len(weights) < n_outputs:
                 raise ModelFormatError(f"{source}: tree {t}: 'leaf_weights' holds fewer values than the "
                                        f"{n_outputs} outputs each leaf vector needs")
-    for t, tree in enumerate(trees):
-        if not isinstance(tree["left_children"], (list, np.ndarray)):
-            raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
-    sizes = np.fromiter((len(tree["left_children"]) for tree in trees), dtype=np.int64, count=len(trees))
+    lefts = [tree["left_children"] for tree in trees]
+    kinds = set(map(type, lefts))
+    if not kinds <= {list, np.ndarray, bytes}:
+        t = next(t for t, left in enumerate(lefts) if not isinstance(left, (list, np.ndarray, bytes)))
+        raise ModelFormatError(f"{source}: tree {t}: 'left_children' must be an array")
+    sizes = np.fromiter(map(len, lefts), dtype=np.int64, count=len(trees))
+    if bytes in kinds:
+        # Lists packed by the JSON hook count bytes, not entries.
+        packed = np.fromiter((type(left) is bytes for left in lefts), dtype=bool, count=len(trees))
+        sizes[packed] //= _PACKED_DTYPE["left_children"].itemsize
     if np.any(sizes == 0):
         raise ModelFormatError(f"{source}: tree {int(np.flatnonzero(sizes == 0)[0])} has no nodes")
-    declared = np.array([_int_param(tree.get("tree_param", {}), "num_nodes", f"tree {t}.tree_param", source,
-                                    int(sizes[t])) for t, tree in enumerate(trees)])
+    declared = _tree_params(trees, "num_nodes", source, default=sizes, usual=[str(n) for n in sizes.tolist()])
     if np.any(declared != sizes):
         t = int(np.flatnonzero(declared != sizes)[0])
         raise ModelFormatError(f"{source}: tree {t}: tree_param.num_nodes is {declared[t]} "
@@ -479,13 +586,14 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
                 source: str) -> dict:
     """Check every node and return the common per-node arrays (global children, pruned nodes dropped).
 
-    Consumes the per-tree node arrays (see :func:`_node_column`); everything
-    not returned is released when this function returns, before
-    ``from_arrays`` makes its own copies.
+    Consumes the per-tree node arrays (see :func:`_node_column`): each key is
+    removed from every tree as its column is built, so that the per-tree
+    copies are freed one column at a time, before ``from_arrays`` makes its
+    own copies.
     """
-    cols = {key: _node_column(trees, key, sizes, source) for key in _NODE_KEYS}
+    cols = {key: _node_column([tree.pop(key) for tree in trees], key, sizes, source) for key in _NODE_KEYS}
     if all("split_type" in tree for tree in trees):
-        cols["split_type"] = _node_column(trees, "split_type", sizes, source)
+        cols["split_type"] = _node_column([tree.pop("split_type") for tree in trees], "split_type", sizes, source)
     else:
         cols["split_type"] = np.zeros(int(sizes.sum()), np.int32)
     left, right, split_type = cols["left_children"], cols["right_children"], cols["split_type"]
@@ -499,8 +607,10 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         t = int(tree_of[i])
         return f"tree {t}, node {i - int(offsets[t])}"
 
-    local_size = sizes[tree_of]
-    bad = inner & ((left < 0) | (left >= local_size) | (right < 0) | (right >= local_size))
+    # Columns of indices are int32 (see _typed_column). Viewed as unsigned, a
+    # negative index lies above every tree size, so one comparison checks both ends.
+    local_size = sizes.astype(np.uint32)[tree_of]
+    bad = inner & ((left.view(np.uint32) >= local_size) | (right.view(np.uint32) >= local_size))
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: child index out of range "
                                f"(left_children/right_children must lie in 0..n_nodes-1, or -1 at a leaf)")
@@ -509,8 +619,7 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
     bad = inner & (split_type != 0) & (split_type != 1)
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: split_type must be 0 (numeric) or 1 (categorical)")
-    feature = np.where(leaf, -1, cols["split_indices"])
-    bad = inner & ((feature < 0) | (feature >= n_features))
+    bad = inner & (cols["split_indices"].view(np.uint32) >= n_features)
     if bad.any():
         raise ModelFormatError(f"{source}: {where_node(bad)}: split_indices out of range 0..{n_features - 1}")
     is_categorical = inner & (split_type == 1)
@@ -518,11 +627,12 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         value = _vector_leaf_values(trees, leaf, right, sizes, n_outputs, source)
     else:
         value = np.where(leaf, cols["split_conditions"], np.nan)[:, None]
+    first_node = offsets[:-1][tree_of]
     nodes = {
-        "feature": feature,
+        "feature": np.where(leaf, -1, cols["split_indices"]),
         "threshold": np.where(inner & ~is_categorical, cols["split_conditions"], np.nan),
-        "left": np.where(inner, left + offsets[tree_of], -1),
-        "right": np.where(inner, right + offsets[tree_of], -1),
+        "left": np.where(inner, left + first_node, -1),
+        "right": np.where(inner, right + first_node, -1),
         "missing_left": cols["default_left"],
         "is_categorical": is_categorical,
         "value": value,
@@ -530,8 +640,7 @@ def _tree_nodes(trees: list, sizes: np.ndarray, vector_leaves: bool, n_features:
         "cover": cols["sum_hessian"],
     }
     categories = _category_lists(split_type, sizes, trees, source) if is_categorical.any() else None
-    declared = np.array([_int_param(tree.get("tree_param", {}), "num_deleted", f"tree {t}.tree_param", source, 0)
-                         for t, tree in enumerate(trees)])
+    declared = _tree_params(trees, "num_deleted", source, default=0, usual="0")
     keep = _drop_deleted_nodes(nodes["left"], nodes["right"], leaf, sizes, declared, source)
     if keep is not None:
         remap = np.cumsum(keep) - 1
