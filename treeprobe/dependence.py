@@ -102,11 +102,16 @@ def _prepare(values: np.ndarray, rng: np.random.Generator) -> _Column:
 def _kth_distance(first: _Column, second: _Column, k: int) -> np.ndarray:
     """Max-norm distance of every row to its k-th nearest other row in the plane of the two columns."""
     points = np.column_stack([first.values, second.values])
-    return cKDTree(points).query(points, k=[k + 1], p=np.inf)[0][:, 0]
+    # An unbalanced tree with plain node boxes builds faster here and finds the same (exact) neighbours.
+    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
+    return tree.query(points, k=[k + 1], p=np.inf)[0][:, 0]
 
 
 def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
-    """Other rows whose value lies within ``radius`` of each row's (closed ball, as a k-d tree query counts)."""
+    """Other rows whose value lies within ``radius`` of each row's (closed ball, as a k-d tree query counts).
+
+    ``radius`` is (n_rows,) or (m, n_rows): one radius per row for each of ``m`` pairs, counted in one pass.
+    """
     values, sorted_values = column.values, column.sorted_values
     last = sorted_values.size
     low = np.searchsorted(sorted_values, values - radius, side="left")
@@ -119,16 +124,26 @@ def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
     return high - low - 1
 
 
-def _ksg(first: _Column, seconds: list[_Column], k: int) -> np.ndarray:
-    """Kraskov et al.'s first estimator of the mutual information of ``first`` with each of ``seconds``
-    (nats, negative estimates set to 0)."""
-    n = first.values.size
-    estimate = np.empty(len(seconds))
-    for i, second in enumerate(seconds):
-        radius = np.nextafter(_kth_distance(first, second, k), 0)
-        estimate[i] = (digamma(n) + digamma(k) - np.mean(digamma(_count_within(first, radius) + 1))
-                       - np.mean(digamma(_count_within(second, radius) + 1)))
-    return np.maximum(estimate, 0.0)
+def _ksg(columns: dict[int, _Column], members: np.ndarray, k: int) -> np.ndarray:
+    """Kraskov et al.'s first estimator of the mutual information of each pair of ``columns`` (rows of
+    ``members``; nats, negative estimates set to 0).
+
+    The neighbour distances need one k-d tree per pair; the one-dimensional
+    counts are then done column by column, for every pair holding the column at once.
+    """
+    n = next(iter(columns.values())).values.size
+    radius = np.empty((members.shape[0], n))
+    for i, (a, b) in enumerate(members):
+        radius[i] = np.nextafter(_kth_distance(columns[int(a)], columns[int(b)], k), 0)
+    # Counts are whole numbers in 0..n - 1: digamma is read from a table (the same values, computed once).
+    digamma_of_count = digamma(np.arange(1, n + 1, dtype=np.float64))
+    marginal = np.zeros(members.shape[0])
+    for j in np.unique(members):
+        for side in (0, 1):
+            rows = np.flatnonzero(members[:, side] == j)
+            if rows.size:
+                marginal[rows] += np.mean(digamma_of_count[_count_within(columns[int(j)], radius[rows])], axis=1)
+    return np.maximum(digamma(n) + digamma(k) - marginal, 0.0)
 
 
 def _spearman(a: np.ndarray, b: np.ndarray) -> float:
@@ -218,7 +233,7 @@ def pair_dependence(
     slot = {j: position for position, j in enumerate(ranked)}
     rank = np.full(len(members), np.nan)
     info = np.full(len(members), np.nan)
-    shared: dict[int, list[int]] = {}
+    shared: list[int] = []
     for i, (a, b) in enumerate(members):
         both = ~np.isnan(matrix[:, a]) & ~np.isnan(matrix[:, b])
         xa, xb = matrix[both, a], matrix[both, b]
@@ -229,10 +244,11 @@ def pair_dependence(
                                                            random_state))
         elif a in prepared and b in prepared:
             rank[i] = float(np.atleast_2d(rank_matrix)[slot[a], slot[b]])
-            shared.setdefault(int(a), []).append(i)
+            shared.append(i)
         else:
             rank[i] = _spearman(xa, xb)
-            info[i] = information_correlation(_ksg(_prepare(xa, rng), [_prepare(xb, rng)], k)[0])
-    for a, chosen in shared.items():
-        info[chosen] = information_correlation(_ksg(prepared[a], [prepared[int(members[i, 1])] for i in chosen], k))
+            info[i] = information_correlation(_ksg({0: _prepare(xa, rng), 1: _prepare(xb, rng)},
+                                                   np.array([[0, 1]]), k)[0])
+    if shared:
+        info[shared] = information_correlation(_ksg(prepared, members[shared], k))
     return rank, info
