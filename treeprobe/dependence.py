@@ -16,10 +16,11 @@ therefore measures, on the same rows, for every pair:
   standard deviation, with noise of relative size 1e-10 to break ties.
 
 All pairs are done in one pass: ranks, scaling, tie-breaking noise and sort
-orders are computed once per column; each pair then needs one k-d tree query in
-its plane (scipy's ``cKDTree``) for the distances ``eps_i``, and the two
-one-dimensional counts are binary searches in the shared sorted columns. Pairs
-with a missing value in either column use
+orders are computed once per column; the distances ``eps_i`` of all pairs
+sharing a first column come from one sweep along its sorted order (exact: the
+same neighbours a k-d tree finds), and the two one-dimensional counts are
+binary searches in the shared sorted columns, all pairs holding a column at
+once. Pairs with a missing value in either column use
 the rows where both are present; pairs with a categorical feature go to
 scikit-learn's own estimators (``mutual_info_classif`` for a categorical
 second feature), which treat categories as discrete.
@@ -56,7 +57,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import cKDTree
 from scipy.special import digamma
 from scipy.stats import rankdata
 from sklearn.feature_selection import mutual_info_classif, mutual_info_regression
@@ -68,6 +68,10 @@ __all__ = ["pair_dependence", "information_correlation"]
 
 # Fewer rows than this, or a constant column, and a pair gets no dependence value (NaN).
 _MIN_ROWS = 5
+# Places compared for every row at once in the neighbour sweep (most rows of 1,000 are done by then), and
+# places compared between checks for the rows that go on (measured: about the fastest on 1,225 pairs).
+_SWEEP = 40
+_SWEEP_CHECK = 4
 
 
 def information_correlation(mutual_information: np.ndarray) -> np.ndarray:
@@ -99,12 +103,62 @@ def _prepare(values: np.ndarray, rng: np.random.Generator) -> _Column:
     return _Column(scaled, order, scaled[order])
 
 
-def _kth_distance(first: _Column, second: _Column, k: int) -> np.ndarray:
-    """Max-norm distance of every row to its k-th nearest other row in the plane of the two columns."""
-    points = np.column_stack([first.values, second.values])
-    # An unbalanced tree with plain node boxes builds faster here and finds the same (exact) neighbours.
-    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
-    return tree.query(points, k=[k + 1], p=np.inf)[0][:, 0]
+def _keep_smallest(smallest: np.ndarray, candidate: np.ndarray) -> None:
+    """Insert ``candidate`` into the ascending running minima ``smallest`` (k, ...), in place."""
+    for level in range(smallest.shape[0] - 1, 0, -1):
+        np.minimum(smallest[level], np.maximum(smallest[level - 1], candidate), out=smallest[level])
+    np.minimum(smallest[0], candidate, out=smallest[0])
+
+
+def _gap_beyond(sorted_values: np.ndarray, position: np.ndarray, offset: int) -> np.ndarray:
+    """Distance in the sorted column from each ``position`` to the nearest row more than ``offset`` places away."""
+    last = sorted_values.size - 1
+    value = sorted_values[position]
+    above = np.where(position + offset < last, sorted_values[np.minimum(position + offset + 1, last)] - value, np.inf)
+    below = np.where(position - offset > 0, value - sorted_values[np.maximum(position - offset - 1, 0)], np.inf)
+    return np.minimum(above, below)
+
+
+def _kth_distances(first: _Column, seconds: list[_Column], k: int) -> np.ndarray:
+    """(len(seconds), n_rows): max-norm distance of every row to its k-th nearest other row in the plane of
+    ``first`` and each of ``seconds``, exactly.
+
+    A sweep in the sorted order of ``first`` compares the rows ``d`` places
+    apart, ``d = 1, 2, ...``, for every row and every second column at once,
+    keeping each row's k smallest distances. A row is done once the gap in
+    ``first`` to the rows not yet compared is at least its k-th distance: they
+    are at least that far in ``first`` alone. Most rows are done within
+    :data:`_SWEEP` places; the others go on one by one (compacted) until done.
+    The distances are the same numbers a k-d tree query gives, so the
+    estimate does not change (about twice as fast as one tree per pair here).
+    """
+    values, order = first.sorted_values, first.order
+    n = values.size
+    other = np.array([second.values[order] for second in seconds])
+    smallest = np.full((k,) + other.shape, np.inf)
+    reach = min(_SWEEP, n - 1)
+    for offset in range(1, reach + 1):
+        distance = np.maximum(np.abs(other[:, offset:] - other[:, :-offset]), values[offset:] - values[:-offset])
+        _keep_smallest(smallest[:, :, :-offset], distance)
+        _keep_smallest(smallest[:, :, offset:], distance)
+    kth = smallest[-1]
+    column, position = np.nonzero(kth > _gap_beyond(values, np.arange(n), reach)[None, :])
+    smallest = smallest[:, column, position]
+    while position.size:
+        for _ in range(_SWEEP_CHECK):
+            reach += 1
+            for near in (position + reach, position - reach):
+                inside = (near >= 0) & (near < n)
+                near = np.clip(near, 0, n - 1)
+                distance = np.maximum(np.abs(other[column, near] - other[column, position]),
+                                      np.abs(values[near] - values[position]))
+                _keep_smallest(smallest, np.where(inside, distance, np.inf))
+        done = smallest[-1] <= _gap_beyond(values, position, reach)
+        kth[column[done], position[done]] = smallest[-1, done]
+        column, position, smallest = column[~done], position[~done], smallest[:, ~done]
+    out = np.empty_like(kth)
+    out[:, order] = kth
+    return out
 
 
 def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
@@ -128,13 +182,15 @@ def _ksg(columns: dict[int, _Column], members: np.ndarray, k: int) -> np.ndarray
     """Kraskov et al.'s first estimator of the mutual information of each pair of ``columns`` (rows of
     ``members``; nats, negative estimates set to 0).
 
-    The neighbour distances need one k-d tree per pair; the one-dimensional
-    counts are then done column by column, for every pair holding the column at once.
+    The neighbour distances come from one sweep per first column for all its
+    pairs (:func:`_kth_distances`); the one-dimensional counts are then done
+    column by column, for every pair holding the column at once.
     """
     n = next(iter(columns.values())).values.size
     radius = np.empty((members.shape[0], n))
-    for i, (a, b) in enumerate(members):
-        radius[i] = np.nextafter(_kth_distance(columns[int(a)], columns[int(b)], k), 0)
+    for a in np.unique(members[:, 0]):
+        rows = np.flatnonzero(members[:, 0] == a)
+        radius[rows] = np.nextafter(_kth_distances(columns[int(a)], [columns[int(b)] for b in members[rows, 1]], k), 0)
     # Counts are whole numbers in 0..n - 1: digamma is read from a table (the same values, computed once).
     digamma_of_count = digamma(np.arange(1, n + 1, dtype=np.float64))
     marginal = np.zeros(members.shape[0])
