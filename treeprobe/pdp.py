@@ -73,7 +73,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
-from scipy.sparse import csr_matrix
+from scipy.sparse import csc_matrix, csr_matrix
 
 from .checks import check_choice, check_int
 from .data import model_matrix, numeric_array
@@ -1556,21 +1556,26 @@ def _corner_grid_sums(shape: tuple[int, int], lines: tuple[np.ndarray, np.ndarra
     of ``weights`` (n, k)). One sparse product puts the signed weights on the
     grids; the grids of the batch are padded to one height and width and laid
     out (height, width, pair, subset), so each running sum is one vector
-    addition per grid line for all pairs and subsets at once.
+    addition per grid line for all pairs and subsets at once (the second after
+    a transposed copy).
     """
     a_lines, b_lines = lines
     n_pairs, n_sets = a_lines.shape[0], weights.shape[1]
     height, width = shape
     pair = corners["pair"]
     cell = (a_lines[pair, corners["a"]] * width + b_lines[pair, corners["b"]]) * n_pairs + pair
-    spread = csr_matrix((corners["sign"], (cell, corners["box"])), shape=(height * width * n_pairs, weights.shape[0]))
+    # Corners come box by box: their columns need no sorting.
+    starts = np.searchsorted(corners["box"], np.arange(weights.shape[0] + 1))
+    spread = csc_matrix((corners["sign"], cell, starts), shape=(height * width * n_pairs, weights.shape[0]))
     grid = np.asarray(spread @ weights).reshape(height, width, -1)
     for line in range(1, height):
         grid[line] += grid[line - 1]
+    # Along the second axis after a transposed copy: adding whole lines is several times faster than strided ones.
+    grid = np.ascontiguousarray(grid.transpose(1, 0, 2))
     for line in range(1, width):
-        grid[:, line] += grid[:, line - 1]
+        grid[line] += grid[line - 1]
     a_row, b_row = rows
-    base = ((a_row * width + b_row) * n_pairs + np.arange(n_pairs)[:, None]) * n_sets
+    base = ((b_row * height + a_row) * n_pairs + np.arange(n_pairs)[:, None]) * n_sets
     return grid.ravel()[base[:, layout.row] + layout.subset]
 
 
