@@ -453,7 +453,7 @@ def _centred_in(values: np.ndarray, layout: SubsetLayout) -> np.ndarray:
     return values
 
 
-def _sums_in(values: np.ndarray, layout: SubsetLayout) -> np.ndarray:
+def _squares_in(values: np.ndarray, layout: SubsetLayout) -> np.ndarray:
     """(..., k): sum of squares of ``values`` (..., n_entries) over the entries of each subset."""
     return np.add.reduceat(values * values, layout.start, axis=-1)
 
@@ -499,10 +499,10 @@ def subset_pair_h(
     statistics = np.zeros((2, members.shape[0], subsets.shape[0]))
     for chosen, numerator in parts.blocks:
         numerator = _centred_in(numerator, layout)
-        top = _sums_in(numerator, layout)
+        top = _squares_in(numerator, layout)
         numerator += main[members[chosen, 0]]
         numerator += main[members[chosen, 1]]
-        bottom = _sums_in(numerator, layout)
+        bottom = _squares_in(numerator, layout)
         with np.errstate(divide="ignore", invalid="ignore"):
             statistics[0, chosen] = np.where(bottom > 0, top / bottom, np.nan)
         statistics[1, chosen] = np.sqrt(top / layout.size)

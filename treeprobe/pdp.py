@@ -50,7 +50,10 @@ of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
 :func:`brute_parts` (``F_S`` by averaging predictions), besides the row
 preparation helpers, and :func:`exact_subset_parts` (``F_j`` and the pair
 terms of many row subsets from one pass: the row sets above are built once
-for all rows and each share is counted inside each subset). Paths and parents come from :mod:`treeprobe.paths`.
+for all rows and each share is counted inside each subset; a pair's boxes and
+linear terms become the corners of one grid per pair, summed with one column
+per subset and read at each subset's own rows). Paths and parents come from
+:mod:`treeprobe.paths`.
 
 References
 ----------
