@@ -121,3 +121,13 @@ def test_neighbour_sweep_finds_the_k_d_tree_distances(n):
             points = np.column_stack([prepared[0].values, second.values])
             expected = cKDTree(points).query(points, k=[k + 1], p=np.inf)[0][:, 0]
             np.testing.assert_array_equal(swept[i], expected)
+
+
+def test_many_rows_use_k_d_trees_with_the_same_result(columns, monkeypatch):
+    """Above the sweep's row limit each pair gets a k-d tree: the estimates do not change."""
+    import treeprobe.dependence as dependence
+
+    pairs = [(a, b) for a in range(5) for b in range(a + 1, 5)]
+    swept = pair_dependence(columns, pairs, random_state=3)
+    monkeypatch.setattr(dependence, "_SWEEP_MAX_ROWS", 10)
+    np.testing.assert_array_equal(pair_dependence(columns, pairs, random_state=3)[1], swept[1])
