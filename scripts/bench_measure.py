@@ -14,6 +14,11 @@ figures come from one process, so each is a ratio to a baseline of this run
 * ``triage`` without a target, ``sample=1000``: at most 2x the exact H time;
 * peak resident memory of the process (training included): under 2 GB.
 
+For information it also times the two stages a triage without target adds
+to the exact H on the same rows: the H of 20 half-size row subsets from one
+batched exact pass (``subset_pair_h``) and the dependence of every pair
+(``pair_dependence``).
+
 Usage::
 
     .venv/bin/python scripts/bench_measure.py [--repeats 3] [--brute-pairs 1]
@@ -43,6 +48,25 @@ def _model(n_trees: int, depth: int, n_features: int):
     booster = xgb.XGBRegressor(n_estimators=n_trees, max_depth=depth, learning_rate=0.05, subsample=0.8,
                                colsample_bytree=0.5, tree_method="hist", n_jobs=2, random_state=0).fit(X, y)
     return booster, X
+
+
+def _triage_parts(ensemble, X, triaged, n_rows: int, repeats: int) -> dict[str, float]:
+    """Best times of the subset pass and the pair dependence of a triage without target, on its rows and pairs
+    (drawn as ``triage`` draws them with its default seed: the row sample, then the half-size subsets)."""
+    from treeprobe.dependence import pair_dependence
+    from treeprobe.measure import subset_pair_h
+
+    rng = np.random.default_rng(0)
+    rows = X[np.sort(rng.choice(X.shape[0], size=min(n_rows, X.shape[0]), replace=False))]
+    subsets = np.zeros((20, rows.shape[0]), dtype=bool)
+    for subset in subsets:
+        subset[rng.choice(rows.shape[0], size=rows.shape[0] // 2, replace=False)] = True
+    sharing = triaged.pairs[triaged.pairs["paths"] > 0]
+    names = list(zip(sharing["feature_a"], sharing["feature_b"], strict=True))
+    index = {name: j for j, name in enumerate(ensemble.feature_names)}
+    columns = [(index[a], index[b]) for a, b in zip(triaged.pairs["feature_a"], triaged.pairs["feature_b"], strict=True)]
+    return best_times({"subsets": lambda: subset_pair_h(ensemble, rows, names, subsets, progress=False),
+                       "dependence": lambda: pair_dependence(rows, columns)}, repeats)
 
 
 def main() -> int:
@@ -79,6 +103,9 @@ def main() -> int:
     n_pairs = len(result.pairs)
     print(f"exact : {n_pairs} pairs + {len(result.against_rest)} one-vs-rest on {result.n_rows} rows in "
           f"{t_exact:.2f} s (best of {args.repeats}); triage without target {t_triage:.2f} s")
+    parts = _triage_parts(ensemble, X, results["triage"], args.rows, args.repeats)
+    print(f"triage: of which {parts['subsets']:.2f} s the H of 20 row subsets and {parts['dependence']:.2f} s the "
+          f"dependence of {len(results['triage'].pairs)} pairs (best of {args.repeats})")
 
     rows = X[np.sort(np.random.default_rng(0).choice(X.shape[0], size=args.rows, replace=False))]
     chosen = [tuple(p) for p in result.pairs[["feature_a", "feature_b"]].head(args.brute_pairs).to_numpy()]

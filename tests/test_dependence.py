@@ -100,3 +100,34 @@ def test_bad_arguments_name_the_parameter(columns):
         pair_dependence(columns, [(0, 1)], categorical=[True])
     with pytest.raises(ParameterError, match="n_neighbors"):
         pair_dependence(columns, [(0, 1)], n_neighbors=0)
+
+
+@pytest.mark.parametrize("n", [12, 300])
+def test_neighbour_sweep_finds_the_k_d_tree_distances(n):
+    """The k-th neighbour distances of the sweep equal scipy's k-d tree query (max-norm), rows in the far tails
+    (heavy tails send them past the first sweep) and columns shorter than the sweep included."""
+    from scipy.spatial import cKDTree
+
+    from treeprobe.dependence import _kth_distances, _prepare
+
+    rng = np.random.default_rng(9)
+    first = rng.standard_cauchy(n)
+    seconds = [rng.standard_cauchy(n), first + 0.01 * rng.normal(size=n), np.round(rng.normal(size=n), 1)]
+    draw = np.random.default_rng(1)
+    prepared = [_prepare(column, draw) for column in [first, *seconds]]
+    for k in (1, 3):
+        swept = _kth_distances(prepared[0], prepared[1:], k)
+        for i, second in enumerate(prepared[1:]):
+            points = np.column_stack([prepared[0].values, second.values])
+            expected = cKDTree(points).query(points, k=[k + 1], p=np.inf)[0][:, 0]
+            np.testing.assert_array_equal(swept[i], expected)
+
+
+def test_many_rows_use_k_d_trees_with_the_same_result(columns, monkeypatch):
+    """Above the sweep's row limit each pair gets a k-d tree: the estimates do not change."""
+    import treeprobe.dependence as dependence
+
+    pairs = [(a, b) for a in range(5) for b in range(a + 1, 5)]
+    swept = pair_dependence(columns, pairs, random_state=3)
+    monkeypatch.setattr(dependence, "_SWEEP_MAX_ROWS", 10)
+    np.testing.assert_array_equal(pair_dependence(columns, pairs, random_state=3)[1], swept[1])

@@ -134,3 +134,36 @@ def test_bad_subsets_are_refused(fitted, subsets):
     lonely[0, 3] = True
     with pytest.raises(ParameterError, match="at least 2 rows"):
         subset_pair_h(ensemble, data, pairs, lonely)
+
+
+@pytest.mark.parametrize("budget", [1, 4000])
+def test_grid_batches_and_unequal_subsets_equal_separate_runs(fitted, monkeypatch, budget):
+    """Pairs' grids in batches of one pair, and of several padded to one shape; subsets of different sizes."""
+    import treeprobe.pdp as pdp
+
+    monkeypatch.setattr(pdp, "SUBSET_GRID_BUDGET", budget)
+    model, data = fitted["xgboost-regressor"]
+    ensemble = load_model(model)
+    names = list(ensemble.feature_names)
+    pairs = [(names[a], names[b]) for a in range(len(names)) for b in range(a + 1, len(names))]
+    rng = np.random.default_rng(5)
+    subsets = np.zeros((3, N_ROWS), dtype=bool)
+    for b, size in enumerate((N_ROWS // 3, N_ROWS // 2, N_ROWS - 7)):
+        subsets[b, rng.choice(N_ROWS, size=size, replace=False)] = True
+    batched = subset_pair_h(ensemble, data, pairs, subsets)
+    np.testing.assert_allclose(batched, _separate(ensemble, data, pairs, subsets, None), rtol=1e-9, atol=1e-12)
+
+
+def test_subset_counts_equal_direct_counts_of_the_rows():
+    """Set bits inside each row set, one set at a time and all at once, against counting unpacked rows."""
+    from treeprobe.pdp import _subset_counts, _subset_masks
+
+    rng = np.random.default_rng(4)
+    n_rows = 150
+    rows = rng.random((40, n_rows)) < 0.1
+    rows[::5] = False  # empty row sets count nothing
+    subsets = rng.random((6, n_rows)) < 0.5
+    words, masks = _subset_masks(rows, 3), _subset_masks(subsets, 3)
+    direct = rows.astype(np.int64) @ subsets.T.astype(np.int64)
+    np.testing.assert_array_equal(_subset_counts(words, masks), direct)
+    np.testing.assert_array_equal(_subset_counts(words, masks[:1]), direct[:, :1])

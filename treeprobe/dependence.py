@@ -16,10 +16,12 @@ therefore measures, on the same rows, for every pair:
   standard deviation, with noise of relative size 1e-10 to break ties.
 
 All pairs are done in one pass: ranks, scaling, tie-breaking noise and sort
-orders are computed once per column; each pair then needs one k-d tree query in
-its plane (scipy's ``cKDTree``) for the distances ``eps_i``, and the two
-one-dimensional counts are binary searches in the shared sorted columns. Pairs
-with a missing value in either column use
+orders are computed once per column; the distances ``eps_i`` of all pairs
+sharing a first column come from one sweep along its sorted order (exact: the
+same neighbours a k-d tree finds; above 10,000 rows one k-d tree per pair, scipy's
+``cKDTree``, is faster), and the two one-dimensional counts are
+binary searches in the shared sorted columns, all pairs holding a column at
+once. Pairs with a missing value in either column use
 the rows where both are present; pairs with a categorical feature go to
 scikit-learn's own estimators (``mutual_info_classif`` for a categorical
 second feature), which treat categories as discrete.
@@ -68,6 +70,16 @@ __all__ = ["pair_dependence", "information_correlation"]
 
 # Fewer rows than this, or a constant column, and a pair gets no dependence value (NaN).
 _MIN_ROWS = 5
+# The neighbour sweep compares about 1.4 sqrt(n) places for every row at once (most rows are done by then; the
+# expected neighbours within reach of a row grow as sqrt(n)), then 4 places between checks for the rows that go
+# on, for as many second columns at once as keep each working array near 2**15 floats (in cache). From 10,000
+# rows on, one k-d tree per pair is faster (the sweep grows as n sqrt(n)). Measured on Friedman benchmark
+# columns: on 1,000 rows and 1,225 pairs the sweep takes 0.5 s, the k-d trees 0.8 s; 49 pairs of one first
+# column on 8,000 rows 0.22 s against 0.29 s; crossover near 12,000 rows.
+_SWEEP_PER_ROOT = 1.4
+_SWEEP_CHECK = 4
+_SWEEP_FLOATS = 2**15
+_SWEEP_MAX_ROWS = 10_000
 
 
 def information_correlation(mutual_information: np.ndarray) -> np.ndarray:
@@ -99,18 +111,91 @@ def _prepare(values: np.ndarray, rng: np.random.Generator) -> _Column:
     return _Column(scaled, order, scaled[order])
 
 
+def _keep_smallest(smallest: np.ndarray, candidate: np.ndarray) -> None:
+    """Insert ``candidate`` into the ascending running minima ``smallest`` (k, ...), in place."""
+    for level in range(smallest.shape[0] - 1, 0, -1):
+        np.minimum(smallest[level], np.maximum(smallest[level - 1], candidate), out=smallest[level])
+    np.minimum(smallest[0], candidate, out=smallest[0])
+
+
+def _gap_beyond(sorted_values: np.ndarray, position: np.ndarray, offset: int) -> np.ndarray:
+    """Distance in the sorted column from each ``position`` to the nearest row more than ``offset`` places away."""
+    last = sorted_values.size - 1
+    value = sorted_values[position]
+    above = np.where(position + offset < last, sorted_values[np.minimum(position + offset + 1, last)] - value, np.inf)
+    below = np.where(position - offset > 0, value - sorted_values[np.maximum(position - offset - 1, 0)], np.inf)
+    return np.minimum(above, below)
+
+
 def _kth_distance(first: _Column, second: _Column, k: int) -> np.ndarray:
-    """Max-norm distance of every row to its k-th nearest other row in the plane of the two columns."""
+    """Max-norm distance of every row to its k-th nearest other row in the plane of the two columns (k-d tree)."""
     points = np.column_stack([first.values, second.values])
-    return cKDTree(points).query(points, k=[k + 1], p=np.inf)[0][:, 0]
+    # An unbalanced tree with plain node boxes builds faster here and finds the same (exact) neighbours.
+    tree = cKDTree(points, balanced_tree=False, compact_nodes=False)
+    return tree.query(points, k=[k + 1], p=np.inf)[0][:, 0]
+
+
+def _kth_distances(first: _Column, seconds: list[_Column], k: int) -> np.ndarray:
+    """(len(seconds), n_rows): max-norm distance of every row to its k-th nearest other row in the plane of
+    ``first`` and each of ``seconds``, exactly.
+
+    A sweep in the sorted order of ``first`` compares the rows ``d`` places
+    apart, ``d = 1, 2, ...``, for every row and every second column at once,
+    keeping each row's k smallest distances. A row is done once the gap in
+    ``first`` to the rows not yet compared is at least its k-th distance: they
+    are at least that far in ``first`` alone. Most rows are done within the
+    first ``1.4 sqrt(n)`` places; the others go on (compacted) until done.
+    The distances are the same numbers a k-d tree query gives
+    (:func:`_kth_distance`), so the estimate does not change.
+    """
+    values, order = first.sorted_values, first.order
+    n = values.size
+    other = np.array([second.values[order] for second in seconds])
+    smallest = np.full((k,) + other.shape, np.inf)
+    reach = min(max(k, int(_SWEEP_PER_ROOT * np.sqrt(n))), n - 1)
+    for offset in range(1, reach + 1):
+        distance = np.maximum(np.abs(other[:, offset:] - other[:, :-offset]), values[offset:] - values[:-offset])
+        _keep_smallest(smallest[:, :, :-offset], distance)
+        _keep_smallest(smallest[:, :, offset:], distance)
+    kth = smallest[-1]
+    column, position = np.nonzero(kth > _gap_beyond(values, np.arange(n), reach)[None, :])
+    smallest = smallest[:, column, position]
+    while position.size:
+        for _ in range(_SWEEP_CHECK):
+            reach += 1
+            for near in (position + reach, position - reach):
+                inside = (near >= 0) & (near < n)
+                near = np.clip(near, 0, n - 1)
+                distance = np.maximum(np.abs(other[column, near] - other[column, position]),
+                                      np.abs(values[near] - values[position]))
+                _keep_smallest(smallest, np.where(inside, distance, np.inf))
+        done = smallest[-1] <= _gap_beyond(values, position, reach)
+        kth[column[done], position[done]] = smallest[-1, done]
+        column, position, smallest = column[~done], position[~done], smallest[:, ~done]
+    out = np.empty_like(kth)
+    out[:, order] = kth
+    return out
+
+
+def _sorted_search(sorted_values: np.ndarray, keys: np.ndarray, side: str) -> np.ndarray:
+    """``np.searchsorted(sorted_values, keys, side)`` for keys (m, n), the keys of each row searched in
+    ascending order (a third faster than in row order: each search starts where the last one ended)."""
+    order = np.argsort(keys, axis=1)
+    found = np.searchsorted(sorted_values, np.take_along_axis(keys, order, axis=1), side=side)
+    out = np.empty_like(found)
+    np.put_along_axis(out, order, found, axis=1)
+    return out
 
 
 def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
-    """Other rows whose value lies within ``radius`` of each row's (closed ball, as a k-d tree query counts)."""
+    """Other rows whose value lies within ``radius`` of each row's (closed ball, as a k-d tree query counts).
+
+    ``radius`` is (m, n_rows): one radius per row for each of ``m`` pairs, counted in one pass.
+    """
     values, sorted_values = column.values, column.sorted_values
     last = sorted_values.size
-    low = np.searchsorted(sorted_values, values - radius, side="left")
-    high = np.searchsorted(sorted_values, values + radius, side="right")
+    low = _sorted_search(sorted_values, values - radius, "left")
+    high = _sorted_search(sorted_values, values + radius, "right")
     # The sums above round; settle the edge rows by the distance itself, as the tree query does.
     low += (low < last) & (np.abs(sorted_values[np.minimum(low, last - 1)] - values) > radius)
     low -= (low > 0) & (np.abs(sorted_values[np.maximum(low - 1, 0)] - values) <= radius)
@@ -119,16 +204,36 @@ def _count_within(column: _Column, radius: np.ndarray) -> np.ndarray:
     return high - low - 1
 
 
-def _ksg(first: _Column, seconds: list[_Column], k: int) -> np.ndarray:
-    """Kraskov et al.'s first estimator of the mutual information of ``first`` with each of ``seconds``
-    (nats, negative estimates set to 0)."""
-    n = first.values.size
-    estimate = np.empty(len(seconds))
-    for i, second in enumerate(seconds):
-        radius = np.nextafter(_kth_distance(first, second, k), 0)
-        estimate[i] = (digamma(n) + digamma(k) - np.mean(digamma(_count_within(first, radius) + 1))
-                       - np.mean(digamma(_count_within(second, radius) + 1)))
-    return np.maximum(estimate, 0.0)
+def _ksg(columns: dict[int, _Column], members: np.ndarray, k: int) -> np.ndarray:
+    """Kraskov et al.'s first estimator of the mutual information of each pair of ``columns`` (rows of
+    ``members``; nats, negative estimates set to 0).
+
+    The neighbour distances come from one sweep per first column for all its
+    pairs (:func:`_kth_distances`; one k-d tree per pair on many rows); the
+    one-dimensional counts are then done column by column, for every pair
+    holding the column at once.
+    """
+    n = next(iter(columns.values())).values.size
+    radius = np.empty((members.shape[0], n))
+    block = max(1, _SWEEP_FLOATS // n)
+    for a in np.unique(members[:, 0]):
+        rows = np.flatnonzero(members[:, 0] == a)
+        seconds = [columns[int(b)] for b in members[rows, 1]]
+        if n > _SWEEP_MAX_ROWS:
+            radius[rows] = [_kth_distance(columns[int(a)], second, k) for second in seconds]
+            continue
+        for start in range(0, rows.size, block):
+            radius[rows[start:start + block]] = _kth_distances(columns[int(a)], seconds[start:start + block], k)
+    radius = np.nextafter(radius, 0)
+    # Counts are whole numbers in 0..n - 1: digamma is read from a table (the same values, computed once).
+    digamma_of_count = digamma(np.arange(1, n + 1, dtype=np.float64))
+    marginal = np.zeros(members.shape[0])
+    for j in np.unique(members):
+        for side in (0, 1):
+            rows = np.flatnonzero(members[:, side] == j)
+            if rows.size:
+                marginal[rows] += np.mean(digamma_of_count[_count_within(columns[int(j)], radius[rows])], axis=1)
+    return np.maximum(digamma(n) + digamma(k) - marginal, 0.0)
 
 
 def _spearman(a: np.ndarray, b: np.ndarray) -> float:
@@ -218,7 +323,7 @@ def pair_dependence(
     slot = {j: position for position, j in enumerate(ranked)}
     rank = np.full(len(members), np.nan)
     info = np.full(len(members), np.nan)
-    shared: dict[int, list[int]] = {}
+    shared: list[int] = []
     for i, (a, b) in enumerate(members):
         both = ~np.isnan(matrix[:, a]) & ~np.isnan(matrix[:, b])
         xa, xb = matrix[both, a], matrix[both, b]
@@ -229,10 +334,11 @@ def pair_dependence(
                                                            random_state))
         elif a in prepared and b in prepared:
             rank[i] = float(np.atleast_2d(rank_matrix)[slot[a], slot[b]])
-            shared.setdefault(int(a), []).append(i)
+            shared.append(i)
         else:
             rank[i] = _spearman(xa, xb)
-            info[i] = information_correlation(_ksg(_prepare(xa, rng), [_prepare(xb, rng)], k)[0])
-    for a, chosen in shared.items():
-        info[chosen] = information_correlation(_ksg(prepared[a], [prepared[int(members[i, 1])] for i in chosen], k))
+            info[i] = information_correlation(_ksg({0: _prepare(xa, rng), 1: _prepare(xb, rng)},
+                                                   np.array([[0, 1]]), k)[0])
+    if shared:
+        info[shared] = information_correlation(_ksg(prepared, members[shared], k))
     return rank, info

@@ -79,6 +79,7 @@ from .pdp import (
     SCALES,
     FittedModel,
     PreparedData,
+    SubsetLayout,
     brute_parts,
     check_output,
     choose_exact,
@@ -446,12 +447,15 @@ def _rows(fitted: FittedModel, X: Any, sample: int | None, random_state: int | N
 
 
 # --------------------------------------------------------------------------- row subsets
-def _centred_in(values: np.ndarray, inside: np.ndarray, n_inside: np.ndarray) -> np.ndarray:
-    """``values`` (..., n_rows, k) centred over the rows of each subset (``inside`` (n_rows, k)), zero outside it."""
-    mean = np.einsum("...rk,rk->...k", values, inside) / n_inside
-    centred = values - mean[..., None, :]
-    centred *= inside
-    return centred
+def _centred_in(values: np.ndarray, layout: SubsetLayout) -> np.ndarray:
+    """``values`` (..., n_entries) centred over the entries of each subset (:class:`treeprobe.pdp.SubsetLayout`), in place."""
+    values -= (np.add.reduceat(values, layout.start, axis=-1) / layout.size)[..., layout.subset]
+    return values
+
+
+def _squares_in(values: np.ndarray, layout: SubsetLayout) -> np.ndarray:
+    """(..., k): sum of squares of ``values`` (..., n_entries) over the entries of each subset."""
+    return np.add.reduceat(values * values, layout.start, axis=-1)
 
 
 def subset_pair_h(
@@ -487,23 +491,21 @@ def subset_pair_h(
     out = np.zeros((subsets.shape[0], 2, len(wanted)))
     if not wanted:
         return out
-    main, members, blocks = exact_subset_parts(fitted.ensemble, data.matrix, output_index, wanted, subsets,
-                                               progress=progress)
-    inside = subsets.T.astype(np.float64)
-    n_inside = inside.sum(axis=0)
-    main = _centred_in(main, inside, n_inside)
+    parts = exact_subset_parts(fitted.ensemble, data.matrix, output_index, wanted, subsets, progress=progress)
+    layout, members = parts.layout, parts.members
+    main = _centred_in(parts.main, layout)
     position = {tuple(pair): m for m, pair in enumerate(members.tolist())}
     column = np.array([position[pair] for pair in wanted])
     statistics = np.zeros((2, members.shape[0], subsets.shape[0]))
-    for start, stop, numerator in blocks:
-        total = _centred_in(numerator, inside, n_inside)
-        top = np.einsum("prk,prk->pk", total, total)
-        total += main[members[start:stop, 0]]
-        total += main[members[start:stop, 1]]
-        bottom = np.einsum("prk,prk->pk", total, total)
+    for chosen, numerator in parts.blocks:
+        numerator = _centred_in(numerator, layout)
+        top = _squares_in(numerator, layout)
+        numerator += main[members[chosen, 0]]
+        numerator += main[members[chosen, 1]]
+        bottom = _squares_in(numerator, layout)
         with np.errstate(divide="ignore", invalid="ignore"):
-            statistics[0, start:stop] = np.where(bottom > 0, top / bottom, np.nan)
-        statistics[1, start:stop] = np.sqrt(top / n_inside)
+            statistics[0, chosen] = np.where(bottom > 0, top / bottom, np.nan)
+        statistics[1, chosen] = np.sqrt(top / layout.size)
     return statistics[:, column].transpose(2, 0, 1)
 
 

@@ -50,7 +50,10 @@ of every ``F_j``, ``F_jk - F_j - F_k``, the triple terms, ``F`` and
 :func:`brute_parts` (``F_S`` by averaging predictions), besides the row
 preparation helpers, and :func:`exact_subset_parts` (``F_j`` and the pair
 terms of many row subsets from one pass: the row sets above are built once
-for all rows and each share is counted inside each subset). Paths and parents come from :mod:`treeprobe.paths`.
+for all rows and each share is counted inside each subset; a pair's boxes and
+linear terms become the corners of one grid per pair, summed with one column
+per subset and read at each subset's own rows). Paths and parents come from
+:mod:`treeprobe.paths`.
 
 References
 ----------
@@ -73,7 +76,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from joblib import Parallel, delayed
-from scipy.sparse import csr_matrix
+from scipy.sparse import csc_matrix, csr_matrix
 
 from .checks import check_choice, check_int
 from .data import model_matrix, numeric_array
@@ -370,11 +373,40 @@ def _weighted_row_sums(words: np.ndarray, group: np.ndarray, weight: np.ndarray,
 
 def _subset_counts(words: np.ndarray, masks: np.ndarray) -> np.ndarray:
     """(n, k): set bits of each row of ``words`` inside each of the ``k`` row sets ``masks`` (k, n_words)."""
+    if masks.shape[0] > 1:
+        return _counts_by_word(words, masks)
     out = np.empty((masks.shape[0], words.shape[0]), dtype=np.int64)
     for b, mask in enumerate(masks):
         out[b] = _popcount(words & mask)
     # A transposed view: copying into (n, k) order costs more than the strided reads that follow.
     return out.T
+
+
+def _bit_counts(words: np.ndarray) -> np.ndarray:
+    """Set bits of every uint64 word, elementwise (uint8)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(words)
+    as_bits = np.unpackbits(np.ascontiguousarray(words).view(np.uint8).reshape(words.shape + (8,)), axis=-1)
+    return as_bits.reshape(words.shape + (64,)).sum(axis=-1, dtype=np.uint8)
+
+
+def _counts_by_word(words: np.ndarray, masks: np.ndarray) -> np.ndarray:
+    """:func:`_subset_counts` for many row sets: word position by word position, every set at once, over
+    blocks of rows small enough to stay in cache (about three times faster than one pass per set)."""
+    n_words = words.shape[1]
+    out = np.zeros((words.shape[0], masks.shape[0]), dtype=np.int64)
+    # Empty row sets (a fifth of the failure sets of entry pairs, typically) count nothing in any subset.
+    items = np.flatnonzero(np.any(words, axis=1))
+    words = words[items]
+    # Counts stay below 2**16 for up to 65,535 rows: a narrow running total halves the memory traffic.
+    total = np.zeros((items.size, masks.shape[0]), dtype=np.uint16 if n_words * 64 < 2**16 else np.int64)
+    block = max(1, 2**17 // masks.shape[0])
+    for start in range(0, items.size, block):
+        piece, running = words[start:start + block], total[start:start + block]
+        for word in range(n_words):
+            running += _bit_counts(piece[:, word, None] & masks[None, :, word])
+    out[items] = total
+    return out
 
 
 def _column_bincount(index: np.ndarray, weights: np.ndarray, length: int) -> np.ndarray:
@@ -824,13 +856,19 @@ def _interval_sums(cells: RowCells, steps: np.ndarray) -> np.ndarray:
     return out
 
 
-def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
-    """(n_pairs, n_rows, ...): the linear terms of each pair, a step function of each of its two features,
-    from their summed jumps (``steps``, segments starting at ``offset``; trailing axes kept)."""
+def _segment_running_sums(offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """Running sums of ``steps`` (n, ...) restarted at every segment start ``offset`` (its last entry: n)."""
     size = np.diff(offset)
     # Every interval closes inside its segment, so the running sum is back at 0 (up to rounding) at each end.
     running = np.cumsum(steps, axis=0)
     running -= np.repeat(np.concatenate((np.zeros((1,) + steps.shape[1:]), running[offset[1:-1] - 1])), size, axis=0)
+    return running
+
+
+def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """(n_pairs, n_rows, ...): the linear terms of each pair, a step function of each of its two features,
+    from their summed jumps (``steps``, segments starting at ``offset``; trailing axes kept)."""
+    running = _segment_running_sums(offset, steps)
     out = np.zeros((members.shape[0], cells.n_rows) + steps.shape[1:])
     # Feature by feature: a small table of that feature's step functions, read at the rows' cells.
     for side in (0, 1):
@@ -969,14 +1007,13 @@ class ExactParts:
 
 
 def _run_exact_job(job: _ExactJob, trees: np.ndarray, n_jobs: int, label: str, progress: bool | None,
-                   dense: dict[str, np.ndarray]) -> tuple[np.ndarray, dict | None, np.ndarray, list[dict]]:
+                   dense: dict[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, list[dict]]:
     """Run :func:`_exact_chunk` over the tree chunks of ``trees``; the pieces every pair and row-set run needs.
 
     Dense pieces named in ``dense`` are added into its arrays, the jumps of
     ``main`` and ``linear`` as they come. Returns ``main`` (p, n_rows, k) from
-    :func:`_interval_sums`, the joined pair boxes sorted by
-    pair (None without pairs), the summed linear jumps (n_segments, k) and the
-    chunks' remaining pieces.
+    :func:`_interval_sums`, the summed linear jumps (n_segments, k) and the
+    chunks' remaining pieces (their pair boxes among them).
     """
     cells, n_sets = job.cells, job.masks.shape[0]
     tasks = [(job, chunk) for chunk in tree_chunks(job.ens, trees, cells.n_rows)]
@@ -998,15 +1035,18 @@ def _run_exact_job(job: _ExactJob, trees: np.ndarray, n_jobs: int, label: str, p
         pieces.append(part)
 
     _run_tasks(_exact_chunk, tasks, n_jobs, label, progress, consume=consume)
-    main = _interval_sums(cells, main_steps)
-    boxes = None
-    if job.pair_keys.size and pieces:
-        # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
-        boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
-                 for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
-        order = np.argsort(boxes["pair"], kind="stable")
-        boxes = {name: values[order] for name, values in boxes.items()}
-    return main, boxes, linear, pieces
+    return _interval_sums(cells, main_steps), linear, pieces
+
+
+def _joined_boxes(job: _ExactJob, pieces: list[dict]) -> dict | None:
+    """The pair boxes of all chunks in one set of arrays sorted by pair (None without pairs)."""
+    if not (job.pair_keys.size and pieces):
+        return None
+    # Field by field, each chunk's share dropped once joined, to keep one copy of the boxes at a time.
+    boxes = {name: np.concatenate([part["boxes"].pop(name) for part in pieces])
+             for name in ("pair", "weight", "a_low", "a_high", "b_low", "b_high")}
+    order = np.argsort(boxes["pair"], kind="stable")
+    return {name: values[order] for name, values in boxes.items()}
 
 
 def _pair_sums(job: _ExactJob, boxes: dict | None, linear: np.ndarray, start: int, stop: int) -> np.ndarray:
@@ -1055,10 +1095,10 @@ def exact_parts(
                     against_rest=bool(against_rest), masks=cells.valid[None])
     rest = np.zeros((p, n_rows))
     triple = np.zeros((sorted_triples.size, n_rows))
-    main, boxes, linear, pieces = _run_exact_job(job, trees, n_jobs, f"H-statistics (exact, output {output})",
-                                                 progress, {"rest": rest, "triple": triple})
+    main, linear, pieces = _run_exact_job(job, trees, n_jobs, f"H-statistics (exact, output {output})",
+                                          progress, {"rest": rest, "triple": triple})
     leaves = ens.apply(matrix, checked=True)[:, trees]
-    pair = _pair_sums(job, boxes, linear, 0, sorted_pairs.size)
+    pair = _pair_sums(job, _joined_boxes(job, pieces), linear, 0, sorted_pairs.size)
     if against_rest and pieces:
         rest += _reached_leaf_sums(leaves, ens.n_nodes, *_joined([part["rest_leaf"] for part in pieces], 3), p)
     return ExactParts(
@@ -1399,6 +1439,178 @@ def _subset_masks(subsets: np.ndarray, n_words: int) -> np.ndarray:
     return np.bitwise_or.reduce(bits, axis=2)
 
 
+@dataclass(frozen=True)
+class SubsetLayout:
+    """The (row, subset) entries of many row subsets, subset by subset, rows ascending within each.
+
+    Per-row values of every subset are kept at these entries only (a row
+    outside a subset has no value there), so the sums per subset are sums over
+    consecutive entries.
+    """
+
+    row: np.ndarray     # (n_entries,) the row of each entry
+    subset: np.ndarray  # (n_entries,) its subset
+    start: np.ndarray   # (k,) first entry of each subset
+    size: np.ndarray    # (k,) rows in each subset
+
+    @classmethod
+    def of(cls, subsets: np.ndarray) -> SubsetLayout:
+        """The layout of a boolean (k, n_rows) matrix (row ``i`` is in subset ``b`` when ``subsets[b, i]``)."""
+        subset, row = np.nonzero(subsets)
+        size = subsets.sum(axis=1)
+        return cls(row=row, subset=subset, start=np.cumsum(size) - size, size=size)
+
+
+@dataclass(frozen=True)
+class SubsetParts:
+    """Per-entry pieces of the partial dependence functions on many row subsets (:func:`exact_subset_parts`).
+
+    Attributes
+    ----------
+    layout : SubsetLayout
+        The (row, subset) entries the values stand at.
+    main : ndarray (p, n_entries)
+        ``F_j`` of every feature ``j``, each entry in its own subset's function.
+    members : ndarray (n_unique_pairs, 2)
+        The distinct pairs asked for (ascending features).
+    blocks : iterator of (ndarray of int, ndarray (n_block, n_entries))
+        Positions in ``members`` and ``F_jk - F_j - F_k`` of those pairs, block
+        by block so that all pairs need not be held at once.
+
+    Every value is uncentred, exact up to an additive constant per (function, subset).
+    """
+
+    layout: SubsetLayout
+    main: np.ndarray
+    members: np.ndarray
+    blocks: Iterator[tuple[np.ndarray, np.ndarray]]
+
+
+# Floats in one batch of padded pair grids (k columns each): a few MB, so that the running sums stay in cache.
+SUBSET_GRID_BUDGET = 2**21
+
+
+def _linear_corners(job: _ExactJob, linear: np.ndarray) -> dict:
+    """The summed jumps of the pairs' linear terms as boxes with one corner (no upper ends).
+
+    A jump of the step function of side ``a`` at cell ``c`` adds its weight to
+    every row whose cell on ``a`` is ``c`` or above, whatever its cell on ``b``:
+    in the pair's grid, one corner at (``c``, 0), and likewise (0, ``c``) for
+    side ``b``. Returns ``pair``, snapped ``a_low`` and ``b_low``, and ``weight``
+    (n, k), the jumps read from ``linear`` (laid out at :attr:`_ExactJob.segment_offset`).
+    """
+    cells, offset = job.cells, job.segment_offset
+    position = np.flatnonzero(np.any(linear != 0, axis=1))
+    segment = np.searchsorted(offset, position, side="right") - 1
+    pair, side = segment // 2, segment % 2
+    coordinate = cells.snap[cells.snap_offset[job.pair_members[pair, side]] + position - offset[segment]]
+    zero = np.zeros_like(coordinate)
+    return {"pair": pair, "a_low": np.where(side == 0, coordinate, zero),
+            "b_low": np.where(side == 1, coordinate, zero), "weight": linear[position]}
+
+
+def _box_corners(boxes: dict) -> dict:
+    """The signed corners of every box, box by box, as (``pair``, ``a``, ``b``, ``sign``, ``box``) arrays: four
+    per box, or one (at ``a_low``, ``b_low``) for boxes without upper ends (the linear terms' jumps)."""
+    n_boxes = boxes["pair"].size
+    if "a_high" not in boxes:
+        return {"pair": boxes["pair"], "a": boxes["a_low"], "b": boxes["b_low"], "sign": np.ones(n_boxes),
+                "box": np.arange(n_boxes)}
+    pick = {"a": ("a_low", "a_high", "a_low", "a_high"), "b": ("b_low", "b_low", "b_high", "b_high")}
+    corners = {axis: np.column_stack([boxes[name] for name in names]).ravel() for axis, names in pick.items()}
+    return {"pair": np.repeat(boxes["pair"], 4), **corners, "sign": np.tile([1.0, -1.0, -1.0, 1.0], n_boxes),
+            "box": np.repeat(np.arange(n_boxes), 4)}
+
+
+def _corner_lines(corners: list[dict], n_pairs: int, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """(n_pairs, span) per axis: how many of the pair's distinct corner coordinates lie at or below each snapped
+    coordinate; a row's grid line is that count at its own coordinate (line 0: below every corner)."""
+    lines = []
+    for axis in ("a", "b"):
+        present = np.zeros((n_pairs, span), dtype=bool)
+        for part in corners:
+            present[part["pair"], part[axis]] = True
+        lines.append(np.cumsum(present, axis=1))
+    return lines[0], lines[1]
+
+
+def _grid_batches(height: np.ndarray, width: np.ndarray, n_sets: int) -> tuple[np.ndarray, list[int]]:
+    """Pairs in order of grid size and the cuts of that order into batches whose padded grids (the largest height
+    times the largest width, ``n_sets`` columns) hold about :data:`SUBSET_GRID_BUDGET` floats."""
+    order = np.lexsort((width, height))
+    cuts, start, widest = [0], 0, 0
+    for position, pair in enumerate(order):
+        widest = max(widest, int(width[pair]))
+        if position > start and (position + 1 - start) * int(height[pair]) * widest * n_sets > SUBSET_GRID_BUDGET:
+            cuts.append(position)
+            start, widest = position, int(width[pair])
+    return order, cuts + [order.size]
+
+
+def _corner_grid_sums(shape: tuple[int, int], lines: tuple[np.ndarray, np.ndarray], rows: tuple[np.ndarray, np.ndarray],
+                     corners: dict, weights: np.ndarray, layout: SubsetLayout) -> np.ndarray:
+    """(n_pairs, n_entries): per pair, the sum of the weights of its corners at or below each entry's row on
+    both axes, in that entry's subset column.
+
+    ``shape`` is the padded (height, width) of the batch's grids, ``lines``
+    the pairs' :func:`_corner_lines`, ``rows`` the rows' grid lines on each
+    axis (n_pairs, n_rows), ``corners`` the batch's corners (``pair`` numbered
+    within the batch, snapped ``a`` and ``b``, ``sign``, and ``box``: their row
+    of ``weights`` (n, k)). One sparse product puts the signed weights on the
+    grids; the grids of the batch are padded to one height and width and laid
+    out (height, width, pair, subset), so each running sum is one vector
+    addition per grid line for all pairs and subsets at once (the second after
+    a transposed copy).
+    """
+    a_lines, b_lines = lines
+    n_pairs, n_sets = a_lines.shape[0], weights.shape[1]
+    height, width = shape
+    pair = corners["pair"]
+    cell = (a_lines[pair, corners["a"]] * width + b_lines[pair, corners["b"]]) * n_pairs + pair
+    # Corners come box by box: their columns need no sorting.
+    starts = np.searchsorted(corners["box"], np.arange(weights.shape[0] + 1))
+    spread = csc_matrix((corners["sign"], cell, starts), shape=(height * width * n_pairs, weights.shape[0]))
+    grid = np.asarray(spread @ weights).reshape(height, width, -1)
+    for line in range(1, height):
+        grid[line] += grid[line - 1]
+    # Along the second axis after a transposed copy: adding whole lines is several times faster than strided ones.
+    grid = np.ascontiguousarray(grid.transpose(1, 0, 2))
+    for line in range(1, width):
+        grid[line] += grid[line - 1]
+    a_row, b_row = rows
+    base = ((b_row * height + a_row) * n_pairs + np.arange(n_pairs)[:, None]) * n_sets
+    return grid.ravel()[base[:, layout.row] + layout.subset]
+
+
+def _chunk_corners(boxes: dict, rank: np.ndarray, ends: tuple[np.ndarray, np.ndarray]) -> dict:
+    """One chunk's boxes as corners sorted by the rank of their pair (the batch order), without the corners at
+    a feature's end (no row lies at or above it); ``weight`` holds the boxes' weights in the same order and
+    ``box_rank`` their ranks, ``box`` points each corner to its box."""
+    order = np.argsort(rank[boxes["pair"]], kind="stable")
+    boxes = {name: values[order] for name, values in boxes.items()}
+    corners = _box_corners(boxes)
+    keep = (corners["a"] < ends[0][corners["pair"]]) & (corners["b"] < ends[1][corners["pair"]])
+    corners = {name: values[keep] for name, values in corners.items()}
+    corners["rank"] = rank[corners.pop("pair")]
+    return {"corners": corners, "weight": boxes["weight"], "box_rank": rank[boxes["pair"]]}
+
+
+def _batch_corners(chunks: list[dict], bounds: tuple[int, int]) -> tuple[dict, np.ndarray]:
+    """The corners (``pair`` numbered from 0 within the batch) and weight rows of batch ranks ``bounds``."""
+    parts, weights, start = [], [], 0
+    for chunk in chunks:
+        low, high = np.searchsorted(chunk["corners"]["rank"], bounds)
+        first, last = np.searchsorted(chunk["box_rank"], bounds)
+        part = {name: values[low:high] for name, values in chunk["corners"].items()}
+        part["box"] = part["box"] - first + start
+        parts.append(part)
+        weights.append(chunk["weight"][first:last])
+        start += last - first
+    corners = {name: np.concatenate([part[name] for part in parts]) for name in parts[0]}
+    corners["pair"] = corners.pop("rank") - bounds[0]
+    return corners, np.concatenate(weights)
+
+
 def exact_subset_parts(
     ens: ForestGraph,
     matrix: np.ndarray,
@@ -1407,44 +1619,60 @@ def exact_subset_parts(
     subsets: np.ndarray,
     *,
     progress: bool | None = None,
-) -> tuple[np.ndarray, np.ndarray, Iterator[tuple[int, int, np.ndarray]]]:
-    """The exact engine for many row subsets at once: per-row pieces of ``F_j`` and ``F_jk - F_j - F_k``.
+) -> SubsetParts:
+    """The exact engine for many row subsets at once: ``F_j`` and ``F_jk - F_j - F_k`` at each subset's rows.
 
     Row subset ``b`` (row ``i`` is in it when ``subsets[b, i]``) is both the
     background and the evaluation rows of its own partial dependence functions,
     as if :func:`exact_parts` ran on ``matrix[subsets[b]]``. Everything that does
     not depend on which rows are in a subset (the rows' cells, the path
-    tables, which rows fail which conditions, the boxes of every pair) is built
-    once; only the shares ``w_L(S)`` are counted per subset (a popcount of the
-    failure row sets AND the subset), and the per-row sums carry one column per
-    subset.
+    tables, which rows fail which conditions, the boxes of every pair and their
+    grids' lines) is built once; the shares ``w_L(S)`` are counted per subset (a
+    popcount of the failure row sets AND the subset, every subset in one pass
+    over the words), and every weight, running sum and grid carries one column
+    per subset. Values are read only at the rows of their own subset
+    (:class:`SubsetLayout`).
 
     Returns
     -------
-    main : ndarray (p, n_rows, k)
-        ``F_j`` of subset ``b`` at every row (rows outside the subset hold values too: ignore them).
-    members : ndarray (n_unique_pairs, 2)
-        The distinct ``pairs`` (ascending features), in the order of the blocks.
-    blocks : iterator of (start, stop, ndarray (stop - start, n_rows, k))
-        ``F_jk - F_j - F_k`` of pairs ``members[start:stop]``, in blocks of about
-        ``CELL_BUDGET / 4`` values so that all pairs need not be held at once.
-
-    Every value is uncentred, exact up to an additive constant per (function, subset).
+    SubsetParts
     """
     p, n_rows = ens.n_features, matrix.shape[0]
     subsets = np.asarray(subsets, dtype=bool).reshape(-1, n_rows)
+    layout = SubsetLayout.of(subsets)
     keys = np.unique(encode_sets(np.array(pairs, dtype=np.int64).reshape(-1, 2), p))
+    members = decode_sets(keys, p, 2)
     trees, node_value = leaf_value_column(ens, output)
     cells = row_cells(ens, matrix)
     job = _ExactJob(ens=ens, cells=cells, node_value=node_value, links=parent_links(ens), pair_keys=keys,
-                    pair_members=decode_sets(keys, p, 2), triple_keys=np.zeros(0, dtype=np.int64),
-                    against_rest=False, masks=_subset_masks(subsets, cells.n_words))
-    main, boxes, linear, _ = _run_exact_job(job, trees, 1, f"resampling (exact, output {output})", progress, {})
-    per_block = max(1, CELL_BUDGET // 4 // max(n_rows * subsets.shape[0], 1))
+                    pair_members=members, triple_keys=np.zeros(0, dtype=np.int64), against_rest=False,
+                    masks=_subset_masks(subsets, cells.n_words))
+    main, linear, pieces = _run_exact_job(job, trees, 1, f"resampling (exact, output {output})", progress, {})
+    main = main[:, layout.row, layout.subset]
+    # The boxes of the product terms, chunk by chunk, and the linear terms' jumps as one-corner boxes.
+    boxes = [piece["boxes"] for piece in pieces if piece["boxes"] is not None and piece["boxes"]["pair"].size]
+    boxes.append(_linear_corners(job, linear))
+    del pieces, linear
+    # Snapped coordinates run from 0 to the occupied cell count of the feature (its end).
+    occupied = cells.snap[cells.snap_offset[1:] - 1]
+    ends = (occupied[members[:, 0]], occupied[members[:, 1]])
+    a_lines, b_lines = _corner_lines([_box_corners(part) for part in boxes], keys.size, int(occupied.max()) + 1)
+    # Lines up to the last occupied coordinate: corners at the end are dropped, as no row reaches them.
+    height = np.take_along_axis(a_lines, ends[0][:, None] - 1, axis=1)[:, 0] + 1
+    width = np.take_along_axis(b_lines, ends[1][:, None] - 1, axis=1)[:, 0] + 1
+    order, cuts = _grid_batches(height, width, subsets.shape[0])
+    rank = np.empty(keys.size, dtype=np.int64)
+    rank[order] = np.arange(keys.size)
+    chunks = [_chunk_corners(part, rank, ends) for part in boxes]
+    del boxes
 
-    def blocks() -> Iterator[tuple[int, int, np.ndarray]]:
-        for start in range(0, keys.size, per_block):
-            stop = min(start + per_block, keys.size)
-            yield start, stop, _pair_sums(job, boxes, linear, start, stop)
+    def blocks() -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        for low, high in zip(cuts[:-1], cuts[1:], strict=True):
+            chosen = order[low:high]
+            lines = (a_lines[chosen], b_lines[chosen])
+            rows = (np.take_along_axis(lines[0], cells.rank[members[chosen, 0]], axis=1),
+                    np.take_along_axis(lines[1], cells.rank[members[chosen, 1]], axis=1))
+            shape = (int(height[chosen].max()), int(width[chosen].max()))
+            yield chosen, _corner_grid_sums(shape, lines, rows, *_batch_corners(chunks, (low, high)), layout)
 
-    return main, job.pair_members, blocks()
+    return SubsetParts(layout=layout, main=main, members=members, blocks=blocks())
