@@ -247,6 +247,28 @@ def index_groups(groups: Any, names: Sequence[str], *, where: str = "groups", in
     as the Python API does). Every error is one line naming ``where``, the
     group and the member, with a close match for a misspelt name.
 
+    Parameters
+    ----------
+    groups : sequence of sequences
+        The groups, each a non-empty list of feature names (or positions).
+    names : sequence of str
+        The model's feature names, in column order.
+    where : str, default "groups"
+        Where the groups came from (a file name, an option), for messages.
+    indices : bool, default False
+        Accept 0-based positions as members too.
+
+    Returns
+    -------
+    list of list of int
+        Each group's positions, sorted; the groups in the order given.
+
+    Raises
+    ------
+    DataError
+        A group that is empty or not a list, a member the model lacks, a
+        position out of range, or a feature listed twice in one group.
+
     Examples
     --------
     >>> index_groups([["shift_length", "fuel_price"]], ["fuel_price", "shift_length", "crew_size"])
