@@ -292,7 +292,7 @@ def test_max_ratio_test_holds_its_family_wise_level_under_an_exchangeable_null()
     interacting, P(any p_adjusted <= level) <= level whatever the number of pairs (here 40 correlated pairs of
     unequal scales). 4,000 simulated models; the count of false calls must stay under the level's binomial
     upper bound (mean 200, sd 13.8: 245 is more than three sd above)."""
-    from treeprobe.verdicts import max_ratio_test
+    from treeprobe.floor import max_ratio_test
 
     rng = np.random.default_rng(11)
     refits, pairs, runs = 19, 40, 4000
@@ -308,7 +308,7 @@ def test_max_ratio_test_holds_its_family_wise_level_under_an_exchangeable_null()
 
 def test_max_ratio_test_formulas_on_a_small_case():
     """p-values by the (1 + b) / (R + 1) count (Phipson and Smyth 2010) and the floor equivalence, by hand."""
-    from treeprobe.verdicts import max_ratio_test
+    from treeprobe.floor import max_ratio_test
 
     null = np.array([[1.0, 0.1], [2.0, 0.2], [3.0, 0.3]])
     observed = np.array([2.5, 0.35])

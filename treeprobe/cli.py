@@ -138,7 +138,7 @@ def _check_options(args: argparse.Namespace) -> None:
         if hasattr(args, dest):
             check(getattr(args, dest))
     if getattr(args, "target", None) is not None and getattr(args, "null_refits", 0) and hasattr(args, "level"):
-        from .verdicts import check_refit_level
+        from .floor import check_refit_level
 
         check_refit_level(args.null_refits, args.level, names=("--null-refits", "--level"))
     if getattr(args, "class_index", None) == "all" and args.command != "triage":

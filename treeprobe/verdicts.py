@@ -31,7 +31,7 @@ feature in its own interaction-constraint group) to ``y``; build synthetic
 targets with no interaction, the additive fit plus permuted residuals; refit
 the unconstrained model on each, as it was trained, and compute H on each
 refit. All pairs are tested together, so that the chance of any false call
-holds at a stated level (:func:`max_ratio_test`); when some pairs clear it by
+holds at a stated level (:func:`treeprobe.floor.max_ratio_test`); when some pairs clear it by
 a wide margin, every other pair is tested again against a null that keeps
 those interactions (Notes of :func:`triage`). We take the floor on ``h``,
 the interaction's root mean square in output units, rather than on H²: a
@@ -83,7 +83,7 @@ from .cooccurrence import structure
 from .data import model_matrix
 from .dependence import pair_dependence
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
-from .floor import check_refit_level, floor_test, label_change_share, max_ratio_test
+from .floor import check_refit_level, floor_test
 from .graph import ForestGraph
 from .io import load_model
 from .measure import h_statistic, subset_pair_h
@@ -97,8 +97,7 @@ from .refit import (
     training_recipe,
 )
 
-__all__ = ["TriageResult", "triage", "class_analysed", "label_change_share", "max_ratio_test", "check_refit_level",
-           "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
+__all__ = ["TriageResult", "triage", "class_analysed", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
 
 # The one verdict order: tables, tallies, legends and rules follow it.
 VERDICTS = ("interaction", "dependent", "co-split", "absent")
@@ -210,7 +209,7 @@ class TriageResult:
         ``h / sd(prediction)``, ``null_h2`` (the first round's ``1 - level``
         quantile of H² over refits), ``null_h`` (the noise floor: the ``h`` the
         pair must exceed), ``p_value`` (the pair's empirical p-value) and
-        ``p_adjusted`` (family-wise; :func:`max_ratio_test`), all NaN without
+        ``p_adjusted`` (family-wise; :func:`treeprobe.floor.max_ratio_test`), all NaN without
         ``y``; dependence: ``rank_correlation``
         (Spearman), ``information_correlation`` (``sqrt(1 - exp(-2 I))``),
         ``dependence`` = the larger of their absolute values; ``verdict``,
@@ -638,7 +637,7 @@ def triage(
     it was trained (same rounds: an overfit model overfits its refits too),
     and ``h`` of every pair is computed on each refit on the same rows. The
     pairs that are not strongly dependent (``D < max_dependence``; known
-    before any H) are tested together by :func:`max_ratio_test` at
+    before any H) are tested together by :func:`treeprobe.floor.max_ratio_test` at
     family-wise level ``level``; dependent pairs get p-values against the
     same yardstick but are never found. A real interaction spills onto other
     pairs, near it and (in overfit models) far from it, and a null without
