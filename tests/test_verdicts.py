@@ -81,8 +81,13 @@ def test_friedman1_columns_and_floor(friedman1):
     assert (tested["p_adjusted"] >= tested["p_value"] - 1e-12).all()
     # The floor is the h at which p_adjusted reaches the level: one decision, two ways to read it.
     assert ((tested["p_adjusted"] <= level) == (tested["h"] > tested["null_h"])).all()
-    assert (pairs.loc[sharing, "h2_low"] <= pairs.loc[sharing, "h2_high"] + 1e-12).all()
-    assert (pairs.loc[sharing, "h_low"] <= pairs.loc[sharing, "h_high"] + 1e-12).all()
+    # Intervals exactly where one could decide (sharing a path, effect at least min_effect), and ordered.
+    deciding = sharing & (pairs["effect"] >= result.thresholds["min_effect"])
+    assert deciding.any() and (~deciding).any()
+    interval = ["h2_low", "h2_high", "h_low", "h_high"]
+    assert pairs.loc[deciding, interval].notna().all().all() and pairs.loc[~deciding, interval].isna().all().all()
+    assert (pairs.loc[deciding, "h2_low"] <= pairs.loc[deciding, "h2_high"] + 1e-12).all()
+    assert (pairs.loc[deciding, "h_low"] <= pairs.loc[deciding, "h_high"] + 1e-12).all()
     # Every interaction clears both parts of its rule; faint pairs clear the floor but not the size.
     inter = pairs[pairs["verdict"] == "interaction"]
     assert (inter["p_adjusted"] <= level).all() and (inter["h"] > inter["null_h"]).all()

@@ -282,6 +282,37 @@ def path_table(
     )
 
 
+def _leaves_splitting_on(table: PathTable, features: np.ndarray) -> PathTable:
+    """The part of ``table`` whose leaves split on at least one of ``features`` (p,) bool, all their entries kept.
+
+    Node positions (``used_nodes``) are kept as they are; the other leaves add
+    only constants to the partial dependence of those features and their pairs.
+    """
+    keep_leaf = np.logical_or.reduceat(features[table.entry_feature], table.leaf_entry_start) if table.n_leaves \
+        else np.zeros(0, dtype=bool)
+    if keep_leaf.all():
+        return table
+    keep_entry = keep_leaf[table.entry_leaf]
+    step_count = np.diff(np.r_[table.entry_step_start, table.step_node.size])
+    keep_step = np.repeat(keep_entry, step_count)
+    step_position = np.cumsum(keep_step) - 1
+    new_leaf = np.cumsum(keep_leaf) - 1
+    entry_leaf = new_leaf[table.entry_leaf[keep_entry]]
+    return PathTable(
+        leaf_value=table.leaf_value[keep_leaf],
+        leaf_node=table.leaf_node[keep_leaf],
+        used_nodes=table.used_nodes,
+        step_node=table.step_node[keep_step],
+        step_left=table.step_left[keep_step],
+        entry_step_start=step_position[table.entry_step_start[keep_entry]],
+        entry_leaf=entry_leaf,
+        entry_feature=table.entry_feature[keep_entry],
+        leaf_entry_start=np.flatnonzero(np.r_[True, entry_leaf[1:] != entry_leaf[:-1]]) if entry_leaf.size
+        else np.zeros(0, dtype=np.int64),
+        constant=table.constant,
+    )
+
+
 def tree_chunks(ens: ForestGraph, trees: np.ndarray, n_rows: int) -> list[np.ndarray]:
     """Split ``trees`` into chunks whose path steps times ``n_rows`` stay near :data:`CELL_BUDGET`."""
     leaves = ens.feature < 0
@@ -692,6 +723,9 @@ class _ExactJob:
     against_rest: bool
     # (k, n_words) row sets, each both background and evaluation rows of one run (all rows: ``cells.valid``).
     masks: np.ndarray
+    # (p,) bool: the features whose ``F_j`` (and pairs) are asked for; None: all. Leaves whose paths split on none
+    # of them add only constants to those functions and are skipped (only without ``rest`` and triples).
+    features: np.ndarray | None = None
 
     @property
     def segment_offset(self) -> np.ndarray:
@@ -758,6 +792,8 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     ens, cells, pair_keys, triple_keys = job.ens, job.cells, job.pair_keys, job.triple_keys
     n_rows, n_features = cells.n_rows, ens.n_features
     table = path_table(ens, trees, job.node_value, job.links)
+    if job.features is not None:
+        table = _leaves_splitting_on(table, job.features)
     parts: dict[str, Any] = {"main": None, "boxes": None, "linear": None, "rest_leaf": None, "rest": None,
                              "triple": None}
     if not table.n_leaves:
@@ -770,7 +806,13 @@ def _exact_chunk(job: _ExactJob, trees: np.ndarray) -> dict[str, Any]:
     n_kept = _popcount(job.masks)
     none = _subset_counts(~ones, job.masks)
     exactly = ~twos[leaf] & fail
-    exactly_count = _subset_counts(exactly, job.masks)
+    if job.features is None:
+        exactly_count = _subset_counts(exactly, job.masks)
+    else:
+        # Shares are read only at the entries on the features asked for (their F_j and pair terms).
+        exactly_count = np.zeros((table.n_entries, job.masks.shape[0]), dtype=np.int64)
+        wanted = np.flatnonzero(job.features[table.entry_feature])
+        exactly_count[wanted] = _subset_counts(exactly[wanted], job.masks)
     share_one = (none[leaf] + exactly_count) / n_kept
     value = table.leaf_value[leaf]
     base = cells.prefix_offset[table.entry_feature[intervals.entry]]
@@ -1470,7 +1512,8 @@ class SubsetParts:
     layout : SubsetLayout
         The (row, subset) entries the values stand at.
     main : ndarray (p, n_entries)
-        ``F_j`` of every feature ``j``, each entry in its own subset's function.
+        ``F_j`` of every feature ``j`` of the pairs, each entry in its own subset's function (0 for the
+        other features: leaves splitting on none of the pairs' features are not walked).
     members : ndarray (n_unique_pairs, 2)
         The distinct pairs asked for (ascending features).
     blocks : iterator of (ndarray of int, ndarray (n_block, n_entries))
@@ -1646,7 +1689,7 @@ def exact_subset_parts(
     cells = row_cells(ens, matrix)
     job = _ExactJob(ens=ens, cells=cells, node_value=node_value, links=parent_links(ens), pair_keys=keys,
                     pair_members=members, triple_keys=np.zeros(0, dtype=np.int64), against_rest=False,
-                    masks=_subset_masks(subsets, cells.n_words))
+                    masks=_subset_masks(subsets, cells.n_words), features=np.isin(np.arange(p), members))
     main, linear, pieces = _run_exact_job(job, trees, 1, f"resampling (exact, output {output})", progress, {})
     main = main[:, layout.row, layout.subset]
     # The boxes of the product terms, chunk by chunk, and the linear terms' jumps as one-corner boxes.

@@ -205,7 +205,9 @@ class TriageResult:
         ``paths``, ``trees``, ``cover_share``, ``nested_gain``, ``first_level``,
         ``first_tree``; H (:func:`treeprobe.h_statistic`): ``h2``, ``h``,
         ``h2_low``/``h2_high`` and ``h_low``/``h_high`` (subsampling intervals
-        over ``resamples`` half-size row subsamples, NaN without; see Notes), ``effect`` =
+        over ``resamples`` half-size row subsamples, for the pairs sharing a
+        path with ``effect >= min_effect``, the only ones an interval can turn
+        into ``interaction``; NaN elsewhere or without; see Notes), ``effect`` =
         ``h / sd(prediction)``, ``null_h2`` (the first round's ``1 - level``
         quantile of H² over refits), ``null_h`` (the noise floor: the ``h`` the
         pair must exceed), ``p_value`` (the pair's empirical p-value) and
@@ -447,15 +449,18 @@ def _sharing(frame: pd.DataFrame) -> tuple[np.ndarray, list[tuple[str, str]]]:
 
 
 def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resamples: int, confidence: float,
-                    rng: np.random.Generator, output: int | None, progress: bool | None) -> pd.DataFrame:
-    """Add ``h2_low``, ``h2_high``, ``h_low``, ``h_high`` for pairs sharing a path (NaN elsewhere or without resamples)."""
-    sharing, names = _sharing(frame)
+                    min_effect: float, rng: np.random.Generator, output: int | None,
+                    progress: bool | None) -> pd.DataFrame:
+    """Add ``h2_low``, ``h2_high``, ``h_low``, ``h_high`` for pairs sharing a path whose ``effect`` reaches
+    ``min_effect`` (NaN elsewhere or without resamples): the others are ``co-split`` whatever their interval."""
+    deciding = (frame["paths"].to_numpy() > 0) & (frame["effect"].to_numpy() >= min_effect)
+    names = [tuple(k) for k in frame.loc[deciding, ["feature_a", "feature_b"]].to_numpy()]
     low, high = np.full((2, len(frame)), np.nan), np.full((2, len(frame)), np.nan)
     if resamples and names:
-        point = np.vstack([frame.loc[sharing, "h2"].to_numpy(), frame.loc[sharing, "h"].to_numpy()])
-        low[:, sharing], high[:, sharing] = _subsample_intervals(graph, rows, point, names, resamples=resamples,
-                                                                 confidence=confidence, rng=rng, output=output,
-                                                                 progress=progress)
+        point = np.vstack([frame.loc[deciding, "h2"].to_numpy(), frame.loc[deciding, "h"].to_numpy()])
+        low[:, deciding], high[:, deciding] = _subsample_intervals(graph, rows, point, names, resamples=resamples,
+                                                                   confidence=confidence, rng=rng, output=output,
+                                                                   progress=progress)
     frame["h2_low"], frame["h2_high"], frame["h_low"], frame["h_high"] = low[0], high[0], low[1], high[1]
     return frame
 
@@ -560,7 +565,9 @@ def triage(
         Half-size row subsamples for the intervals of H² and ``h`` (0: none;
         the point values are used). Default 20 without a noise floor, 0 with
         one: the refits then give the evidence, and the intervals would only
-        be shown.
+        be shown. Intervals are computed for the pairs whose ``effect``
+        reaches ``min_effect``: below it a pair is not an interaction
+        whatever its interval.
     null_refits : int, default 19
         Refits on synthetic targets for the noise floor (used only with ``y``).
         The smallest p-value they can give is ``1 / (null_refits + 1)``, so at
@@ -707,9 +714,9 @@ def triage(
     scale = prediction_sd if prediction_sd > 0 else 1.0
 
     frame = _pair_frame(walked, hres, used_names, include_absent)
-    frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"], rng=rng,
-                            output=h_output, progress=progress)
     frame["effect"] = frame["h"] / scale
+    frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"],
+                            min_effect=thresholds["min_effect"], rng=rng, output=h_output, progress=progress)
     frame = _with_dependence(frame, graph, matrix, random_state)
     frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, matrix_all, target, matrix,
                                                        feature_names=graph.feature_names, refits=null_refits,
