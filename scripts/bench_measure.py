@@ -16,8 +16,9 @@ figures come from one process, so each is a ratio to a baseline of this run
 
 For information it also times the two stages a triage without target adds
 to the exact H on the same rows: the H of 20 half-size row subsets from one
-batched exact pass (``subset_pair_h``) and the dependence of every pair
-(``pair_dependence``).
+batched exact pass (``subset_pair_h``), for the pairs triage takes them for
+(sharing a path, ``effect`` at least ``min_effect``), and the dependence of
+every pair (``pair_dependence``).
 
 Usage::
 
@@ -61,8 +62,9 @@ def _triage_parts(ensemble, X, triaged, n_rows: int, repeats: int) -> dict[str, 
     subsets = np.zeros((20, rows.shape[0]), dtype=bool)
     for subset in subsets:
         subset[rng.choice(rows.shape[0], size=rows.shape[0] // 2, replace=False)] = True
-    sharing = triaged.pairs[triaged.pairs["paths"] > 0]
-    names = list(zip(sharing["feature_a"], sharing["feature_b"], strict=True))
+    pairs = triaged.pairs
+    deciding = pairs[(pairs["paths"] > 0) & (pairs["effect"] >= triaged.thresholds["min_effect"])]
+    names = list(zip(deciding["feature_a"], deciding["feature_b"], strict=True))
     index = {name: j for j, name in enumerate(ensemble.feature_names)}
     columns = [(index[a], index[b]) for a, b in zip(triaged.pairs["feature_a"], triaged.pairs["feature_b"], strict=True)]
     return best_times({"subsets": lambda: subset_pair_h(ensemble, rows, names, subsets, progress=False),
@@ -104,8 +106,10 @@ def main() -> int:
     print(f"exact : {n_pairs} pairs + {len(result.against_rest)} one-vs-rest on {result.n_rows} rows in "
           f"{t_exact:.2f} s (best of {args.repeats}); triage without target {t_triage:.2f} s")
     parts = _triage_parts(ensemble, X, results["triage"], args.rows, args.repeats)
-    print(f"triage: of which {parts['subsets']:.2f} s the H of 20 row subsets and {parts['dependence']:.2f} s the "
-          f"dependence of {len(results['triage'].pairs)} pairs (best of {args.repeats})")
+    n_deciding = int(results["triage"].pairs["h_low"].notna().sum())
+    print(f"triage: of which {parts['subsets']:.2f} s the H of 20 row subsets for the {n_deciding} pair(s) whose "
+          f"effect reaches min_effect and {parts['dependence']:.2f} s the dependence of "
+          f"{len(results['triage'].pairs)} pairs (best of {args.repeats})")
 
     rows = X[np.sort(np.random.default_rng(0).choice(X.shape[0], size=args.rows, replace=False))]
     chosen = [tuple(p) for p in result.pairs[["feature_a", "feature_b"]].head(args.brute_pairs).to_numpy()]

@@ -72,13 +72,14 @@ __all__ = ["pair_dependence", "information_correlation"]
 _MIN_ROWS = 5
 # The neighbour sweep compares about 1.4 sqrt(n) places for every row at once (most rows are done by then; the
 # expected neighbours within reach of a row grow as sqrt(n)), then 4 places between checks for the rows that go
-# on, for as many second columns at once as keep each working array near 2**15 floats (in cache). From 10,000
+# on, for as many second columns at once as keep each working array near 2**16 floats (in cache). From 10,000
 # rows on, one k-d tree per pair is faster (the sweep grows as n sqrt(n)). Measured on Friedman benchmark
-# columns: on 1,000 rows and 1,225 pairs the sweep takes 0.5 s, the k-d trees 0.8 s; 49 pairs of one first
-# column on 8,000 rows 0.22 s against 0.29 s; crossover near 12,000 rows.
+# columns: on 1,000 rows and 1,225 pairs the sweep takes 0.3 s (0.5 s with columns laid out row-contiguous),
+# the k-d trees 0.8 s; 49 pairs of one first column on 8,000 rows 0.22 s against 0.29 s; crossover near 12,000
+# rows.
 _SWEEP_PER_ROOT = 1.4
 _SWEEP_CHECK = 4
-_SWEEP_FLOATS = 2**15
+_SWEEP_FLOATS = 2**16
 _SWEEP_MAX_ROWS = 10_000
 
 
@@ -150,14 +151,20 @@ def _kth_distances(first: _Column, seconds: list[_Column], k: int) -> np.ndarray
     """
     values, order = first.sorted_values, first.order
     n = values.size
-    other = np.array([second.values[order] for second in seconds])
+    # Rows along the first axis, second columns along the second: the rows ``offset`` places apart are then two
+    # contiguous blocks, and each step runs over one block (about 30% faster than row-contiguous columns).
+    other = np.array([second.values[order] for second in seconds]).T.copy()
     smallest = np.full((k,) + other.shape, np.inf)
     reach = min(max(k, int(_SWEEP_PER_ROOT * np.sqrt(n))), n - 1)
+    value_column = values[:, None]
     for offset in range(1, reach + 1):
-        distance = np.maximum(np.abs(other[:, offset:] - other[:, :-offset]), values[offset:] - values[:-offset])
-        _keep_smallest(smallest[:, :, :-offset], distance)
-        _keep_smallest(smallest[:, :, offset:], distance)
-    kth = smallest[-1]
+        distance = np.maximum(np.abs(other[offset:] - other[:-offset]),
+                              value_column[offset:] - value_column[:-offset])
+        _keep_smallest(smallest[:, :-offset], distance)
+        _keep_smallest(smallest[:, offset:], distance)
+    # Back to one row of distances per second column for the rows that go on.
+    other, smallest = other.T, smallest.transpose(0, 2, 1)
+    kth = smallest[-1].copy()
     column, position = np.nonzero(kth > _gap_beyond(values, np.arange(n), reach)[None, :])
     smallest = smallest[:, column, position]
     while position.size:
