@@ -285,6 +285,8 @@ def test_triage_tally_and_legend_follow_the_table_order(saved_regressor):
     shown = [line.split()[2] for line in rows if not line.startswith("...")]
     assert shown and set(shown) <= set(order)
     assert [order.index(v) for v in shown] == sorted(order.index(v) for v in shown)
+    # Intervals only where the strength can make an interaction; the note under the table says what '-' means.
+    assert "'-' below it, where no interval makes an interaction" in " ".join(out.split())
 
 
 def test_constrain_json_has_a_schema_and_fixed_keys(saved_regressor):

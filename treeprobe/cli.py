@@ -438,6 +438,10 @@ def _triage_text(result: Any, args: argparse.Namespace) -> list[str]:
         _table(result.pairs[[c for c in _TRIAGE_COLUMNS if _shown(result.pairs, c, facts)]],
                "Pairs, strongest evidence first", args.top),
     ]
+    if _shown(result.pairs, "h2_low", facts):
+        lines += ["", _wrap(f"h2_low, h_low: lower ends of {result.thresholds['confidence']:.0%} subsampling intervals "
+                        f"({facts['resamples']} half-size subsamples), taken for the pairs whose strength reaches "
+                        f"{result.thresholds['min_effect']:g}; '-' below it, where no interval makes an interaction.")]
     if len(result.triples):
         lines += ["", _table(result.triples[_TRIAGE_TRIPLE_COLUMNS], "Triples sharing a path", args.top)]
     lines += ["", _verdict_legend(result.rules, VERDICTS)]
@@ -836,8 +840,8 @@ def _add_triage_options(p: argparse.ArgumentParser) -> None:
                    help="family-wise level of the noise-floor test: for a model without interaction, the chance that "
                         "any pair clears the floor (default 0.05; needs --null-refits >= 1/A - 1)")
     p.add_argument("--resamples", type=int, default=None, metavar="B",
-                   help="half-size row subsamples for the intervals of H² and h (default 20 without --target, 0 with "
-                        "it: the refits give the evidence)")
+                   help="half-size row subsamples for the intervals of H² and h, taken for the pairs whose effect "
+                        "reaches --min-effect (default 20 without --target, 0 with it: the refits give the evidence)")
     p.add_argument("--min-h2", type=float, default=0.05,
                    help="smallest H² counted as interaction when there is no noise floor (default 0.05)")
     p.add_argument("--min-effect", type=float, default=0.05,
