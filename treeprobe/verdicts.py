@@ -452,7 +452,7 @@ def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resam
                     min_effect: float, rng: np.random.Generator, output: int | None,
                     progress: bool | None) -> pd.DataFrame:
     """Add ``h2_low``, ``h2_high``, ``h_low``, ``h_high`` for pairs sharing a path whose ``effect`` reaches
-    ``min_effect`` (NaN elsewhere or without resamples): the others are ``co-split`` whatever their interval."""
+    ``min_effect`` (NaN elsewhere or without resamples): no interval makes the others interactions."""
     deciding = (frame["paths"].to_numpy() > 0) & (frame["effect"].to_numpy() >= min_effect)
     names = [tuple(k) for k in frame.loc[deciding, ["feature_a", "feature_b"]].to_numpy()]
     low, high = np.full((2, len(frame)), np.nan), np.full((2, len(frame)), np.nan)
