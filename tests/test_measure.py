@@ -298,8 +298,10 @@ def test_bad_callable_and_options(small_tree_model):
                                 ("n_jobs", 0, "n_jobs"), ("output", 3, "output"), ("progress", "yes", "progress")):
         with pytest.raises(ParameterError, match=word):
             h_statistic(ensemble, frame, **{option: value})
-    with pytest.raises(ParameterError, match="unknown feature 'wind_speed'"):
+    with pytest.raises(ParameterError, match="unknown feature 'wind_speed'; the model's features are fuel_price"):
         h_statistic(ensemble, frame, pairs=[("fuel_price", "wind_speed")])
+    with pytest.raises(ParameterError, match="unknown feature 'fuel_prise'; did you mean 'fuel_price'"):
+        h_statistic(ensemble, frame, pairs=[("fuel_prise", "wind_speed")])
     with pytest.raises(ParameterError, match="triples must be"):
         h_statistic(ensemble, frame, triples="all")
     with pytest.raises(ParameterError, match="repeats a feature"):

@@ -21,14 +21,32 @@ treeprobe.errors.ParameterError: folds must be an integer >= 2, got 1
 
 from __future__ import annotations
 
+import difflib
 import math
 import numbers
-from collections.abc import Collection
+from collections.abc import Collection, Sequence
 from typing import Any
 
 from .errors import ParameterError
 
 __all__ = ["check_int", "check_float", "check_choice", "check_bool", "check_progress", "check_n_jobs", "check_seed"]
+
+
+# Similarity (difflib's ratio, 0 to 1) from which a known name is offered for a misspelt one: our convention,
+# between difflib's default 0.6 and exact; 'fuel_prise' -> 'fuel_price' is 0.9, 'depot' -> 'load_kg' 0.17.
+CLOSE_NAME_CUTOFF = 0.7
+
+
+def close_name(name: str, names: Sequence[str]) -> str | None:
+    """The one name of ``names`` most like ``name`` (a likely typo), or None when none is close enough.
+
+    Examples
+    --------
+    >>> close_name("fuel_prise", ["fuel_price", "depot"]), close_name("shift", ["fuel_price", "depot"])
+    ('fuel_price', None)
+    """
+    close = difflib.get_close_matches(str(name), [str(n) for n in names], n=1, cutoff=CLOSE_NAME_CUTOFF)
+    return close[0] if close else None
 
 
 def _range_text(low: float | None, high: float | None, low_open: bool = False) -> str:

@@ -24,7 +24,6 @@ References
 
 from __future__ import annotations
 
-import difflib
 import os
 import warnings
 from dataclasses import dataclass
@@ -34,6 +33,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from .checks import close_name
 from .errors import DataError, DataWarning
 
 if TYPE_CHECKING:
@@ -97,9 +97,9 @@ def _missing_columns_message(missing: list[str], available: list[str], wanted: s
     shown = ", ".join(missing[:10]) + (" ..." if len(missing) > 10 else "")
     hints = []
     for name in missing[:10]:
-        close = difflib.get_close_matches(name, available, n=1, cutoff=0.75)
+        close = close_name(name, available)
         if close:
-            hints.append(f"{name!r} -> {close[0]!r}?")
+            hints.append(f"{name!r} -> {close!r}?")
     hint = f"; close matches in the data: {', '.join(hints)}" if hints else ""
     return f"data lacks {wanted}: {shown}{hint}"
 

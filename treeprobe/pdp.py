@@ -78,7 +78,7 @@ import pandas as pd
 from joblib import Parallel, delayed
 from scipy.sparse import csc_matrix, csr_matrix
 
-from .checks import check_choice, check_int
+from .checks import check_choice, check_int, close_name
 from .data import model_matrix, numeric_array
 from .errors import DataError, ParameterError
 from .graph import ZERO_MISSING_BOUND, ForestGraph
@@ -200,6 +200,9 @@ def feature_index(names: Sequence[str], feature: Any, *, parameter: str) -> int:
         return int(feature)
     name = str(feature)
     if name not in names:
+        close = close_name(name, names)
+        if close is not None:
+            raise ParameterError(f"{parameter}: unknown feature {name!r}; did you mean {close!r}?")
         shown = ", ".join(names[:8]) + (" ..." if len(names) > 8 else "")
         raise ParameterError(f"{parameter}: unknown feature {name!r}; the model's features are {shown}")
     return names.index(name)

@@ -40,7 +40,6 @@ References
 
 from __future__ import annotations
 
-import difflib
 import json
 import os
 from collections.abc import Sequence
@@ -52,6 +51,7 @@ import numpy as np
 import pandas as pd
 
 from .cautions import DECISIONS_ABOUT_PEOPLE
+from .checks import close_name
 from .cooccurrence import structure
 from .errors import DataError, ParameterError, TreeprobeError
 from .graph import ForestGraph
@@ -85,8 +85,8 @@ _STRAY_RULE = "no single group holds the whole set"
 
 # --------------------------------------------------------------------- reading a policy
 def _close_match(name: str, names: Sequence[str]) -> str:
-    close = difflib.get_close_matches(name, list(names), n=1, cutoff=0.6)
-    return f"; did you mean {close[0]!r}?" if close else ""
+    close = close_name(name, names)
+    return f"; did you mean {close!r}?" if close else ""
 
 
 def _feature_index(name: Any, names: Sequence[str], where: str) -> int:
