@@ -330,6 +330,13 @@ def test_computed_triage_is_said_to_be_run_here(rendered):
     assert "<th>Triage</th><td>run by this report (it took" in _sections(page)["summary"]
 
 
+def test_summary_says_which_pairs_get_intervals(rendered):
+    _, page = rendered
+    summary = " ".join(_sections(page)["summary"].split())
+    assert ("3 half-size row subsamples, 90% subsampling interval, for the pairs whose effect reaches 0.05 of the "
+            "prediction spread") in summary
+
+
 def test_report_command_says_it_ran_the_triage(fitted, tmp_path):
     from treeprobe.cli import main
 

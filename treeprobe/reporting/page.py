@@ -115,7 +115,9 @@ def _summary(graph: ForestGraph, result: Any, *, rows_available: int, target_tex
             ("Path structure", "every root-to-leaf path of every tree (no data needed)"),
             ("H-statistics", f"Friedman & Popescu (2008) H² of every pair sharing a path, exact for trees, on "
                              f"{number_text(n_rows)} rows"),
-            ("Interval", f"{resamples} half-size row subsamples, {confidence:.0%} subsampling interval"
+            ("Interval", f"{resamples} half-size row subsamples, {confidence:.0%} subsampling interval, for the "
+                         f"pairs whose effect reaches {result.thresholds.get('min_effect', 0.05):g} of the prediction "
+                         "spread (below it no interval makes an interaction)"
              if resamples else "none (no resamples): point values only"),
             ("Noise floor", f"{refits} refits on targets without interaction, all pairs tested together at "
                             f"family-wise level {result.thresholds.get('level', 0.05):g}"
