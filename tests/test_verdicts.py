@@ -356,3 +356,36 @@ def test_clear_interactions_are_kept_in_the_null_of_the_second_round():
     # The kept pairs keep their first-round floor; the others were tested again, each against its own floor.
     pairs = result.pairs.set_index(["feature_a", "feature_b"])
     assert (pairs.loc[[("x0", "x1"), ("x1", "x2")], "h"] >= 1.5 * pairs.loc[[("x0", "x1"), ("x1", "x2")], "null_h"]).all()
+
+
+def test_classes_share_the_first_round_and_equal_separate_triages(monkeypatch):
+    # Three classes from a product and a main effect; every class's triage draws the same first-round labels and
+    # refits, so triage_classes runs them once and must give exactly the separate triages' results.
+    import treeprobe.floor as floor
+    from treeprobe.verdicts import triage_classes
+
+    rng = np.random.default_rng(4)
+    X = pd.DataFrame(rng.uniform(-1, 1, size=(300, 3)), columns=["kiln_c", "glaze_mm", "clay_pct"])
+    score = 2 * X["kiln_c"] * X["glaze_mm"] + X["clay_pct"]
+    codes = np.digitize(score, np.quantile(score, [1 / 3, 2 / 3]))
+    model = xgb.XGBClassifier(n_estimators=12, max_depth=3, n_jobs=1, random_state=0).fit(X, codes)
+    fits = []
+    real_fit = floor.fit
+    monkeypatch.setattr(floor, "fit", lambda *a, **k: fits.append(k.get("groups")) or real_fit(*a, **k))
+    options = dict(sample=150, null_refits=4, level=0.2, random_state=3)
+    separate = [triage(model, X, codes, output=k, **options) for k in range(3)]
+    separate_fits, fits[:] = list(fits), []
+    shared = triage_classes(model, X, codes, **options)
+    # Refits of the model (fits without constraint groups; null fits have them): the first round's 4 per class
+    # separately, 4 in all when shared; second rounds, if any, the same in both.
+    refits_alone = sum(1 for groups in separate_fits if groups is None)
+    assert refits_alone >= 3 * 4 and sum(1 for groups in fits if groups is None) == refits_alone - 2 * 4
+    for alone, together in zip(separate, shared, strict=True):
+        assert alone.facts["output"] == together.facts["output"]
+        # Scored among more pairs, h may differ in the last digit (summing order); decisions not at all.
+        pd.testing.assert_frame_equal(alone.pairs, together.pairs, check_exact=False, rtol=1e-12, atol=1e-15)
+        for column in ("verdict", "faint", "p_value", "p_adjusted"):
+            assert alone.pairs[column].equals(together.pairs[column])
+        assert {k: v for k, v in alone.facts.items() if k != "seconds"} == \
+               {k: v for k, v in together.facts.items() if k != "seconds"}
+    assert [r.facts["class_analysed"] for r in shared] == [f"class {k} (output {k} of 3)" for k in range(3)]

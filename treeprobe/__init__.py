@@ -30,6 +30,7 @@ _HOMES = {
     "partial_dependence": "pdp",
     "report": "reporting",
     "triage": "verdicts",
+    "triage_classes": "verdicts",
     "TriageResult": "verdicts",
     "suggest_constraints": "constraints",
     "validate_constraints": "constraints",

@@ -385,29 +385,31 @@ def _verdict_legend(rules: dict[str, str], order: Sequence[str]) -> str:
     return "\n".join(lines)
 
 
-def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame, output: int | None = None):
-    from .verdicts import triage
-
+def _triage_options(args: argparse.Namespace, data: pd.DataFrame) -> dict:
+    """The keyword options of :func:`treeprobe.triage` (the output aside) from the command line."""
     if args.target is not None and args.target not in data.columns:
         raise TreeprobeError(f"{args.data}: no target column {args.target!r}; columns are {', '.join(map(str, data.columns))}")
-    return triage(
-        getattr(args, "model_object", None) or ens,
-        data,
-        args.target,
-        triples=getattr(args, "triples", False),
-        sample=None if args.sample == 0 else args.sample,
-        resamples=args.resamples,
-        null_refits=args.null_refits,
-        level=args.level,
-        min_h2=args.min_h2,
-        min_effect=args.min_effect,
-        max_dependence=args.max_dependence,
-        output=args.class_index if output is None else output,
-        params=_training_params(args),
-        random_state=args.seed,
-        n_jobs=args.jobs,
-        progress=False if args.quiet else None,
-    )
+    return {
+        "triples": getattr(args, "triples", False),
+        "sample": None if args.sample == 0 else args.sample,
+        "resamples": args.resamples,
+        "null_refits": args.null_refits,
+        "level": args.level,
+        "min_h2": args.min_h2,
+        "min_effect": args.min_effect,
+        "max_dependence": args.max_dependence,
+        "params": _training_params(args),
+        "random_state": args.seed,
+        "n_jobs": args.jobs,
+        "progress": False if args.quiet else None,
+    }
+
+
+def _run_triage(args: argparse.Namespace, ens: Any, data: pd.DataFrame):
+    from .verdicts import triage
+
+    options = _triage_options(args, data)
+    return triage(getattr(args, "model_object", None) or ens, data, args.target, output=args.class_index, **options)
 
 
 def _shown(pairs: pd.DataFrame, column: str, facts: dict) -> bool:
@@ -471,10 +473,14 @@ def _cmd_triage(args: argparse.Namespace) -> int:
 
 
 def _triage_each_class(args: argparse.Namespace, ens: Any, data: pd.DataFrame) -> int:
-    """--class all: one triage per output (class) of the model, each with its own noise floor."""
+    """--class all: one triage per output (class) of the model, each with its own noise floor (the first round's
+    refits shared, :func:`treeprobe.triage_classes`)."""
     import pandas as pd
 
-    results = [_run_triage(args, ens, data, output) for output in range(ens.n_outputs)]
+    from .verdicts import triage_classes
+
+    results = triage_classes(getattr(args, "model_object", None) or ens, data, args.target,
+                             **_triage_options(args, data))
     if args.format == "json":
         return _emit_json({"schema": _TRIAGE_BY_CLASS_SCHEMA, "classes": [r.to_dict() for r in results]}, args)
     if args.format == "csv":

@@ -33,7 +33,7 @@ from .measure import h_statistic
 from .parallel import run_tasks, threads_per_fit
 from .refit import BINARY, REGRESSION, Recipe, constrained_substitute, fit, fit_early_stopped, predict_response
 
-__all__ = ["max_ratio_test", "check_refit_level", "label_change_share", "floor_test", "pair_h"]
+__all__ = ["max_ratio_test", "check_refit_level", "label_change_share", "floor_test", "pair_h", "SharedFirstRound"]
 
 # Expected share of changed labels under which the classification null is called separable (our convention).
 _SEPARABLE_SHARE = 0.01
@@ -103,26 +103,31 @@ def _separable_note(share: float) -> str:
             "that it is needed. A pair above it is used far beyond what the labels require.")
 
 
+# What one null round scores on every refit: pairs of one output (None: a single-output model).
+Wanted = list[tuple[list[tuple[str, str]], int | None]]
+
+
 @dataclass(frozen=True)
 class _NullSetup:
-    """What every refit of one null round shares: the recipe, the coded data, the null fit's predictions, the pairs."""
+    """What every refit of one null round shares: the recipe, the coded data, the null fit's predictions, and
+    the pairs to score, per output."""
 
     recipe: Recipe
     matrix: np.ndarray
     target: np.ndarray
     fitted: np.ndarray
     rows: np.ndarray
-    names: list[tuple[str, str]]
-    output: int | None
+    wanted: Wanted
     threads: int
 
 
-def _one_null(setup: _NullSetup, seed: int) -> np.ndarray:
-    """H² and h of the round's pairs on the model refitted, as it was trained, to one synthetic target."""
+def _one_null(setup: _NullSetup, seed: int) -> list[np.ndarray]:
+    """H² and h of the round's pairs on the model refitted, as it was trained, to one synthetic target: one
+    (2, n_pairs) array per entry of ``setup.wanted``."""
     synthetic = _synthetic_target(setup.recipe.task, setup.target, setup.fitted, seed)
     model = fit(setup.recipe, setup.matrix, synthetic, threads=setup.threads, seed=seed)
     refit = load_model(model, feature_names=setup.recipe.feature_names)
-    return pair_h(refit, setup.rows, setup.names, setup.output)
+    return [pair_h(refit, setup.rows, names, output) for names, output in setup.wanted]
 
 
 def _null_fit(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, allowed: list[list[int]],
@@ -141,15 +146,79 @@ def _null_fit(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, allowed: l
     return np.asarray(predict_response(base, null, matrix), dtype=np.float64), rounds, base
 
 
-def _null_round(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.ndarray,
-                names: list[tuple[str, str]], allowed: list[list[int]], *, refits: int, output: int | None, seed: int,
-                n_jobs: int, label: str, progress: bool | None) -> tuple[np.ndarray, np.ndarray, int, Recipe]:
-    """H² and h of ``names`` on ``refits`` refits to targets drawn from one null fit: shape (refits, 2, n_pairs)."""
+@dataclass(frozen=True)
+class _NullRound:
+    """One null round: per entry of its ``wanted``, H² and h on every refit (refits, 2, n_pairs); the null fit's
+    predictions, its early-stopped rounds and its recipe."""
+
+    values: list[np.ndarray]
+    fitted: np.ndarray
+    rounds: int
+    base: Recipe
+
+
+def _null_round(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.ndarray, wanted: Wanted,
+                allowed: list[list[int]], *, refits: int, seed: int, n_jobs: int, label: str,
+                progress: bool | None) -> _NullRound:
+    """H² and h of the pairs of ``wanted`` on ``refits`` refits to targets drawn from one null fit."""
     fitted, fit_rounds, base = _null_fit(recipe, matrix, target, allowed, seed)
-    setup = _NullSetup(recipe, matrix, target, fitted, rows, names, output, threads_per_fit(n_jobs))
+    setup = _NullSetup(recipe, matrix, target, fitted, rows, wanted, threads_per_fit(n_jobs))
     seeds = [int(s) for s in np.random.default_rng(seed).integers(0, 2**31 - 1, size=refits)]
     values = run_tasks(partial(_one_null, setup), seeds, n_jobs=n_jobs, label=label, progress=progress)
-    return np.stack(values), fitted, fit_rounds, base
+    return _NullRound([np.stack([refit[i] for refit in values]) for i in range(len(wanted))], fitted, fit_rounds, base)
+
+
+class SharedFirstRound:
+    """The first null round of several outputs (classes) of one model, from one set of refits.
+
+    The first round's targets and refits do not depend on the output
+    analysed: a triage of each class draws the same synthetic labels from the
+    same additive fit, with the same seeds, and refits the same multiclass
+    model. This object lets the triages of all classes share them: the first
+    call runs the round once, scoring on every refit the pairs of every
+    output given here, and each call takes its own output's values. Results
+    equal separate triages per class (up to the last digit of ``h``, summed
+    among more pairs); the fits are done once instead of once per class. Second rounds stay per class (they keep each class's clear
+    pairs in the null).
+
+    Parameters
+    ----------
+    pairs : dict of int to list of (str, str)
+        Per output, the pairs its triage tests (those sharing a path).
+    """
+
+    def __init__(self, pairs: dict[int, list[tuple[str, str]]]) -> None:
+        self._pairs = {output: list(names) for output, names in pairs.items()}
+        self._round: _NullRound | None = None
+        self._inputs: tuple | None = None
+        self._by_output: dict[int, np.ndarray] = {}
+
+    def values(self, output: int, names: list[tuple[str, str]], run: Any, inputs: tuple) -> _NullRound:
+        """The round for ``output``, its values in the order of ``names``; ``run(wanted)`` runs the round the
+        first time. ``inputs`` (recipe, rows, seed, refits) must be the same at every call."""
+        if self._round is None:
+            if output not in self._pairs:
+                raise ParameterError(f"output {output} was not prepared for a shared first round")
+            order = sorted(self._pairs)
+            self._round = run([(self._pairs[k], k) for k in order])
+            self._inputs = inputs
+            self._by_output = dict(zip(order, self._round.values, strict=True))
+        elif not _same_inputs(self._inputs, inputs):
+            raise ParameterError("a shared first round serves triages of one model on the same rows and options")
+        column = {frozenset(pair): i for i, pair in enumerate(self._pairs[output])}
+        missing = [pair for pair in names if frozenset(pair) not in column]
+        if missing:
+            raise ParameterError(f"output {output}: pairs {missing[:3]} were not prepared for the shared first round")
+        take = [column[frozenset(pair)] for pair in names]
+        return _NullRound([self._by_output[output][:, :, take]], self._round.fitted, self._round.rounds,
+                          self._round.base)
+
+
+def _same_inputs(left: tuple | None, right: tuple) -> bool:
+    if left is None or len(left) != len(right):
+        return False
+    return all(a is b or (np.array_equal(a, b) if isinstance(a, np.ndarray) else a == b)
+               for a, b in zip(left, right, strict=True))
 
 
 def max_ratio_test(observed: Any, null: Any, *, level: float = 0.05, offset: float = 0.0,
@@ -252,7 +321,8 @@ def max_ratio_test(observed: Any, null: Any, *, level: float = 0.05, offset: flo
 def floor_test(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.ndarray,
                names: list[tuple[str, str]], observed: np.ndarray, family: np.ndarray, *,
                feature_names: tuple[str, ...], refits: int, level: float, spread: float, output: int | None,
-               random_state: int, n_jobs: int, progress: bool | None) -> tuple[dict[str, np.ndarray], list[str], dict]:
+               random_state: int, n_jobs: int, progress: bool | None,
+               shared: SharedFirstRound | None = None) -> tuple[dict[str, np.ndarray], list[str], dict]:
     """The noise-floor test of every pair sharing a path ([1]_, section 8.3, made family-wise).
 
     The rule and its two rounds are stated in the Notes of
@@ -262,13 +332,22 @@ def floor_test(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.
     ``family`` marks the pairs that are not strongly dependent: they make the
     yardstick and only they can be found. Returns the columns ``null_h2``,
     ``null_h``, ``p_value``, ``p_adjusted`` (one value per pair of
-    ``names``), notes for the reader and facts.
+    ``names``), notes for the reader and facts. With ``shared``, the first
+    round comes from the refits shared by the triages of all classes
+    (:class:`SharedFirstRound`).
     """
     offset = _SCALE_OFFSET * spread
     index = {name: j for j, name in enumerate(feature_names)}
-    values, fitted, additive_rounds, base = _null_round(recipe, matrix, target, rows, names, [], refits=refits,
-                                                        output=output, seed=random_state, n_jobs=n_jobs,
-                                                        label="null refits", progress=progress)
+
+    def first(wanted: Wanted) -> _NullRound:
+        return _null_round(recipe, matrix, target, rows, wanted, [], refits=refits, seed=random_state, n_jobs=n_jobs,
+                           label="null refits", progress=progress)
+
+    if shared is None:
+        round_one = first([(names, output)])
+    else:
+        round_one = shared.values(output, names, first, (recipe, rows, random_state, refits))
+    values, fitted, additive_rounds, base = round_one.values[0], round_one.fitted, round_one.rounds, round_one.base
     p_value, p_adjusted, floor = max_ratio_test(observed, values[:, 1], level=level, offset=offset, family=family)
     columns = {"null_h2": np.quantile(values[:, 0], 1.0 - level, axis=0)}
     decisive = family & (p_adjusted <= level) & (observed >= _DECISIVE * floor)
@@ -276,9 +355,9 @@ def floor_test(recipe: Recipe, matrix: np.ndarray, target: np.ndarray, rows: np.
     second = bool(decisive.any() and (rest & family).any())
     if second:
         kept = [[index[names[i][0]], index[names[i][1]]] for i in np.flatnonzero(decisive)]
-        more, *_ = _null_round(recipe, matrix, target, rows, [names[i] for i in np.flatnonzero(rest)], kept,
-                               refits=refits, output=output, seed=random_state + 1, n_jobs=n_jobs,
-                               label="null refits, round 2", progress=progress)
+        more = _null_round(recipe, matrix, target, rows, [([names[i] for i in np.flatnonzero(rest)], output)], kept,
+                           refits=refits, seed=random_state + 1, n_jobs=n_jobs, label="null refits, round 2",
+                           progress=progress).values[0]
         tested = max_ratio_test(observed[rest], more[:, 1], level=level, offset=offset, family=family[rest])
         for column, update in zip((p_value, p_adjusted, floor), tested, strict=True):
             column[rest] = update

@@ -70,6 +70,7 @@ References
 
 from __future__ import annotations
 
+import copy
 import time
 from dataclasses import dataclass, field, fields
 from itertools import combinations
@@ -83,7 +84,7 @@ from .cooccurrence import structure
 from .data import model_matrix
 from .dependence import pair_dependence
 from .errors import DataError, MissingLibraryError, ParameterError, UnsupportedModelError
-from .floor import check_refit_level, floor_test
+from .floor import SharedFirstRound, check_refit_level, floor_test
 from .graph import ForestGraph
 from .io import load_model
 from .measure import h_statistic, subset_pair_h
@@ -97,7 +98,7 @@ from .refit import (
     training_recipe,
 )
 
-__all__ = ["TriageResult", "triage", "class_analysed", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
+__all__ = ["TriageResult", "triage", "triage_classes", "class_analysed", "VERDICTS", "PAIR_COLUMNS", "TRIPLE_COLUMNS", "FEATURE_COLUMNS", "LIMITS"]
 
 # The one verdict order: tables, tallies, legends and rules follow it.
 VERDICTS = ("interaction", "dependent", "co-split", "absent")
@@ -468,7 +469,7 @@ def _with_intervals(frame: pd.DataFrame, graph: ForestGraph, rows: Any, *, resam
 def _with_noise_floor(frame: pd.DataFrame, recipe: Recipe | None, matrix: np.ndarray, target: np.ndarray | None,
                       rows: np.ndarray, *, feature_names: tuple[str, ...], refits: int, level: float, spread: float,
                       max_dependence: float, output: int | None, random_state: int, n_jobs: int,
-                      progress: bool | None) -> tuple[pd.DataFrame, list[str], dict]:
+                      progress: bool | None, shared: SharedFirstRound | None) -> tuple[pd.DataFrame, list[str], dict]:
     """Add ``null_h2``, ``null_h``, ``p_value``, ``p_adjusted`` (NaN without a target or refits), refit notes and facts."""
     sharing, names = _sharing(frame)
     family = frame.loc[sharing, "dependence"].fillna(0.0).to_numpy() < max_dependence
@@ -478,7 +479,8 @@ def _with_noise_floor(frame: pd.DataFrame, recipe: Recipe | None, matrix: np.nda
     if recipe is not None and target is not None and refits and names:
         found, notes, facts = floor_test(recipe, matrix, target, rows, names, frame.loc[sharing, "h"].to_numpy(),
                                          family, feature_names=feature_names, refits=refits, level=level, spread=spread,
-                                         output=output, random_state=random_state, n_jobs=n_jobs, progress=progress)
+                                         output=output, random_state=random_state, n_jobs=n_jobs, progress=progress,
+                                         shared=shared)
         for name, values in found.items():
             columns[name][sharing] = values
     for name, values in columns.items():
@@ -675,6 +677,111 @@ def triage(
        1999 (the interval of section 2.2, rate sqrt(n)).
     """
     started = time.perf_counter()
+    prepared = _prepare(model, X, y, triples=triples, sample=sample, resamples=resamples, null_refits=null_refits,
+                        level=level, confidence=confidence, min_h2=min_h2, min_effect=min_effect,
+                        max_dependence=max_dependence, params=params, include_absent=include_absent,
+                        random_state=random_state, n_jobs=n_jobs, progress=progress)
+    output = check_int("output", 0 if output is None else output, low=0, high=prepared.graph.n_outputs - 1)
+    return _triage_output(prepared, output, started, shared=None)
+
+
+
+def triage_classes(
+    model: Any,
+    X: Any,
+    y: Any = None,
+    *,
+    triples: bool = False,
+    sample: int | None = 1000,
+    resamples: int | None = None,
+    null_refits: int = 19,
+    level: float = 0.05,
+    confidence: float = 0.90,
+    min_h2: float = 0.05,
+    min_effect: float = 0.05,
+    max_dependence: float = 0.7,
+    params: dict | None = None,
+    include_absent: bool = True,
+    random_state: int = 0,
+    n_jobs: int = 1,
+    progress: bool | None = None,
+) -> list[TriageResult]:
+    """Triage every output (class) of a model: :func:`triage` with ``output=k`` for each ``k``, sharing the work.
+
+    Parameters
+    ----------
+    model, X, y, triples, sample, resamples, null_refits, level, confidence, min_h2, min_effect, max_dependence, \
+params, include_absent, random_state, n_jobs, progress
+        As for :func:`triage`.
+
+    Returns
+    -------
+    list of TriageResult
+        One per output, in output order; each equal to ``triage(model, X, y,
+        output=k, ...)`` with the same options (its ``facts["seconds"]``
+        aside; the floor's ``h`` values may differ in the last digit, as the
+        refits score more pairs at once). A single-output model gives a list
+        of one.
+
+    Raises
+    ------
+    ParameterError, DataError
+        As :func:`triage`.
+
+    Notes
+    -----
+    The model is loaded, the options and data checked, the refit recipe
+    built and the rows drawn once. With a target, the first round of the
+    noise floor (Notes of :func:`triage`) is the same for every class: the
+    same additive fit, the same synthetic labels and the same refits of the
+    multiclass model; only the pairs scored on each refit differ. It runs
+    once here, scoring every class's pairs on every refit
+    (:class:`treeprobe.floor.SharedFirstRound`), instead of once per class.
+    Second rounds stay per class: each keeps that class's clear interactions
+    in its null.
+    """
+    started = time.perf_counter()
+    prepared = _prepare(model, X, y, triples=triples, sample=sample, resamples=resamples, null_refits=null_refits,
+                        level=level, confidence=confidence, min_h2=min_h2, min_effect=min_effect,
+                        max_dependence=max_dependence, params=params, include_absent=include_absent,
+                        random_state=random_state, n_jobs=n_jobs, progress=progress)
+    graph = prepared.graph
+    shared = (SharedFirstRound({k: _sharing_pairs(graph, k) for k in range(graph.n_outputs)})
+              if prepared.has_floor and graph.n_outputs > 1 else None)
+    results = []
+    for k in range(graph.n_outputs):
+        results.append(_triage_output(prepared, k, started, shared))
+        started = time.perf_counter()
+    return results
+
+@dataclass(frozen=True)
+class _Prepared:
+    """What the triages of every output of one model on one data set share: checked options, the model, the
+    refit recipe, the coded data, the sampled rows and the random state right after drawing them."""
+
+    graph: ForestGraph
+    thresholds: dict
+    triples: bool
+    include_absent: bool
+    resamples: int
+    null_refits: int
+    has_floor: bool
+    random_state: int
+    n_jobs: int
+    progress: bool | None
+    recipe: Recipe | None
+    target: np.ndarray | None
+    matrix_all: np.ndarray
+    chosen: np.ndarray
+    rows: Any
+    matrix: np.ndarray
+    rng: np.random.Generator
+
+
+def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples: Any, null_refits: Any, level: Any,
+             confidence: Any, min_h2: Any, min_effect: Any, max_dependence: Any, params: Any, include_absent: Any,
+             random_state: Any, n_jobs: Any, progress: Any) -> _Prepared:
+    """Check the options, load the model once, build the refit recipe and draw the rows (everything but the output)."""
     graph = load_model(model)
     thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
                                      level=level, confidence=confidence)
@@ -683,7 +790,6 @@ def triage(
     sample = check_int("sample", sample, low=2, allow_none=True)
     resamples = check_int("resamples", resamples, low=0, allow_none=True)
     null_refits = check_int("null_refits", null_refits, low=0)
-    output = check_int("output", 0 if output is None else output, low=0, high=graph.n_outputs - 1)
     random_state = check_seed("random_state", random_state, allow_none=False)
     n_jobs = check_n_jobs(n_jobs)
     progress = check_progress(progress)
@@ -703,7 +809,26 @@ def triage(
         recipe = calibrate_step(recipe, graph, matrix_all, target, seed=random_state)
     rng = np.random.default_rng(random_state)
     chosen = _sample_rows(matrix_all, sample, rng)
-    rows, matrix = _take_rows(X, chosen), matrix_all[chosen]
+    return _Prepared(graph=graph, thresholds=thresholds, triples=triples, include_absent=include_absent,
+                     resamples=resamples, null_refits=null_refits, has_floor=has_floor, random_state=random_state,
+                     n_jobs=n_jobs, progress=progress, recipe=recipe, target=target, matrix_all=matrix_all,
+                     chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng)
+
+
+def _sharing_pairs(graph: ForestGraph, output: int) -> list[tuple[str, str]]:
+    """The pairs that share a path in the trees of ``output``: those a triage of that output tests."""
+    pairs = structure(graph, max_order=2, output=output if graph.n_outputs > 1 else None).pairs
+    pairs = pairs[pairs["paths"] > 0]
+    return list(zip(pairs["feature_a"], pairs["feature_b"], strict=True))
+
+
+def _triage_output(prepared: _Prepared, output: int, started: float,
+                   shared: SharedFirstRound | None) -> TriageResult:
+    """The triage of one output (class) of a prepared model and data set."""
+    graph, thresholds, recipe, target = prepared.graph, prepared.thresholds, prepared.recipe, prepared.target
+    triples, rows, matrix, progress = prepared.triples, prepared.rows, prepared.matrix, prepared.progress
+    # Every output starts from the random state right after the row sample, as a triage of that output alone.
+    rng = copy.deepcopy(prepared.rng)
     h_output = output if graph.n_outputs > 1 else None
     walked = structure(graph, max_order=3 if triples else 2, output=h_output)
     used = walked.features["splits"].to_numpy() > 0
@@ -713,26 +838,27 @@ def triage(
     prediction_sd = _prediction_sd(graph, matrix, output)
     scale = prediction_sd if prediction_sd > 0 else 1.0
 
-    frame = _pair_frame(walked, hres, used_names, include_absent)
+    frame = _pair_frame(walked, hres, used_names, prepared.include_absent)
     frame["effect"] = frame["h"] / scale
-    frame = _with_intervals(frame, graph, rows, resamples=resamples, confidence=thresholds["confidence"],
+    frame = _with_intervals(frame, graph, rows, resamples=prepared.resamples, confidence=thresholds["confidence"],
                             min_effect=thresholds["min_effect"], rng=rng, output=h_output, progress=progress)
-    frame = _with_dependence(frame, graph, matrix, random_state)
-    frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, matrix_all, target, matrix,
-                                                       feature_names=graph.feature_names, refits=null_refits,
+    frame = _with_dependence(frame, graph, matrix, prepared.random_state)
+    frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, prepared.matrix_all, target, matrix,
+                                                       feature_names=graph.feature_names, refits=prepared.null_refits,
                                                        level=thresholds["level"], spread=scale,
                                                        max_dependence=thresholds["max_dependence"], output=h_output,
-                                                       random_state=random_state, n_jobs=n_jobs, progress=progress)
+                                                       random_state=prepared.random_state, n_jobs=prepared.n_jobs,
+                                                       progress=progress, shared=shared)
     frame = _with_verdicts(frame, thresholds)
     refit_notes = [*refit_notes, *_near_misses(frame, thresholds)]
     triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
                     else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
 
     facts = {
-        "n_rows": int(len(chosen)),
-        "n_rows_available": int(matrix_all.shape[0]),
-        "resamples": resamples,
-        "null_refits": null_refits if has_floor else 0,
+        "n_rows": int(len(prepared.chosen)),
+        "n_rows_available": int(prepared.matrix_all.shape[0]),
+        "resamples": prepared.resamples,
+        "null_refits": prepared.null_refits if prepared.has_floor else 0,
         "has_target": target is not None,
         "prediction_sd": prediction_sd,
         "output": output,
@@ -742,7 +868,7 @@ def triage(
         "refit_notes": refit_notes,
         "refit_recipe": None if recipe is None else recipe.to_dict(),
         "refit_recipe_text": "" if recipe is None else recipe.describe(),
-        "refit_threads_per_fit": None if recipe is None else threads_per_fit(n_jobs),
+        "refit_threads_per_fit": None if recipe is None else threads_per_fit(prepared.n_jobs),
         "null_rounds": null_facts.get("null_rounds"),
         "floor_rounds": null_facts.get("floor_rounds", 0),
         "kept_in_null": null_facts.get("kept_in_null", []),
@@ -753,4 +879,4 @@ def triage(
         "null_separable": bool(null_facts.get("null_separable", False)),
     }
     return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
-                        ensemble=graph, rules=_rules(thresholds, has_floor), thresholds=thresholds, facts=facts)
+                        ensemble=graph, rules=_rules(thresholds, prepared.has_floor), thresholds=thresholds, facts=facts)
