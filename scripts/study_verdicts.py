@@ -22,7 +22,11 @@ caught (``interaction`` or flagged ``faint``), false-positive rates by pair
 type, how often the dependent pair is called ``dependent``, ``faint`` flags on
 pairs without interaction, wall times, and with ``--baseline-src`` the same
 for an older source tree run on the same scenarios in the same run (new/old
-time ratio). It also lists every false positive.
+time ratio). It also lists every false positive. ``--level`` and
+``--null-refits`` change the studied triage's options (the baseline keeps its
+defaults); ``--baseline-from FILE`` takes the baseline runs from an earlier
+study of the same scenarios (data fingerprints checked) instead of running
+them, so that a variant's time ratio costs one side only.
 
 How to run
 ----------
@@ -76,8 +80,9 @@ _TERM_UNIT = {"product": 1.0, "sine_product": 1.5, "thresholds": 4.0, "maximum":
               "three_way": 1.0}
 BANDS = ((0.0, 0.05, "<5%"), (0.05, 0.10, "5-10%"), (0.10, 0.20, "10-20%"), (0.20, math.inf, ">20%"))
 STRONG = 0.10
-# The family-wise level triage runs at in the study (its default).
+# The family-wise level triage runs at in the study (its default), and the triage options a study may change.
 LEVEL = 0.05
+DEFAULT_OPTIONS = {"level": LEVEL, "null_refits": 19}
 PAIR_TYPES = ("true", "noise", "additive", "dependent")
 WILSON_Z = 1.959963984540054  # the standard normal's 97.5% quantile
 TRUTH_ROWS = 500
@@ -455,15 +460,16 @@ def fingerprint(scenario: Scenario) -> str:
     return digest.hexdigest()[:16]
 
 
-def run_triage(scenario: Scenario, jobs: int) -> dict:
-    """Fit the model, triage it with the imported treeprobe's defaults; seconds, code facts and per-pair rows."""
+def run_triage(scenario: Scenario, jobs: int, options: dict | None = None) -> dict:
+    """Fit the model, triage it with the imported treeprobe's defaults (or ``options``, e.g. ``level`` and
+    ``null_refits``); seconds, code facts and per-pair rows."""
     import treeprobe
 
     started = time.perf_counter()
     model = fit_model(scenario)
     fit_seconds = time.perf_counter() - started
     result = treeprobe.triage(model, scenario.frame(), scenario.y, random_state=scenario.seed, n_jobs=jobs,
-                              progress=False)
+                              progress=False, **(options or {}))
     rows = verdict_rows(scenario, result.pairs)
     return {"seconds": float(result.facts["seconds"]), "fit_seconds": fit_seconds, "fingerprint": fingerprint(scenario),
             "code": {"path": str(Path(treeprobe.__file__).resolve().parent),
@@ -480,7 +486,7 @@ def studied_source() -> Path:
     return Path(spec.origin).resolve().parent.parent
 
 
-def run_worker(scenario: Scenario, jobs: int, source: Path) -> dict:
+def run_worker(scenario: Scenario, jobs: int, source: Path, options: dict | None = None) -> dict:
     """The scenario triaged by the package in ``source`` in a fresh process (re-made there from its seed).
 
     Both the studied code and the baseline run this way, so that each
@@ -489,6 +495,8 @@ def run_worker(scenario: Scenario, jobs: int, source: Path) -> dict:
     env = {**os.environ, "PYTHONPATH": str(source)}
     command = [sys.executable, str(Path(__file__).resolve()), "--worker", str(scenario.seed), "--size", scenario.size,
                "--jobs", str(jobs), "--worker-source", str(source.resolve())]
+    for name, value in (options or {}).items():
+        command += [f"--{name.replace('_', '-')}", str(value)]
     done = subprocess.run(command, env=env, capture_output=True, text=True, check=False)
     lines = [line for line in done.stdout.splitlines() if line.startswith(RESULT_PREFIX)]
     if done.returncode != 0 or not lines:
@@ -502,14 +510,24 @@ def run_worker(scenario: Scenario, jobs: int, source: Path) -> dict:
     return result
 
 
-def scenario_record(seed: int, *, size: str, jobs: int, baseline: Path | None, order: int) -> dict:
-    """One scenario: the truth, the studied code's verdicts and (optionally) the baseline's, as one JSON record."""
+def scenario_record(seed: int, *, size: str, jobs: int, baseline: Path | None, order: int,
+                    options: dict | None = None, earlier: dict | None = None) -> dict:
+    """One scenario: the truth, the studied code's verdicts and (optionally) the baseline's, as one JSON record.
+
+    ``options`` go to the studied code's triage only (the baseline runs its
+    defaults); ``earlier`` is a baseline run of this scenario recorded by an
+    earlier study (its data fingerprint must match), used instead of running one.
+    """
     scenario = make_scenario(seed, size=size)
     truth = true_sizes(scenario)
     sides = [("new", studied_source())] + ([("baseline", baseline)] if baseline is not None else [])
     if order % 2 == 1:
         sides.reverse()  # alternate so that neither side always runs first
-    runs = {name: run_worker(scenario, jobs, source) for name, source in sides}
+    runs = {name: run_worker(scenario, jobs, source, options if name == "new" else None) for name, source in sides}
+    if earlier is not None:
+        if earlier.get("fingerprint") != fingerprint(scenario):
+            raise SystemExit(f"scenario {seed}: the earlier baseline run was made on other data")
+        runs["baseline"] = {**earlier, "copied": True}
     new = runs["new"]
     if "error" in new:
         raise SystemExit(f"scenario {seed}: {new['error']}")
@@ -524,7 +542,8 @@ def scenario_record(seed: int, *, size: str, jobs: int, baseline: Path | None, o
             "model": scenario.params, "terms": [[t.kind, [scenario.names[j] for j in t.features], t.weak]
                                                 for t in scenario.terms],
             "seconds": new["seconds"], "fit_seconds": new["fit_seconds"], "code": new["code"], "pairs": pairs,
-            "baseline": runs.get("baseline"), "load": list(os.getloadavg()) if hasattr(os, "getloadavg") else None}
+            "baseline": runs.get("baseline"), "options": {**DEFAULT_OPTIONS, **(options or {})},
+            "load": list(os.getloadavg()) if hasattr(os, "getloadavg") else None}
 
 
 # --------------------------------------------------------------------- records
@@ -582,6 +601,7 @@ def pair_table(records: list[dict], run: str = "new") -> pd.DataFrame:
     rows = []
     for record in records:
         meta = {k: record[k] for k in ("scenario", "task", "library", "overfit")}
+        meta["level"] = (record.get("options") or DEFAULT_OPTIONS)["level"] if run == "new" else LEVEL
         other = {}
         if run == "baseline":
             if not record.get("baseline") or "pairs" not in record["baseline"]:
@@ -616,7 +636,7 @@ def measures(table: pd.DataFrame, *, faint_known: bool = True) -> dict[str, tupl
     if "p_value" in table.columns and table["p_value"].notna().any():
         # A miss whose pair did not even beat the model's own refits is one the model did not learn beyond its noise:
         # no test of this model can call it. The rest beat their refits but not the family-wise floor.
-        unlearned = ~(table["p_value"].astype(float) <= LEVEL)
+        unlearned = ~(table["p_value"].astype(float) <= table.get("level", LEVEL))
         out["strong misses not beating their own refits (p > level)"] = _count(true & (size >= STRONG) & ~called,
                                                                               unlearned)
     for _, _, label in BANDS:
@@ -706,6 +726,19 @@ def _num(value: Any) -> str:
     return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else f"{float(value):.3g}"
 
 
+def _options_text(records: list[dict]) -> str:
+    found = {json.dumps(r.get("options") or DEFAULT_OPTIONS, sort_keys=True) for r in records}
+    return " / ".join(", ".join(f"{k}={v}" for k, v in json.loads(text).items()) for text in sorted(found))
+
+
+def _baseline_note(records: list[dict]) -> list[str]:
+    copied = sum(bool((r.get("baseline") or {}).get("copied")) for r in records)
+    if not copied:
+        return []
+    return [f"Baseline runs of {copied} scenario(s) copied from an earlier study on the same data (another run: "
+            "their times compare less closely than runs made side by side)."]
+
+
 def render_report(records: list[dict]) -> str:
     """The Markdown report of a list of study records."""
     facts = summary(records)
@@ -713,7 +746,8 @@ def render_report(records: list[dict]) -> str:
     tasks = pd.Series([r["task"] for r in records]).value_counts().to_dict()
     lines = [f"## Verdict calibration: {len(records)} scenarios ({', '.join(f'{v} {k}' for k, v in tasks.items())}; "
              f"{sum(r['overfit'] for r in records)} overfit)", "",
-             f"Studied code: {', '.join(sorted({r['code']['path'] for r in records}))}"
+             f"Studied code: {', '.join(sorted({r['code']['path'] for r in records}))}; triage options "
+             f"{_options_text(records)}"
              + ("" if facts["new_faint_column"] else " (no `faint` column: flags counted as False, p-values absent)"), "",
              "| measure | studied code | 95% Wilson interval |" + (" baseline | 95% Wilson interval |" if with_baseline else ""),
              "|---|---|---|" + ("---|---|" if with_baseline else "")]
@@ -728,6 +762,7 @@ def render_report(records: list[dict]) -> str:
         lines.append(f"Baseline: median {times['baseline_median_seconds']:.1f} s, max {times['baseline_max_seconds']:.1f} s; "
                      f"median of per-scenario ratios new/old {times['median_ratio_new_over_old']:.2f}")
     lines += [f"Baseline failed on scenario {e['scenario']}: {e['error']}" for e in facts["baseline_errors"]]
+    lines += _baseline_note(records)
     lines += ["", "### False positives (interaction verdict on a pair without true interaction)", "",
               *_pair_list(records, "false"),
               "", "### Missed strong interactions (true size >= 10%, verdict other than interaction)", "",
@@ -745,12 +780,29 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--out", type=Path, help="JSON-lines file the records are appended to")
     parser.add_argument("--resume", action="store_true", help="skip scenarios already in --out")
     parser.add_argument("--baseline-src", type=Path, help="source tree of an older treeprobe to time on the same scenarios")
+    parser.add_argument("--baseline-from", type=Path, metavar="FILE",
+                        help="take the baseline runs from an earlier study file of the same scenarios instead")
+    parser.add_argument("--level", type=float, default=LEVEL, help=f"triage's family-wise level (default {LEVEL})")
+    parser.add_argument("--null-refits", type=int, default=DEFAULT_OPTIONS["null_refits"],
+                        help=f"triage's null refits (default {DEFAULT_OPTIONS['null_refits']})")
     parser.add_argument("--size", choices=sorted(SIZES), default="full", help="rows and trees per scenario")
     parser.add_argument("--report", type=Path, help="print the report of an existing study file and stop")
     parser.add_argument("--summary-json", type=Path, help="also write the summary as JSON here")
     parser.add_argument("--worker", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--worker-source", type=Path, help=argparse.SUPPRESS)
     return parser
+
+
+def _check_run_options(args: argparse.Namespace, parser: argparse.ArgumentParser) -> None:
+    """The triage options of a study and where its baseline comes from."""
+    if args.baseline_src is not None and args.baseline_from is not None:
+        parser.error("give --baseline-src or --baseline-from, not both")
+    if args.baseline_from is not None and not args.baseline_from.is_file():
+        parser.error(f"--baseline-from {args.baseline_from}: no such file")
+    if not 0 < args.level < 1:
+        parser.error(f"--level must lie in (0, 1), got {args.level}")
+    if args.null_refits < 1:
+        parser.error(f"--null-refits must be at least 1, got {args.null_refits}")
 
 
 def _checked(args: argparse.Namespace, parser: argparse.ArgumentParser) -> argparse.Namespace:
@@ -761,6 +813,7 @@ def _checked(args: argparse.Namespace, parser: argparse.ArgumentParser) -> argpa
             parser.error(f"--{name} must be at least 1, got {getattr(args, name)}")
     if args.seed < 0:
         parser.error(f"--seed must be 0 or more, got {args.seed}")
+    _check_run_options(args, parser)
     if args.baseline_src is not None and not (args.baseline_src / "treeprobe" / "__init__.py").is_file():
         parser.error(f"--baseline-src {args.baseline_src}: expected a source tree holding treeprobe/__init__.py")
     if args.out is not None and args.out.exists() and args.out.stat().st_size and not args.resume:
@@ -783,15 +836,34 @@ def run_study(args: argparse.Namespace) -> list[dict]:
         sizes = {r["size"] for r in done.values()}
         if sizes - {args.size}:
             raise SystemExit(f"{args.out} holds records of size {', '.join(sorted(sizes))}, not --size {args.size}")
+    options = _options(args)
+    changed = [r["scenario"] for r in done.values() if (r.get("options") or DEFAULT_OPTIONS) != options]
+    if changed:
+        raise SystemExit(f"{args.out} holds scenarios run with other triage options ({changed[:3]}); "
+                         "choose another file")
+    earlier = _earlier_baselines(args.baseline_from) if args.baseline_from is not None else {}
     seeds = range(args.seed, args.seed + args.scenarios)
     for order, seed in enumerate(seeds, start=1):
         if seed in done:
             print(f"[{order}/{len(seeds)}] scenario {seed}: already recorded", file=sys.stderr)
             continue
-        record = scenario_record(seed, size=args.size, jobs=args.jobs, baseline=args.baseline_src, order=order)
+        if args.baseline_from is not None and seed not in earlier:
+            raise SystemExit(f"{args.baseline_from} holds no baseline run of scenario {seed}")
+        record = scenario_record(seed, size=args.size, jobs=args.jobs, baseline=args.baseline_src, order=order,
+                                 options=options if options != DEFAULT_OPTIONS else None, earlier=earlier.get(seed))
         append_record(args.out, record)
         print(_progress_line(order, len(seeds), record), file=sys.stderr, flush=True)
     return read_records(args.out)
+
+
+def _options(args: argparse.Namespace) -> dict:
+    return {"level": args.level, "null_refits": args.null_refits}
+
+
+def _earlier_baselines(path: Path) -> dict[int, dict]:
+    """Baseline runs of an earlier study file, by scenario (those that ran and recorded their data fingerprint)."""
+    return {r["scenario"]: r["baseline"] for r in read_records(path)
+            if r.get("baseline") and "seconds" in r["baseline"] and "fingerprint" in r["baseline"]}
 
 
 def _progress_line(order: int, total: int, record: dict) -> str:
@@ -810,7 +882,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.worker is not None:
         if args.worker_source is not None and studied_source() != args.worker_source:
             raise SystemExit(f"treeprobe is imported from {studied_source()}, not from {args.worker_source}")
-        result = run_triage(make_scenario(args.worker, size=args.size), args.jobs)
+        options = _options(args)
+        result = run_triage(make_scenario(args.worker, size=args.size), args.jobs,
+                            options if options != DEFAULT_OPTIONS else None)
         print(RESULT_PREFIX + json.dumps(result, allow_nan=False), flush=True)
         return 0
     records = read_records(args.report) if args.report is not None else run_study(args)

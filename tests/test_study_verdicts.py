@@ -202,11 +202,48 @@ def test_resume_skips_recorded_scenarios_and_a_cut_line(study, tmp_path, monkeyp
                 "seconds": 1.0, "fit_seconds": 0.1, "pairs": [], "baseline": None}
 
     monkeypatch.setattr(study, "scenario_record", fake_record)
-    args = Namespace(out=out, seed=0, scenarios=3, size="small", jobs=1, baseline_src=None)
+    args = Namespace(out=out, seed=0, scenarios=3, size="small", jobs=1, baseline_src=None, baseline_from=None,
+                     level=0.05, null_refits=19)
     records = study.run_study(args)
     assert made == [1, 2]
     assert [r["scenario"] for r in records] == [0, 1, 2]
     assert len(out.read_text(encoding="utf-8").splitlines()) == 3
+
+
+def test_resume_refuses_records_run_with_other_options(study, tmp_path):
+    out = tmp_path / "study.jsonl"
+    out.write_text(json.dumps({"scenario": 0, "size": "small", "options": {"level": 0.1, "null_refits": 9}}) + "\n",
+                   encoding="utf-8")
+    args = Namespace(out=out, seed=0, scenarios=2, size="small", jobs=1, baseline_src=None, baseline_from=None,
+                     level=0.05, null_refits=19)
+    with pytest.raises(SystemExit, match="other triage options"):
+        study.run_study(args)
+
+
+def test_options_reach_the_studied_side_only_and_earlier_baselines_are_checked(study, monkeypatch):
+    calls = []
+
+    def fake_worker(scenario, jobs, source, options=None):
+        calls.append(options)
+        return {"seconds": 1.0, "fit_seconds": 0.1, "code": {"path": str(source)}, "pairs": [],
+                "fingerprint": study.fingerprint(scenario)}
+
+    monkeypatch.setattr(study, "run_worker", fake_worker)
+    monkeypatch.setattr(study, "true_sizes", lambda scenario: {})
+    options = {"level": 0.1, "null_refits": 9}
+    scenario = study.make_scenario(0, size="small")
+    earlier = {"seconds": 2.0, "pairs": [], "fingerprint": study.fingerprint(scenario)}
+    record = study.scenario_record(0, size="small", jobs=1, baseline=None, order=0, options=options, earlier=earlier)
+    assert calls == [options]
+    assert record["options"] == options and record["baseline"]["copied"] and record["baseline"]["seconds"] == 2.0
+    with pytest.raises(SystemExit, match="other data"):
+        study.scenario_record(0, size="small", jobs=1, baseline=None, order=0, options=options,
+                              earlier={**earlier, "fingerprint": "0" * 16})
+    # The 'did not beat its own refits' split reads each record's own level.
+    table = study.pair_table([{**record, "pairs": [{"feature_a": "x0", "feature_b": "x1", "verdict": "co-split",
+                                                     "faint": False, "p_value": 0.1, "type": "true",
+                                                     "true_size": 0.3, "band": ">20%"}]}])
+    assert study.measures(table)["strong misses not beating their own refits (p > level)"] == (0, 1)
 
 
 def test_existing_output_needs_resume(study, tmp_path):
