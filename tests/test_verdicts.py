@@ -183,6 +183,19 @@ def test_bad_input_is_reported(friedman1):
         triage(model, X.drop(columns=["x3"]))
 
 
+def test_a_bad_output_is_refused_before_the_data_are_read(friedman1, monkeypatch):
+    import treeprobe.verdicts as verdicts
+
+    model, X, y, _ = friedman1
+
+    def no_work(*_, **__):
+        raise AssertionError("the data were read before the options were checked")
+
+    monkeypatch.setattr(verdicts, "model_matrix", no_work)
+    with pytest.raises(ParameterError, match=r"output must be an integer in 0\.\.0, got 2"):
+        triage(model, X, y, output=2)
+
+
 def test_one_verdict_order_and_rules_from_the_thresholds(friedman1):
     """One tuple in table order; constraints uses the same object; rules follow it and quote the thresholds."""
     from treeprobe import constraints

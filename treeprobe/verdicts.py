@@ -680,9 +680,9 @@ def triage(
     prepared = _prepare(model, X, y, triples=triples, sample=sample, resamples=resamples, null_refits=null_refits,
                         level=level, confidence=confidence, min_h2=min_h2, min_effect=min_effect,
                         max_dependence=max_dependence, params=params, include_absent=include_absent,
-                        random_state=random_state, n_jobs=n_jobs, progress=progress)
-    output = check_int("output", 0 if output is None else output, low=0, high=prepared.graph.n_outputs - 1)
-    return _triage_output(prepared, output, started, shared=None)
+                        random_state=random_state, n_jobs=n_jobs, progress=progress,
+                        output=0 if output is None else output)
+    return _triage_output(prepared, prepared.output, started, shared=None)
 
 
 
@@ -744,7 +744,7 @@ params, include_absent, random_state, n_jobs, progress
     prepared = _prepare(model, X, y, triples=triples, sample=sample, resamples=resamples, null_refits=null_refits,
                         level=level, confidence=confidence, min_h2=min_h2, min_effect=min_effect,
                         max_dependence=max_dependence, params=params, include_absent=include_absent,
-                        random_state=random_state, n_jobs=n_jobs, progress=progress)
+                        random_state=random_state, n_jobs=n_jobs, progress=progress, output=None)
     graph = prepared.graph
     shared = (SharedFirstRound({k: _sharing_pairs(graph, k) for k in range(graph.n_outputs)})
               if prepared.has_floor and graph.n_outputs > 1 else None)
@@ -776,13 +776,17 @@ class _Prepared:
     rows: Any
     matrix: np.ndarray
     rng: np.random.Generator
+    output: int | None
 
 
 def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples: Any, null_refits: Any, level: Any,
              confidence: Any, min_h2: Any, min_effect: Any, max_dependence: Any, params: Any, include_absent: Any,
-             random_state: Any, n_jobs: Any, progress: Any) -> _Prepared:
-    """Check the options, load the model once, build the refit recipe and draw the rows (everything but the output)."""
+             random_state: Any, n_jobs: Any, progress: Any, output: Any) -> _Prepared:
+    """Check the options (``output`` too, unless None: every output), load the model once, build the refit recipe
+    and draw the rows: everything but the per-output work."""
     graph = load_model(model)
+    if output is not None:
+        output = check_int("output", output, low=0, high=graph.n_outputs - 1)
     thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
                                      level=level, confidence=confidence)
     triples = check_bool("triples", triples)
@@ -812,7 +816,7 @@ def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples
     return _Prepared(graph=graph, thresholds=thresholds, triples=triples, include_absent=include_absent,
                      resamples=resamples, null_refits=null_refits, has_floor=has_floor, random_state=random_state,
                      n_jobs=n_jobs, progress=progress, recipe=recipe, target=target, matrix_all=matrix_all,
-                     chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng)
+                     chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng, output=output)
 
 
 def _sharing_pairs(graph: ForestGraph, output: int) -> list[tuple[str, str]]:
