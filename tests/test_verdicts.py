@@ -402,3 +402,6 @@ def test_classes_share_the_first_round_and_equal_separate_triages(monkeypatch):
         assert {k: v for k, v in alone.facts.items() if k != "seconds"} == \
                {k: v for k, v in together.facts.items() if k != "seconds"}
     assert [r.facts["class_analysed"] for r in shared] == [f"class {k} (output {k} of 3)" for k in range(3)]
+    for wrong in ({"output": 1}, {"null_refit": 4}):
+        with pytest.raises(ParameterError, match="takes the options of triage but output; got"):
+            triage_classes(model, X, codes, **wrong)

@@ -71,6 +71,7 @@ References
 from __future__ import annotations
 
 import copy
+import inspect
 import time
 from dataclasses import dataclass, field, fields
 from itertools import combinations
@@ -686,33 +687,16 @@ def triage(
 
 
 
-def triage_classes(
-    model: Any,
-    X: Any,
-    y: Any = None,
-    *,
-    triples: bool = False,
-    sample: int | None = 1000,
-    resamples: int | None = None,
-    null_refits: int = 19,
-    level: float = 0.05,
-    confidence: float = 0.90,
-    min_h2: float = 0.05,
-    min_effect: float = 0.05,
-    max_dependence: float = 0.7,
-    params: dict | None = None,
-    include_absent: bool = True,
-    random_state: int = 0,
-    n_jobs: int = 1,
-    progress: bool | None = None,
-) -> list[TriageResult]:
+def triage_classes(model: Any, X: Any, y: Any = None, **options: Any) -> list[TriageResult]:
     """Triage every output (class) of a model: :func:`triage` with ``output=k`` for each ``k``, sharing the work.
 
     Parameters
     ----------
-    model, X, y, triples, sample, resamples, null_refits, level, confidence, min_h2, min_effect, max_dependence, \
-params, include_absent, random_state, n_jobs, progress
+    model, X, y
         As for :func:`triage`.
+    **options
+        Any keyword option of :func:`triage` but ``output`` (``sample``,
+        ``null_refits``, ``level``, ``n_jobs``, ...), with its defaults.
 
     Returns
     -------
@@ -725,7 +709,9 @@ params, include_absent, random_state, n_jobs, progress
 
     Raises
     ------
-    ParameterError, DataError
+    ParameterError
+        As :func:`triage`, and for an option :func:`triage` does not take (or ``output``).
+    DataError
         As :func:`triage`.
 
     Notes
@@ -741,10 +727,13 @@ params, include_absent, random_state, n_jobs, progress
     in its null.
     """
     started = time.perf_counter()
-    prepared = _prepare(model, X, y, triples=triples, sample=sample, resamples=resamples, null_refits=null_refits,
-                        level=level, confidence=confidence, min_h2=min_h2, min_effect=min_effect,
-                        max_dependence=max_dependence, params=params, include_absent=include_absent,
-                        random_state=random_state, n_jobs=n_jobs, progress=progress, output=None)
+    defaults = {name: parameter.default for name, parameter in inspect.signature(triage).parameters.items()
+                if parameter.kind is inspect.Parameter.KEYWORD_ONLY and name != "output"}
+    unknown = sorted(set(options) - set(defaults))
+    if unknown:
+        raise ParameterError(f"triage_classes takes the options of triage but output; got {', '.join(unknown)} "
+                             f"(options: {', '.join(defaults)})")
+    prepared = _prepare(model, X, y, **{**defaults, **options}, output=None)
     graph = prepared.graph
     shared = (SharedFirstRound({k: _sharing_pairs(graph, k) for k in range(graph.n_outputs)})
               if prepared.has_floor and graph.n_outputs > 1 else None)
