@@ -19,6 +19,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
 from typing import Any
@@ -178,8 +179,9 @@ class SharedFirstRound:
     call runs the round once, scoring on every refit the pairs of every
     output given here, and each call takes its own output's values. Results
     equal separate triages per class (up to the last digit of ``h``, summed
-    among more pairs); the fits are done once instead of once per class. Second rounds stay per class (they keep each class's clear
-    pairs in the null).
+    among more pairs); the fits are done once instead of once per class.
+    Second rounds stay per class (they keep each class's clear pairs in the
+    null).
 
     Parameters
     ----------
@@ -193,7 +195,8 @@ class SharedFirstRound:
         self._inputs: tuple | None = None
         self._by_output: dict[int, np.ndarray] = {}
 
-    def values(self, output: int, names: list[tuple[str, str]], run: Any, inputs: tuple) -> _NullRound:
+    def values(self, output: int, names: list[tuple[str, str]], run: Callable[[Wanted], _NullRound],
+               inputs: tuple) -> _NullRound:
         """The round for ``output``, its values in the order of ``names``; ``run(wanted)`` runs the round the
         first time. ``inputs`` (recipe, rows, seed, refits) must be the same at every call."""
         if self._round is None:

@@ -526,6 +526,139 @@ def _checked_thresholds(*, min_h2: Any, min_effect: Any, max_dependence: Any, le
             "confidence": confidence}
 
 
+# -------------------------------------------------------------------- set-up and one output
+@dataclass(frozen=True)
+class _Prepared:
+    """What the triages of every output of one model on one data set share: checked options, the model, the
+    refit recipe, the coded data, the sampled rows and the random state right after drawing them."""
+
+    graph: ForestGraph
+    thresholds: dict
+    triples: bool
+    include_absent: bool
+    resamples: int
+    null_refits: int
+    has_floor: bool
+    random_state: int
+    n_jobs: int
+    progress: bool | None
+    recipe: Recipe | None
+    target: np.ndarray | None
+    matrix_all: np.ndarray
+    chosen: np.ndarray
+    rows: Any
+    matrix: np.ndarray
+    rng: np.random.Generator
+    output: int | None
+
+
+def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples: Any, null_refits: Any, level: Any,
+             confidence: Any, min_h2: Any, min_effect: Any, max_dependence: Any, params: Any, include_absent: Any,
+             random_state: Any, n_jobs: Any, progress: Any, output: Any) -> _Prepared:
+    """Check the options (``output`` too, unless None: every output), load the model once, build the refit recipe
+    and draw the rows: everything but the per-output work."""
+    graph = load_model(model)
+    if output is not None:
+        output = check_int("output", output, low=0, high=graph.n_outputs - 1)
+    thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
+                                     level=level, confidence=confidence)
+    triples = check_bool("triples", triples)
+    include_absent = check_bool("include_absent", include_absent)
+    sample = check_int("sample", sample, low=2, allow_none=True)
+    resamples = check_int("resamples", resamples, low=0, allow_none=True)
+    null_refits = check_int("null_refits", null_refits, low=0)
+    random_state = check_seed("random_state", random_state, allow_none=False)
+    n_jobs = check_n_jobs(n_jobs)
+    progress = check_progress(progress)
+    if params is not None and not isinstance(params, dict):
+        raise ParameterError(f"params must be a dict of training parameters or None, got {type(params).__name__}")
+
+    X, target = _split_target(X, y, graph)
+    has_floor = target is not None and null_refits > 0
+    if has_floor:
+        check_refit_level(null_refits, thresholds["level"])
+    if resamples is None:
+        resamples = 0 if has_floor else _RESAMPLES_WITHOUT_FLOOR
+    recipe = _refit_recipe(graph, live_model_of(model), params) if target is not None and null_refits else None
+    matrix_all = model_matrix(graph, X)
+    if recipe is not None:
+        target = checked_target(target, matrix_all.shape[0], recipe.task)
+        recipe = calibrate_step(recipe, graph, matrix_all, target, seed=random_state)
+    rng = np.random.default_rng(random_state)
+    chosen = _sample_rows(matrix_all, sample, rng)
+    return _Prepared(graph=graph, thresholds=thresholds, triples=triples, include_absent=include_absent,
+                     resamples=resamples, null_refits=null_refits, has_floor=has_floor, random_state=random_state,
+                     n_jobs=n_jobs, progress=progress, recipe=recipe, target=target, matrix_all=matrix_all,
+                     chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng, output=output)
+
+
+def _sharing_pairs(graph: ForestGraph, output: int) -> list[tuple[str, str]]:
+    """The pairs that share a path in the trees of ``output``: those a triage of that output tests."""
+    pairs = structure(graph, max_order=2, output=output if graph.n_outputs > 1 else None).pairs
+    pairs = pairs[pairs["paths"] > 0]
+    return list(zip(pairs["feature_a"], pairs["feature_b"], strict=True))
+
+
+def _triage_output(prepared: _Prepared, output: int, started: float,
+                   shared: SharedFirstRound | None) -> TriageResult:
+    """The triage of one output (class) of a prepared model and data set."""
+    graph, thresholds, recipe, target = prepared.graph, prepared.thresholds, prepared.recipe, prepared.target
+    triples, rows, matrix, progress = prepared.triples, prepared.rows, prepared.matrix, prepared.progress
+    # Every output starts from the random state right after the row sample, as a triage of that output alone.
+    rng = copy.deepcopy(prepared.rng)
+    h_output = output if graph.n_outputs > 1 else None
+    walked = structure(graph, max_order=3 if triples else 2, output=h_output)
+    used = walked.features["splits"].to_numpy() > 0
+    used_names = [name for name, flag in zip(graph.feature_names, used, strict=True) if flag]
+    hres = h_statistic(graph, rows, pairs=[tuple(k) for k in walked.pairs[["feature_a", "feature_b"]].to_numpy()] or None,
+                       triples=triples or None, against_rest=True, sample=None, output=h_output, progress=progress)
+    prediction_sd = _prediction_sd(graph, matrix, output)
+    scale = prediction_sd if prediction_sd > 0 else 1.0
+
+    frame = _pair_frame(walked, hres, used_names, prepared.include_absent)
+    frame["effect"] = frame["h"] / scale
+    frame = _with_intervals(frame, graph, rows, resamples=prepared.resamples, confidence=thresholds["confidence"],
+                            min_effect=thresholds["min_effect"], rng=rng, output=h_output, progress=progress)
+    frame = _with_dependence(frame, graph, matrix, prepared.random_state)
+    frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, prepared.matrix_all, target, matrix,
+                                                       feature_names=graph.feature_names, refits=prepared.null_refits,
+                                                       level=thresholds["level"], spread=scale,
+                                                       max_dependence=thresholds["max_dependence"], output=h_output,
+                                                       random_state=prepared.random_state, n_jobs=prepared.n_jobs,
+                                                       progress=progress, shared=shared)
+    frame = _with_verdicts(frame, thresholds)
+    refit_notes = [*refit_notes, *_near_misses(frame, thresholds)]
+    triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
+                    else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
+
+    facts = {
+        "n_rows": int(len(prepared.chosen)),
+        "n_rows_available": int(prepared.matrix_all.shape[0]),
+        "resamples": prepared.resamples,
+        "null_refits": prepared.null_refits if prepared.has_floor else 0,
+        "has_target": target is not None,
+        "prediction_sd": prediction_sd,
+        "output": output,
+        "class_analysed": class_analysed(graph, output),
+        "scale": "margin",
+        "seconds": time.perf_counter() - started,
+        "refit_notes": refit_notes,
+        "refit_recipe": None if recipe is None else recipe.to_dict(),
+        "refit_recipe_text": "" if recipe is None else recipe.describe(),
+        "refit_threads_per_fit": None if recipe is None else threads_per_fit(prepared.n_jobs),
+        "null_rounds": null_facts.get("null_rounds"),
+        "floor_rounds": null_facts.get("floor_rounds", 0),
+        "kept_in_null": null_facts.get("kept_in_null", []),
+        "refits_total": null_facts.get("refits_total", 0),
+        "additive_rounds": null_facts.get("additive_rounds"),
+        "additive_family": null_facts.get("additive_family"),
+        "label_change_share": null_facts.get("label_change_share"),
+        "null_separable": bool(null_facts.get("null_separable", False)),
+    }
+    return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
+                        ensemble=graph, rules=_rules(thresholds, prepared.has_floor), thresholds=thresholds, facts=facts)
+
+
 # -------------------------------------------------------------------- public
 def triage(
     model: Any,
@@ -686,7 +819,6 @@ def triage(
     return _triage_output(prepared, prepared.output, started, shared=None)
 
 
-
 def triage_classes(model: Any, X: Any, y: Any = None, **options: Any) -> list[TriageResult]:
     """Triage every output (class) of a model: :func:`triage` with ``output=k`` for each ``k``, sharing the work.
 
@@ -742,134 +874,3 @@ def triage_classes(model: Any, X: Any, y: Any = None, **options: Any) -> list[Tr
         results.append(_triage_output(prepared, k, started, shared))
         started = time.perf_counter()
     return results
-
-@dataclass(frozen=True)
-class _Prepared:
-    """What the triages of every output of one model on one data set share: checked options, the model, the
-    refit recipe, the coded data, the sampled rows and the random state right after drawing them."""
-
-    graph: ForestGraph
-    thresholds: dict
-    triples: bool
-    include_absent: bool
-    resamples: int
-    null_refits: int
-    has_floor: bool
-    random_state: int
-    n_jobs: int
-    progress: bool | None
-    recipe: Recipe | None
-    target: np.ndarray | None
-    matrix_all: np.ndarray
-    chosen: np.ndarray
-    rows: Any
-    matrix: np.ndarray
-    rng: np.random.Generator
-    output: int | None
-
-
-def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples: Any, null_refits: Any, level: Any,
-             confidence: Any, min_h2: Any, min_effect: Any, max_dependence: Any, params: Any, include_absent: Any,
-             random_state: Any, n_jobs: Any, progress: Any, output: Any) -> _Prepared:
-    """Check the options (``output`` too, unless None: every output), load the model once, build the refit recipe
-    and draw the rows: everything but the per-output work."""
-    graph = load_model(model)
-    if output is not None:
-        output = check_int("output", output, low=0, high=graph.n_outputs - 1)
-    thresholds = _checked_thresholds(min_h2=min_h2, min_effect=min_effect, max_dependence=max_dependence,
-                                     level=level, confidence=confidence)
-    triples = check_bool("triples", triples)
-    include_absent = check_bool("include_absent", include_absent)
-    sample = check_int("sample", sample, low=2, allow_none=True)
-    resamples = check_int("resamples", resamples, low=0, allow_none=True)
-    null_refits = check_int("null_refits", null_refits, low=0)
-    random_state = check_seed("random_state", random_state, allow_none=False)
-    n_jobs = check_n_jobs(n_jobs)
-    progress = check_progress(progress)
-    if params is not None and not isinstance(params, dict):
-        raise ParameterError(f"params must be a dict of training parameters or None, got {type(params).__name__}")
-
-    X, target = _split_target(X, y, graph)
-    has_floor = target is not None and null_refits > 0
-    if has_floor:
-        check_refit_level(null_refits, thresholds["level"])
-    if resamples is None:
-        resamples = 0 if has_floor else _RESAMPLES_WITHOUT_FLOOR
-    recipe = _refit_recipe(graph, live_model_of(model), params) if target is not None and null_refits else None
-    matrix_all = model_matrix(graph, X)
-    if recipe is not None:
-        target = checked_target(target, matrix_all.shape[0], recipe.task)
-        recipe = calibrate_step(recipe, graph, matrix_all, target, seed=random_state)
-    rng = np.random.default_rng(random_state)
-    chosen = _sample_rows(matrix_all, sample, rng)
-    return _Prepared(graph=graph, thresholds=thresholds, triples=triples, include_absent=include_absent,
-                     resamples=resamples, null_refits=null_refits, has_floor=has_floor, random_state=random_state,
-                     n_jobs=n_jobs, progress=progress, recipe=recipe, target=target, matrix_all=matrix_all,
-                     chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng, output=output)
-
-
-def _sharing_pairs(graph: ForestGraph, output: int) -> list[tuple[str, str]]:
-    """The pairs that share a path in the trees of ``output``: those a triage of that output tests."""
-    pairs = structure(graph, max_order=2, output=output if graph.n_outputs > 1 else None).pairs
-    pairs = pairs[pairs["paths"] > 0]
-    return list(zip(pairs["feature_a"], pairs["feature_b"], strict=True))
-
-
-def _triage_output(prepared: _Prepared, output: int, started: float,
-                   shared: SharedFirstRound | None) -> TriageResult:
-    """The triage of one output (class) of a prepared model and data set."""
-    graph, thresholds, recipe, target = prepared.graph, prepared.thresholds, prepared.recipe, prepared.target
-    triples, rows, matrix, progress = prepared.triples, prepared.rows, prepared.matrix, prepared.progress
-    # Every output starts from the random state right after the row sample, as a triage of that output alone.
-    rng = copy.deepcopy(prepared.rng)
-    h_output = output if graph.n_outputs > 1 else None
-    walked = structure(graph, max_order=3 if triples else 2, output=h_output)
-    used = walked.features["splits"].to_numpy() > 0
-    used_names = [name for name, flag in zip(graph.feature_names, used, strict=True) if flag]
-    hres = h_statistic(graph, rows, pairs=[tuple(k) for k in walked.pairs[["feature_a", "feature_b"]].to_numpy()] or None,
-                       triples=triples or None, against_rest=True, sample=None, output=h_output, progress=progress)
-    prediction_sd = _prediction_sd(graph, matrix, output)
-    scale = prediction_sd if prediction_sd > 0 else 1.0
-
-    frame = _pair_frame(walked, hres, used_names, prepared.include_absent)
-    frame["effect"] = frame["h"] / scale
-    frame = _with_intervals(frame, graph, rows, resamples=prepared.resamples, confidence=thresholds["confidence"],
-                            min_effect=thresholds["min_effect"], rng=rng, output=h_output, progress=progress)
-    frame = _with_dependence(frame, graph, matrix, prepared.random_state)
-    frame, refit_notes, null_facts = _with_noise_floor(frame, recipe, prepared.matrix_all, target, matrix,
-                                                       feature_names=graph.feature_names, refits=prepared.null_refits,
-                                                       level=thresholds["level"], spread=scale,
-                                                       max_dependence=thresholds["max_dependence"], output=h_output,
-                                                       random_state=prepared.random_state, n_jobs=prepared.n_jobs,
-                                                       progress=progress, shared=shared)
-    frame = _with_verdicts(frame, thresholds)
-    refit_notes = [*refit_notes, *_near_misses(frame, thresholds)]
-    triple_frame = (_triple_frame(walked, hres, frame, scale, thresholds) if triples
-                    else pd.DataFrame(columns=list(TRIPLE_COLUMNS)))
-
-    facts = {
-        "n_rows": int(len(prepared.chosen)),
-        "n_rows_available": int(prepared.matrix_all.shape[0]),
-        "resamples": prepared.resamples,
-        "null_refits": prepared.null_refits if prepared.has_floor else 0,
-        "has_target": target is not None,
-        "prediction_sd": prediction_sd,
-        "output": output,
-        "class_analysed": class_analysed(graph, output),
-        "scale": "margin",
-        "seconds": time.perf_counter() - started,
-        "refit_notes": refit_notes,
-        "refit_recipe": None if recipe is None else recipe.to_dict(),
-        "refit_recipe_text": "" if recipe is None else recipe.describe(),
-        "refit_threads_per_fit": None if recipe is None else threads_per_fit(prepared.n_jobs),
-        "null_rounds": null_facts.get("null_rounds"),
-        "floor_rounds": null_facts.get("floor_rounds", 0),
-        "kept_in_null": null_facts.get("kept_in_null", []),
-        "refits_total": null_facts.get("refits_total", 0),
-        "additive_rounds": null_facts.get("additive_rounds"),
-        "additive_family": null_facts.get("additive_family"),
-        "label_change_share": null_facts.get("label_change_share"),
-        "null_separable": bool(null_facts.get("null_separable", False)),
-    }
-    return TriageResult(pairs=frame, triples=triple_frame, features=_feature_frame(walked, hres, graph.feature_names, used),
-                        ensemble=graph, rules=_rules(thresholds, prepared.has_floor), thresholds=thresholds, facts=facts)
