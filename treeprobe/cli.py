@@ -815,7 +815,7 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--top", type=int, default=20, metavar="N", help="rows per table in table format (default: 20)")
     p.add_argument("--class", dest="class_index", type=_class_choice, default=None, metavar="I",
                    help="class I of a multiclass model (0-based class index; default 0); triage also takes "
-                        "'all' (every class in turn)")
+                        "'all' (every class, sharing the first round of noise-floor refits)")
 
 
 def _add_table(p: argparse.ArgumentParser, names: Sequence[str] | None, listed: str) -> None:
