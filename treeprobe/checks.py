@@ -29,7 +29,8 @@ from typing import Any
 
 from .errors import ParameterError
 
-__all__ = ["check_int", "check_float", "check_choice", "check_bool", "check_progress", "check_n_jobs", "check_seed"]
+__all__ = ["check_int", "check_float", "check_choice", "check_bool", "check_progress", "check_n_jobs", "check_seed",
+           "close_name"]
 
 
 # Similarity (difflib's ratio, 0 to 1) from which a known name is offered for a misspelt one: our convention,
