@@ -592,22 +592,27 @@ def _prepare(model: Any, X: Any, y: Any, *, triples: Any, sample: Any, resamples
                      chosen=chosen, rows=_take_rows(X, chosen), matrix=matrix_all[chosen], rng=rng, output=output)
 
 
-def _sharing_pairs(graph: ForestGraph, output: int) -> list[tuple[str, str]]:
-    """The pairs that share a path in the trees of ``output``: those a triage of that output tests."""
-    pairs = structure(graph, max_order=2, output=output if graph.n_outputs > 1 else None).pairs
-    pairs = pairs[pairs["paths"] > 0]
+def _walk(prepared: _Prepared, output: int) -> Any:
+    """The structure walk of the trees of ``output`` (triples too when asked for)."""
+    graph = prepared.graph
+    return structure(graph, max_order=3 if prepared.triples else 2, output=output if graph.n_outputs > 1 else None)
+
+
+def _sharing_pairs(walked: Any) -> list[tuple[str, str]]:
+    """The pairs that share a path in a walk: those a triage of its output tests."""
+    pairs = walked.pairs[walked.pairs["paths"] > 0]
     return list(zip(pairs["feature_a"], pairs["feature_b"], strict=True))
 
 
-def _triage_output(prepared: _Prepared, output: int, started: float,
-                   shared: SharedFirstRound | None) -> TriageResult:
-    """The triage of one output (class) of a prepared model and data set."""
+def _triage_output(prepared: _Prepared, output: int, started: float, shared: SharedFirstRound | None,
+                   walked: Any = None) -> TriageResult:
+    """The triage of one output (class) of a prepared model and data set (``walked``: its structure walk, if done)."""
     graph, thresholds, recipe, target = prepared.graph, prepared.thresholds, prepared.recipe, prepared.target
     triples, rows, matrix, progress = prepared.triples, prepared.rows, prepared.matrix, prepared.progress
     # Every output starts from the random state right after the row sample, as a triage of that output alone.
     rng = copy.deepcopy(prepared.rng)
     h_output = output if graph.n_outputs > 1 else None
-    walked = structure(graph, max_order=3 if triples else 2, output=h_output)
+    walked = _walk(prepared, output) if walked is None else walked
     used = walked.features["splits"].to_numpy() > 0
     used_names = [name for name, flag in zip(graph.feature_names, used, strict=True) if flag]
     hres = h_statistic(graph, rows, pairs=[tuple(k) for k in walked.pairs[["feature_a", "feature_b"]].to_numpy()] or None,
@@ -867,10 +872,11 @@ def triage_classes(model: Any, X: Any, y: Any = None, **options: Any) -> list[Tr
                              f"(options: {', '.join(defaults)})")
     prepared = _prepare(model, X, y, **{**defaults, **options}, output=None)
     graph = prepared.graph
-    shared = (SharedFirstRound({k: _sharing_pairs(graph, k) for k in range(graph.n_outputs)})
+    walks = [_walk(prepared, k) for k in range(graph.n_outputs)]
+    shared = (SharedFirstRound({k: _sharing_pairs(walked) for k, walked in enumerate(walks)})
               if prepared.has_floor and graph.n_outputs > 1 else None)
     results = []
-    for k in range(graph.n_outputs):
-        results.append(_triage_output(prepared, k, started, shared))
+    for k, walked in enumerate(walks):
+        results.append(_triage_output(prepared, k, started, shared, walked))
         started = time.perf_counter()
     return results
