@@ -924,14 +924,18 @@ def _linear_sums(cells: RowCells, members: np.ndarray, offset: np.ndarray, steps
     return out
 
 
+def _coordinate_counts(points: Sequence[tuple[np.ndarray, np.ndarray]], n_pairs: int, span: int) -> np.ndarray:
+    """(n_pairs, span): for each pair and coordinate ``c``, how many of the pair's distinct coordinates (the
+    (pair, coordinate) arrays of ``points``) are at most ``c``: a row's grid line is that count at its own cell."""
+    present = np.zeros((n_pairs, span), dtype=bool)
+    for pair, coordinate in points:
+        present[pair, coordinate] = True
+    return np.cumsum(present, axis=1)
+
+
 def _pair_axes(pair: np.ndarray, low: np.ndarray, high: np.ndarray, span: int, n_pairs: int) -> np.ndarray:
-    """(n_pairs, span): for each pair and coordinate ``c``, how many of the pair's distinct corner
-    coordinates on this axis (``low`` and ``high`` of its boxes) are at most ``c``."""
-    present = np.zeros(n_pairs * span, dtype=bool)
-    pair = pair.astype(np.int64)
-    present[pair * span + low] = True
-    present[pair * span + high] = True
-    return np.cumsum(present.reshape(n_pairs, span), axis=1)
+    """(n_pairs, span): :func:`_coordinate_counts` of the ``low`` and ``high`` ends of the pairs' boxes on one axis."""
+    return _coordinate_counts([(pair, low), (pair, high)], n_pairs, span)
 
 
 def _running_sum_down(grid: np.ndarray) -> None:
@@ -1571,13 +1575,9 @@ def _box_corners(boxes: dict) -> dict:
 def _corner_lines(corners: list[dict], n_pairs: int, span: int) -> tuple[np.ndarray, np.ndarray]:
     """(n_pairs, span) per axis: how many of the pair's distinct corner coordinates lie at or below each snapped
     coordinate; a row's grid line is that count at its own coordinate (line 0: below every corner)."""
-    lines = []
-    for axis in ("a", "b"):
-        present = np.zeros((n_pairs, span), dtype=bool)
-        for part in corners:
-            present[part["pair"], part[axis]] = True
-        lines.append(np.cumsum(present, axis=1))
-    return lines[0], lines[1]
+    a_lines, b_lines = (_coordinate_counts([(part["pair"], part[axis]) for part in corners], n_pairs, span)
+                        for axis in ("a", "b"))
+    return a_lines, b_lines
 
 
 def _grid_batches(height: np.ndarray, width: np.ndarray, n_sets: int) -> tuple[np.ndarray, list[int]]:
